@@ -1,0 +1,476 @@
+"""The start-stop table: one validated container that every model reads.
+
+Contract (DESIGN.md): one row per customer, per spell, per interval in which
+every covariate is constant. Intervals are (start, stop] in days of tenure: at
+risk just after ``start`` through ``stop`` inclusive.
+
+Required columns: ``start``, ``stop``, ``churned``. Recognised optional
+columns: ``customer_id`` (defaults to one customer per row), ``spell``
+(default 1), ``cause`` (``voluntary`` / ``involuntary`` on churn rows, empty
+otherwise), ``weight`` (default 1.0; the count of identical rows after
+compression), ``start_date`` (calendar day the spell began, tenure 0). Every
+other column is a covariate: numeric columns are kept as float64, text columns
+as :class:`Categorical` (integer codes and sorted levels).
+
+The contract is checked once, here; kernels receive plain numpy arrays.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from retain.errors import DataError
+
+CORE_COLUMNS = ("customer_id", "spell", "start", "stop", "churned", "cause", "weight", "start_date")
+CAUSES = ("voluntary", "involuntary")
+
+
+@dataclass(frozen=True)
+class Categorical:
+    """A text column as integer codes into sorted ``levels`` (code -1 = missing)."""
+
+    codes: np.ndarray
+    levels: tuple[str, ...]
+
+    def __len__(self) -> int:
+        return len(self.codes)
+
+    def values(self) -> np.ndarray:
+        """Decoded values as an object array (missing -> None)."""
+        lv = np.array(list(self.levels) + [None], dtype=object)
+        return lv[self.codes]
+
+    def take(self, index: np.ndarray) -> Categorical:
+        return Categorical(self.codes[index], self.levels)
+
+    def counts(self, weight: np.ndarray | None = None) -> dict[str, float]:
+        ok = self.codes >= 0
+        c = np.bincount(self.codes[ok], weights=None if weight is None else weight[ok],
+                        minlength=len(self.levels))
+        return {lv: float(c[i]) for i, lv in enumerate(self.levels)}
+
+    @classmethod
+    def from_values(cls, values: Any) -> Categorical:
+        arr = pa.array(values) if not isinstance(values, (pa.Array, pa.ChunkedArray)) else values
+        if isinstance(arr, pa.ChunkedArray):
+            arr = arr.combine_chunks()
+        if pa.types.is_dictionary(arr.type):
+            arr = arr.cast(arr.type.value_type)
+        arr = pc.cast(arr, pa.string())
+        uniq = pc.unique(arr.drop_null()).to_pylist()
+        levels = tuple(sorted(uniq))
+        if not levels:
+            return cls(np.full(len(arr), -1, dtype=np.int32), ())
+        idx = pc.index_in(arr, value_set=pa.array(levels, type=pa.string()))
+        codes = idx.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int32)
+        return cls(codes, levels)
+
+
+Column = "np.ndarray | Categorical"
+
+
+def _as_float(name: str, values: Any) -> np.ndarray:
+    try:
+        arr = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise DataError(f"column {name!r}", "must be numeric", "check the start-stop table") from exc
+    return arr
+
+
+class StartStop:
+    """A start-stop survival table that meets the contract in DESIGN.md.
+
+    Build it with :meth:`from_frame`, :meth:`from_arrow`, :meth:`from_parquet`
+    or :meth:`from_duckdb`; the constructor takes plain arrays.
+
+    Parameters
+    ----------
+    start, stop : array of float
+        Tenure in days; ``start < stop``; at risk on (start, stop].
+    churned : array of 0/1
+        1 only on the last row of a spell that ended.
+    weight : array of float, optional
+        Case weights, finite and > 0 (default 1).
+    customer_id : array of str, optional
+        Identifies the customer (cluster for robust errors). Default: one per row.
+    spell : array of int, optional
+        Spell number within customer (default 1).
+    cause : array of str, optional
+        ``voluntary`` / ``involuntary`` on churn rows, empty elsewhere.
+    start_date : array of datetime64[D], optional
+        Calendar day each row's spell began (tenure 0).
+    covariates : mapping name -> array
+        Numeric arrays are stored as float64, text arrays as :class:`Categorical`.
+    source : str
+        Where the table came from, for messages.
+    validate : bool
+        Check the contract (default True). Only internal callers that slice an
+        already-valid table pass False.
+    """
+
+    def __init__(
+        self,
+        start: Any,
+        stop: Any,
+        churned: Any,
+        *,
+        weight: Any = None,
+        customer_id: Any = None,
+        spell: Any = None,
+        cause: Any = None,
+        start_date: Any = None,
+        covariates: Mapping[str, Any] | None = None,
+        source: str = "start-stop table",
+        validate: bool = True,
+    ) -> None:
+        self.source = source
+        self.start = _as_float("start", start)
+        self.stop = _as_float("stop", stop)
+        n = self.start.shape[0]
+        churned_f = _as_float("churned", churned)
+        self.weight = np.ones(n) if weight is None else _as_float("weight", weight)
+        if customer_id is None:
+            self.customer = Categorical(np.arange(n, dtype=np.int32),
+                                        tuple(str(i) for i in range(n)))
+        elif isinstance(customer_id, Categorical):
+            self.customer = customer_id
+        else:
+            self.customer = Categorical.from_values(customer_id)
+        self.spell = np.ones(n, dtype=np.int64) if spell is None else np.asarray(spell, dtype=np.int64)
+        if cause is None:
+            cause = Categorical(np.full(n, -1, dtype=np.int32), ())
+        elif not isinstance(cause, Categorical):
+            cause = Categorical.from_values(cause)
+        # empty string counts as "no cause"
+        if "" in cause.levels:
+            empty = cause.levels.index("")
+            levels = tuple(lv for lv in cause.levels if lv != "")
+            remap = np.array([levels.index(lv) if lv != "" else -1 for lv in cause.levels] + [-1],
+                             dtype=np.int32)
+            cause = Categorical(remap[cause.codes], levels)
+            del empty
+        self.cause = cause
+        self.start_date = None if start_date is None else np.asarray(start_date, dtype="datetime64[D]")
+        self.covariates: dict[str, np.ndarray | Categorical] = {}
+        for name, values in (covariates or {}).items():
+            self.covariates[name] = _coerce_covariate(name, values)
+        if validate:
+            self._check(churned_f, n)
+        self.churned = churned_f.astype(np.int8)
+
+    # ------------------------------------------------------------------ checks
+    def _check(self, churned: np.ndarray, n: int) -> None:
+        where = self.source
+        for name, arr in (("stop", self.stop), ("churned", churned), ("weight", self.weight),
+                          ("spell", self.spell), ("customer_id", self.customer.codes),
+                          ("cause", self.cause.codes)):
+            if arr.shape != (n,):
+                raise DataError(where, f"column {name!r} has {arr.shape[0]} rows, start has {n}",
+                                "pass columns of equal length")
+        for name, col in self.covariates.items():
+            if len(col) != n:
+                raise DataError(where, f"covariate {name!r} has {len(col)} rows, start has {n}",
+                                "pass columns of equal length")
+        if self.start_date is not None and self.start_date.shape != (n,):
+            raise DataError(where, "column 'start_date' has the wrong length", "pass equal lengths")
+        if n == 0:
+            raise DataError(where, "the table has no rows", "check the filter or the input file")
+        for name, arr in (("start", self.start), ("stop", self.stop)):
+            bad = ~np.isfinite(arr)
+            if bad.any():
+                raise DataError(where, f"column {name!r} is missing or not finite on "
+                                f"{int(bad.sum())} rows (first: {self._who(np.flatnonzero(bad)[0])})",
+                                "every row needs a finite start and stop")
+        bad = self.start >= self.stop
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise DataError(where, f"start must be < stop; {self._who(i)} has start "
+                            f"{self.start[i]:g} and stop {self.stop[i]:g} "
+                            f"({int(bad.sum())} such rows)", "fix or drop those rows")
+        bad = self.start < 0
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise DataError(where, f"start must be >= 0 (tenure in days); {self._who(i)} has "
+                            f"start {self.start[i]:g}", "tenure counts from the spell's start day")
+        bad = ~np.isin(churned, (0.0, 1.0))
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise DataError(where, f"churned must be 0 or 1; {self._who(i)} has {churned[i]!r}",
+                            "code churn as 1 and censoring as 0")
+        bad = ~(np.isfinite(self.weight) & (self.weight > 0))
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise DataError(where, f"weights must be finite and > 0; {self._who(i)} has weight "
+                            f"{self.weight[i]!r} ({int(bad.sum())} such rows)",
+                            "drop zero-weight rows; negative weights have no meaning")
+        unknown = [lv for lv in self.cause.levels if lv not in CAUSES]
+        if unknown:
+            raise DataError(where, f"cause must be one of {', '.join(CAUSES)} or empty; found "
+                            f"{unknown[0]!r}", "map reasons onto voluntary / involuntary")
+        bad = (self.cause.codes >= 0) & (churned == 0)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise DataError(where, f"a cause is set on a row that did not churn ({self._who(i)})",
+                            "cause belongs on churn rows only")
+        # within (customer, spell): ordered, non-overlapping, churn only on the last row
+        order = np.lexsort((self.start, self.spell, self.customer.codes))
+        c = self.customer.codes[order]
+        s = self.spell[order]
+        same = (c[1:] == c[:-1]) & (s[1:] == s[:-1])
+        if same.any():
+            overlap = same & (self.start[order][1:] < self.stop[order][:-1])
+            if overlap.any():
+                i = int(order[1:][np.flatnonzero(overlap)[0]])
+                raise DataError(where, f"intervals overlap within a spell: {self._who(i)} has a "
+                                f"row starting at {self.start[i]:g} before the previous row stops",
+                                "times must increase within a spell; rebuild the intervals")
+            early = same & (churned[order][:-1] == 1)
+            if early.any():
+                i = int(order[:-1][np.flatnonzero(early)[0]])
+                raise DataError(where, f"churned = 1 on a row that is not the last of its spell "
+                                f"({self._who(i)})", "churn ends a spell")
+
+    def _who(self, i: int) -> str:
+        cid = self.customer.levels[self.customer.codes[i]] if self.customer.codes[i] >= 0 else "?"
+        return f"customer {cid!r} spell {int(self.spell[i])} (row {i})"
+
+    # ------------------------------------------------------------------ facts
+    @property
+    def n_rows(self) -> int:
+        return int(self.start.shape[0])
+
+    @property
+    def n_customers(self) -> int:
+        return int(np.unique(self.customer.codes).shape[0])
+
+    @property
+    def n_events(self) -> float:
+        """Weighted number of churns."""
+        return float(np.dot(self.weight, self.churned))
+
+    @property
+    def covariate_names(self) -> list[str]:
+        return list(self.covariates)
+
+    def __len__(self) -> int:
+        return self.n_rows
+
+    def __repr__(self) -> str:
+        return (f"StartStop({self.n_rows} rows, {self.n_customers} customers, "
+                f"{self.n_events:g} churns, covariates={self.covariate_names})")
+
+    def has(self, name: str) -> bool:
+        return name in self.covariates
+
+    def column(self, name: str) -> np.ndarray | Categorical:
+        """A covariate: float64 array for numeric, :class:`Categorical` for text."""
+        if name not in self.covariates:
+            raise DataError(self.source, f"there is no column {name!r}",
+                            f"choose one of: {', '.join(self.covariate_names) or '(none)'}")
+        return self.covariates[name]
+
+    def is_categorical(self, name: str) -> bool:
+        return isinstance(self.column(name), Categorical)
+
+    def numeric(self, name: str) -> np.ndarray:
+        col = self.column(name)
+        if isinstance(col, Categorical):
+            raise DataError(self.source, f"column {name!r} is text, a number is needed",
+                            "declare it numeric or pick a numeric column")
+        return col
+
+    @property
+    def cluster(self) -> np.ndarray:
+        """Integer customer codes (clusters for robust errors)."""
+        return self.customer.codes
+
+    @property
+    def last_of_spell(self) -> np.ndarray:
+        """Boolean mask: the row is the last (largest stop) of its (customer, spell)."""
+        order = np.lexsort((self.stop, self.spell, self.customer.codes))
+        c = self.customer.codes[order]
+        s = self.spell[order]
+        last_sorted = np.ones(self.n_rows, dtype=bool)
+        last_sorted[:-1] = (c[1:] != c[:-1]) | (s[1:] != s[:-1])
+        out = np.empty(self.n_rows, dtype=bool)
+        out[order] = last_sorted
+        return out
+
+    # ------------------------------------------------------------------ slicing
+    def take(self, index: np.ndarray) -> StartStop:
+        """Rows by integer index or boolean mask (no re-validation needed)."""
+        index = np.asarray(index)
+        if index.dtype == bool:
+            index = np.flatnonzero(index)
+        new = object.__new__(StartStop)
+        new.source = self.source
+        new.start = self.start[index]
+        new.stop = self.stop[index]
+        new.churned = self.churned[index]
+        new.weight = self.weight[index]
+        new.customer = self.customer.take(index)
+        new.spell = self.spell[index]
+        new.cause = self.cause.take(index)
+        new.start_date = None if self.start_date is None else self.start_date[index]
+        new.covariates = {k: (v.take(index) if isinstance(v, Categorical) else v[index])
+                          for k, v in self.covariates.items()}
+        return new
+
+    def groups(self, by: str) -> Iterator[tuple[str, StartStop]]:
+        """(level, sub-table) for each level of a categorical column, in level order.
+
+        Numeric columns are grouped by their distinct values (formatted with ``g``).
+        Rows with a missing value are left out.
+        """
+        col = self.column(by)
+        if isinstance(col, Categorical):
+            for code, level in enumerate(col.levels):
+                mask = col.codes == code
+                if mask.any():
+                    yield level, self.take(mask)
+        else:
+            for value in np.unique(col[np.isfinite(col)]):
+                yield f"{value:g}", self.take(col == value)
+
+    def with_columns(self, **columns: Any) -> StartStop:
+        """A copy with covariates added or replaced."""
+        new = self.take(np.arange(self.n_rows))
+        for name, values in columns.items():
+            new.covariates[name] = _coerce_covariate(name, values)
+        return new
+
+    def with_weight(self, weight: Any) -> StartStop:
+        new = self.take(np.arange(self.n_rows))
+        new.weight = _as_float("weight", weight)
+        return new
+
+    def expanded(self) -> StartStop:
+        """Rows repeated by their (whole-number) weight, each with weight 1.
+
+        The inverse of compression; used to check that compressed and full
+        tables give the same results.
+        """
+        w = np.rint(self.weight)
+        if not np.allclose(w, self.weight):
+            raise DataError(self.source, "weights are not whole numbers", "cannot expand")
+        new = self.take(np.repeat(np.arange(self.n_rows), w.astype(np.int64)))
+        new.weight = np.ones(new.n_rows)
+        return new
+
+    # ------------------------------------------------------------------ conversion
+    def to_arrow(self) -> pa.Table:
+        cols: dict[str, Any] = {
+            "customer_id": pa.array(self.customer.values(), type=pa.string()),
+            "spell": pa.array(self.spell, type=pa.int64()),
+            "start": pa.array(self.start, type=pa.float64()),
+            "stop": pa.array(self.stop, type=pa.float64()),
+            "churned": pa.array(self.churned.astype(np.int32), type=pa.int32()),
+            "cause": pa.array(np.where(self.cause.codes >= 0, self.cause.values(), ""),
+                              type=pa.string()),
+            "weight": pa.array(self.weight, type=pa.float64()),
+        }
+        if self.start_date is not None:
+            cols["start_date"] = pa.array(self.start_date, type=pa.date32())
+        for name, col in self.covariates.items():
+            if isinstance(col, Categorical):
+                cols[name] = pa.array(col.values(), type=pa.string())
+            else:
+                cols[name] = pa.array(col, type=pa.float64())
+        return pa.table(cols)
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.to_arrow().to_pandas()
+
+    def to_parquet(self, path: str | Path) -> Path:
+        path = Path(path)
+        pq.write_table(self.to_arrow(), path)
+        return path
+
+    @classmethod
+    def from_arrow(cls, table: pa.Table, source: str = "start-stop table") -> StartStop:
+        names = table.column_names
+        for req in ("start", "stop", "churned"):
+            if req not in names:
+                raise DataError(source, f"required column {req!r} is missing",
+                                "a start-stop table needs start, stop and churned "
+                                f"(found: {', '.join(names)})")
+
+        def num(name: str) -> np.ndarray:
+            col = table.column(name)
+            if col.null_count:
+                col = pc.cast(col, pa.float64()).fill_null(np.nan)
+            try:
+                return col.to_numpy().astype(np.float64)
+            except (pa.ArrowInvalid, ValueError) as exc:
+                raise DataError(source, f"column {name!r} must be numeric", "check its type") from exc
+
+        kwargs: dict[str, Any] = {
+            "start": num("start"), "stop": num("stop"), "churned": num("churned"),
+        }
+        if "weight" in names:
+            kwargs["weight"] = num("weight")
+        if "customer_id" in names:
+            kwargs["customer_id"] = Categorical.from_values(table.column("customer_id"))
+        if "spell" in names:
+            kwargs["spell"] = num("spell").astype(np.int64)
+        if "cause" in names:
+            kwargs["cause"] = Categorical.from_values(pc.fill_null(
+                pc.cast(table.column("cause"), pa.string()), ""))
+        if "start_date" in names:
+            kwargs["start_date"] = pc.cast(table.column("start_date"), pa.date32()).to_numpy()
+        covs: dict[str, Any] = {}
+        for name in names:
+            if name in CORE_COLUMNS:
+                continue
+            col = table.column(name)
+            t = col.type
+            if pa.types.is_dictionary(t):
+                t = t.value_type
+            if pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_boolean(t) \
+                    or pa.types.is_decimal(t):
+                covs[name] = num(name) if not pa.types.is_boolean(t) else \
+                    pc.cast(col, pa.float64()).fill_null(np.nan).to_numpy()
+            else:
+                covs[name] = Categorical.from_values(col)
+        return cls(**kwargs, covariates=covs, source=source)
+
+    @classmethod
+    def from_frame(cls, frame: pd.DataFrame, source: str = "start-stop table") -> StartStop:
+        return cls.from_arrow(pa.Table.from_pandas(frame, preserve_index=False), source=source)
+
+    @classmethod
+    def from_parquet(cls, path: str | Path) -> StartStop:
+        path = Path(path)
+        if not path.exists():
+            raise DataError(str(path), "file not found", "run `retain prepare` first or fix the path")
+        return cls.from_arrow(pq.read_table(path), source=str(path))
+
+    @classmethod
+    def from_duckdb(cls, relation: Any, source: str = "DuckDB relation") -> StartStop:
+        """From a DuckDB relation (``con.sql(...)`` or ``con.table(...)``)."""
+        return cls.from_arrow(relation.to_arrow_table() if hasattr(relation, "to_arrow_table")
+                              else relation.arrow(), source=source)
+
+
+def _coerce_covariate(name: str, values: Any) -> np.ndarray | Categorical:
+    if isinstance(values, Categorical):
+        return values
+    if isinstance(values, (pa.Array, pa.ChunkedArray)):
+        t = values.type
+        if pa.types.is_integer(t) or pa.types.is_floating(t):
+            return pc.cast(values, pa.float64()).fill_null(np.nan).to_numpy()
+        return Categorical.from_values(values)
+    arr = np.asarray(values)
+    if arr.dtype.kind in "biuf":
+        return arr.astype(np.float64)
+    return Categorical.from_values(pa.array(arr.tolist(), type=pa.string()) if arr.dtype.kind == "O"
+                                   else pa.array(arr.astype(str)))
