@@ -353,6 +353,21 @@ class StartStop:
         new.weight = _as_float("weight", weight)
         return new
 
+    def for_cause(self, cause: str) -> StartStop:
+        """A copy in which only churns of ``cause`` count; other causes are censored.
+
+        The table for a cause-specific hazard model (competing risks).
+        """
+        if cause not in CAUSES:
+            raise DataError(self.source, f"unknown cause {cause!r}",
+                            f"choose one of: {', '.join(CAUSES)}")
+        new = self.take(np.arange(self.n_rows))
+        code = self.cause.levels.index(cause) if cause in self.cause.levels else -2
+        hit = (self.cause.codes == code) & (self.churned == 1)
+        new.churned = hit.astype(np.int8)
+        new.cause = Categorical(np.where(hit, 0, -1).astype(np.int32), (cause,))
+        return new
+
     def expanded(self) -> StartStop:
         """Rows repeated by their (whole-number) weight, each with weight 1.
 

@@ -1,0 +1,59 @@
+"""Run the SQL steps in ``sql/`` by name, with bound parameters.
+
+Python never formats values into SQL text: a step file uses DuckDB's named
+parameters (``$as_of``) and the caller passes them as a dict. A step may name
+relations that an earlier step (or the caller) registered on the connection.
+"""
+
+from __future__ import annotations
+
+import re
+from functools import lru_cache
+from typing import Any
+
+import duckdb
+
+from retain.errors import RetainError
+from retain.paths import SQL_DIR
+
+_PARAM = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
+
+
+@lru_cache(maxsize=None)
+def load_step(name: str) -> str:
+    """The text of ``sql/<name>.sql`` (``name`` without the extension)."""
+    path = SQL_DIR / f"{name}.sql"
+    if not path.exists():
+        raise RetainError(str(path), f"SQL step {name!r} does not exist",
+                          "this is a bug in retain: the step list names a missing file")
+    return path.read_text(encoding="utf-8")
+
+
+def step_parameters(name: str) -> set[str]:
+    """Names of the ``$parameters`` a step uses (comments stripped first)."""
+    text = re.sub(r"--[^\n]*", "", load_step(name))
+    return set(_PARAM.findall(text))
+
+
+def run_step(con: duckdb.DuckDBPyConnection, name: str, params: dict[str, Any] | None = None,
+             *, create: str | None = None) -> duckdb.DuckDBPyRelation | None:
+    """Run step ``name`` with only the parameters it uses.
+
+    With ``create="t"`` the result is materialised as table ``t`` on the
+    connection (``create or replace table t as ...``) and None is returned;
+    otherwise the relation is returned for the caller to read.
+    """
+    params = dict(params or {})
+    used = step_parameters(name)
+    missing = used - params.keys()
+    if missing:
+        raise RetainError(f"sql/{name}.sql", f"parameters not given: {', '.join(sorted(missing))}",
+                          "this is a bug in retain: pass every parameter the step uses")
+    bound = {k: v for k, v in params.items() if k in used}
+    sql = load_step(name)
+    if create is not None:
+        if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", create):
+            raise RetainError("run_step", f"bad table name {create!r}", "use a plain identifier")
+        con.execute(f"create or replace table {create} as {sql}", bound)
+        return None
+    return con.sql(sql, params=bound) if bound else con.sql(sql)
