@@ -138,6 +138,7 @@ class StartStop:
         n = self.start.shape[0]
         churned_f = _as_float("churned", churned)
         self.weight = np.ones(n) if weight is None else _as_float("weight", weight)
+        self.has_customers = customer_id is not None
         if customer_id is None:
             self.customer = Categorical(np.arange(n, dtype=np.int32),
                                         tuple(str(i) for i in range(n)))
@@ -290,7 +291,12 @@ class StartStop:
 
     @property
     def cluster(self) -> np.ndarray:
-        """Integer customer codes (clusters for robust errors)."""
+        """Integer customer codes (clusters for robust errors).
+
+        When the table has no ``customer_id`` (e.g. a compressed table) every row
+        is its own cluster and :attr:`has_customers` is False: robust errors
+        clustered by customer are then not available.
+        """
         return self.customer.codes
 
     @property
@@ -313,6 +319,7 @@ class StartStop:
             index = np.flatnonzero(index)
         new = object.__new__(StartStop)
         new.source = self.source
+        new.has_customers = self.has_customers
         new.start = self.start[index]
         new.stop = self.stop[index]
         new.churned = self.churned[index]
