@@ -1,0 +1,748 @@
+"""Retention curves, cohort tables and group comparisons on start-stop data.
+
+The nonparametric layer: Kaplan–Meier retention, Nelson–Aalen cumulative
+hazard, lifetime quantiles, restricted mean tenure, log-rank tests, curves by
+segment, the cohort × month retention table and a time-grid helper.
+
+Conventions (every function here):
+
+- Time is tenure in days; one month is ``retain.units.DAYS_PER_MONTH`` days.
+- Intervals are (start, stop]: a row is at risk just after ``start`` through
+  ``stop``. Delayed entry (``start > 0`` on a spell's first row) is handled by
+  the risk sets: a spell counts only once it has entered.
+- Ties: churns at a time are counted before censorings at the same time (a
+  customer censored at ``t`` is at risk for the churns at ``t``).
+- Case weights are frequency weights: a row of weight 3 is three identical rows.
+- A row followed by another row of the same customer and spell is a change of
+  covariates, not a censoring: splitting a row changes nothing. A table without
+  customer ids (compressed) counts every non-churn row end as a censoring in
+  the ``censored`` column (the curve itself is unaffected).
+
+Entry points validate and return frozen results; the arithmetic lives in
+``retain.kernels.risksets`` and ``retain.kernels.km``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from retain.data.table import Categorical, StartStop
+from retain.errors import DataError, ModelError
+from retain.kernels import km as K
+from retain.kernels.risksets import (
+    at_risk_at,
+    continued_rows,
+    exposure_to,
+    first_of_spell,
+    risk_table,
+)
+from retain.results import Result
+from retain.units import DAYS_PER_MONTH
+
+INTERVALS = ("log-log", "log", "linear")
+GRID_MONTHS = (1, 3, 6, 12, 24)
+
+
+# --------------------------------------------------------------------------- helpers
+def _check_table(table: object, where: str) -> StartStop:
+    if not isinstance(table, StartStop):
+        raise DataError(where, f"expected a StartStop table, got {type(table).__name__}",
+                        "build one with StartStop.from_parquet / from_frame")
+    if table.n_rows == 0:
+        raise ModelError(where, "the table (or group) has no rows",
+                         "check the filter or the segment value")
+    return table
+
+
+def _check_conf(conf: float, ci: str, where: str) -> float:
+    if not (isinstance(conf, (int, float)) and 0.0 < float(conf) < 1.0):
+        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}",
+                         "use e.g. conf=0.95")
+    if ci not in INTERVALS:
+        raise ModelError(where, f"unknown interval type {ci!r}",
+                         f"choose one of: {', '.join(INTERVALS)}")
+    return float(stats.norm.isf((1.0 - float(conf)) / 2.0))
+
+
+def _exits(table: StartStop) -> np.ndarray | None:
+    """Rows whose stop ends observation (not a covariate change), or None if unknown."""
+    if not table.has_customers:
+        return None
+    return ~continued_rows(table.customer.codes, table.spell, table.start, table.stop)
+
+
+def _step_lookup(times: np.ndarray, values: np.ndarray, t: np.ndarray,
+                 before: float) -> np.ndarray:
+    """Right-continuous step function through (times, values), ``before`` left of times[0]."""
+    k = np.searchsorted(times, t, side="right")
+    padded = np.concatenate(([before], values))
+    return padded[k]
+
+
+def _fmt_days(d: float | None) -> str:
+    if d is None or not math.isfinite(d):
+        return "not reached"
+    return f"{d:.0f} days ({d / DAYS_PER_MONTH:.1f} months)"
+
+
+# --------------------------------------------------------------------------- results
+@dataclass(frozen=True, eq=False)
+class LifetimeQuantile(Result):
+    """A quantile of tenure: the time by which a fraction ``p`` of customers has churned.
+
+    ``days`` is None when the curve never falls to ``1 - p`` ("not reached");
+    ``upper`` is None when the interval's upper end lies beyond the data.
+    Interval by Brookmeyer & Crowley (1982): the event times at which the
+    pointwise test of ``S(t) = 1 - p`` (on the curve's interval scale) is not
+    rejected; the upper limit is the next event time after the last such time.
+    """
+
+    label: str
+    p: float
+    days: float | None
+    lower: float | None
+    upper: float | None
+    conf: float
+    ci: str
+
+    @property
+    def reached(self) -> bool:
+        return self.days is not None
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([{"label": self.label, "p": self.p, "days": self.days,
+                              "lower": self.lower, "upper": self.upper,
+                              "reached": self.reached}])
+
+    def summary(self) -> str:
+        what = "median tenure" if self.p == 0.5 else f"time to {self.p:.0%} churned"
+        return (f"{self.label}: {what} {_fmt_days(self.days)}; {self.conf:.0%} interval "
+                f"{_fmt_days(self.lower)} to {_fmt_days(self.upper)}")
+
+
+@dataclass(frozen=True, eq=False)
+class RestrictedMean(Result):
+    """Restricted mean tenure: expected days retained within the first ``horizon`` days.
+
+    The area under the Kaplan–Meier curve from 0 to ``horizon`` (Irwin 1949),
+    SE by Klein & Moeschberger (2003, eq. 4.5.2), normal interval.
+    """
+
+    label: str
+    horizon: float
+    mean: float
+    se: float
+    lower: float
+    upper: float
+    conf: float
+    warnings: tuple[str, ...] = ()
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([{"label": self.label, "horizon": self.horizon, "mean": self.mean,
+                              "se": self.se, "lower": self.lower, "upper": self.upper}])
+
+    def summary(self) -> str:
+        return (f"{self.label}: of the first {self.horizon:g} days a customer stays "
+                f"{self.mean:.1f} days on average ({self.conf:.0%} CI {self.lower:.1f} to "
+                f"{self.upper:.1f})")
+
+
+@dataclass(frozen=True, eq=False)
+class RetentionCurve(Result):
+    """Kaplan–Meier retention (survival) curve on start-stop data.
+
+    Arrays are indexed by the distinct times at which a customer churned or left
+    observation. ``survival[j]`` holds on ``[times[j], times[j+1])``; before the
+    first time it is 1; after ``follow_up`` (the last observed tenure) it is
+    not defined (NaN from :meth:`at`).
+
+    With delayed entry the curve is conditional on being retained up to the
+    earliest entry time (``first_entry``).
+    """
+
+    label: str
+    times: np.ndarray
+    at_risk: np.ndarray
+    events: np.ndarray
+    censored: np.ndarray
+    survival: np.ndarray
+    se: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    greenwood: np.ndarray
+    conf: float
+    ci: str
+    n_rows: int
+    n_customers: int
+    n_events: float
+    follow_up: float
+    first_entry: float
+    warnings: tuple[str, ...] = ()
+
+    # ---- evaluation
+    def at(self, days: Sequence[float] | np.ndarray | float) -> np.ndarray:
+        """Retention at the given tenures (days); NaN past ``follow_up`` or below 0."""
+        t = np.atleast_1d(np.asarray(days, dtype=np.float64))
+        out = _step_lookup(self.times, self.survival, t, 1.0)
+        out[(t > self.follow_up) | (t < 0)] = np.nan
+        return out
+
+    def interval_at(self, days: Sequence[float] | np.ndarray | float
+                    ) -> tuple[np.ndarray, np.ndarray]:
+        """Pointwise (lower, upper) limits at the given tenures; NaN where :meth:`at` is."""
+        t = np.atleast_1d(np.asarray(days, dtype=np.float64))
+        lo = _step_lookup(self.times, self.lower, t, 1.0)
+        hi = _step_lookup(self.times, self.upper, t, 1.0)
+        bad = (t > self.follow_up) | (t < 0)
+        lo[bad] = np.nan
+        hi[bad] = np.nan
+        return lo, hi
+
+    def at_risk_at(self, days: Sequence[float] | np.ndarray | float) -> np.ndarray:
+        """Weighted number at risk at the given tenures (from the curve's own counts).
+
+        Exact at the curve's times; between times it is the count at the next
+        time (no one enters or leaves in between except by delayed entry).
+        """
+        t = np.atleast_1d(np.asarray(days, dtype=np.float64))
+        k = np.searchsorted(self.times, t, side="left")
+        padded = np.concatenate((self.at_risk, [0.0]))
+        return padded[k]
+
+    def quantile(self, p: float) -> LifetimeQuantile:
+        """Time by which a fraction ``p`` has churned: first time with ``S(t) <= 1 - p``.
+
+        A tolerance of 1e-12 absorbs rounding in the product. "Not reached"
+        (``days=None``) when the curve stays above ``1 - p``.
+        """
+        if not (0.0 < p < 1.0):
+            raise ModelError(f"quantile of {self.label}", f"p must be in (0, 1), got {p!r}",
+                             "p = 0.5 is the median")
+        s = 1.0 - p
+        ev = self.events > 0
+        t, sv, lo, hi = self.times[ev], self.survival[ev], self.lower[ev], self.upper[ev]
+        tol = 1e-12
+        below = np.flatnonzero(sv <= s + tol)
+        days = float(t[below[0]]) if below.size else None
+        accept = np.flatnonzero((lo <= s + tol) & (hi >= s - tol))
+        if accept.size:
+            lower = float(t[accept[0]])
+            upper = float(t[accept[-1] + 1]) if accept[-1] + 1 < t.shape[0] else None
+        else:
+            lower = upper = None
+            if days is not None:  # interval collapsed onto the point (tiny SE)
+                lower = upper = days
+        return LifetimeQuantile(self.label, float(p), days, lower, upper, self.conf, self.ci)
+
+    def median(self) -> LifetimeQuantile:
+        """Median tenure with its Brookmeyer–Crowley interval."""
+        return self.quantile(0.5)
+
+    def restricted_mean(self, horizon: float) -> RestrictedMean:
+        """Restricted mean tenure up to ``horizon`` days.
+
+        Refuses (ModelError) a horizon past ``follow_up``: the curve is not
+        observed there, and any area beyond it would be invented.
+        """
+        where = f"restricted mean of {self.label}"
+        if not (isinstance(horizon, (int, float)) and math.isfinite(horizon) and horizon > 0):
+            raise ModelError(where, f"horizon must be a positive number of days, got {horizon!r}",
+                             "e.g. horizon=365")
+        if horizon > self.follow_up:
+            raise ModelError(where, f"horizon {horizon:g} days is past the last observed tenure "
+                             f"({self.follow_up:g} days)",
+                             f"choose a horizon <= {self.follow_up:g} days")
+        mean, se = K.restricted_mean(self.times, self.survival, self.at_risk, self.events,
+                                     float(horizon))
+        z = float(stats.norm.isf((1.0 - self.conf) / 2.0))
+        warn = ()
+        ev_t = self.times[self.events > 0]
+        if ev_t.size == 0 or horizon > ev_t[-1]:
+            warn = (f"no churn observed between the last churn and the horizon {horizon:g} days; "
+                    "the curve is held flat there",)
+        return RestrictedMean(self.label, float(horizon), mean, se, mean - z * se, mean + z * se,
+                              self.conf, warn)
+
+    # ---- presentation
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame({
+            "time": self.times, "at_risk": self.at_risk, "events": self.events,
+            "censored": self.censored, "survival": self.survival, "se": self.se,
+            "lower": self.lower, "upper": self.upper,
+        })
+
+    def summary(self) -> str:
+        yr = 12 * DAYS_PER_MONTH
+        parts = [f"Kaplan–Meier retention, {self.label}: {self.n_customers} customers, "
+                 f"{self.n_events:g} churns over {self.n_rows} rows"]
+        if self.follow_up >= yr:
+            s = float(self.at(yr)[0])
+            lo, hi = (float(x[0]) for x in self.interval_at(yr))
+            parts.append(f"retained at 12 months {s:.1%} ({self.conf:.0%} {self.ci} CI "
+                         f"{lo:.1%} to {hi:.1%})")
+        parts.append(f"median tenure {_fmt_days(self.median().days)}")
+        return "; ".join(parts)
+
+
+@dataclass(frozen=True, eq=False)
+class CumulativeHazard(Result):
+    """Nelson–Aalen cumulative hazard with Aalen's variance and log-scale interval."""
+
+    label: str
+    times: np.ndarray
+    at_risk: np.ndarray
+    events: np.ndarray
+    hazard: np.ndarray
+    variance: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    conf: float
+    follow_up: float
+    n_events: float
+
+    @property
+    def se(self) -> np.ndarray:
+        return np.sqrt(self.variance)
+
+    def at(self, days: Sequence[float] | np.ndarray | float) -> np.ndarray:
+        """Cumulative hazard at the given tenures; NaN past ``follow_up``."""
+        t = np.atleast_1d(np.asarray(days, dtype=np.float64))
+        out = _step_lookup(self.times, self.hazard, t, 0.0)
+        out[(t > self.follow_up) | (t < 0)] = np.nan
+        return out
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame({"time": self.times, "at_risk": self.at_risk, "events": self.events,
+                             "cumulative_hazard": self.hazard, "se": self.se,
+                             "lower": self.lower, "upper": self.upper})
+
+    def summary(self) -> str:
+        h = float(self.hazard[-1]) if self.hazard.size else 0.0
+        return (f"Nelson–Aalen cumulative hazard, {self.label}: {h:.3f} by day "
+                f"{self.follow_up:g} ({self.n_events:g} churns)")
+
+
+@dataclass(frozen=True, eq=False)
+class SegmentCurves(Result):
+    """One Kaplan–Meier curve per value of a column (a mapping level -> curve).
+
+    ``basis`` says how rows were assigned: ``"spell start"`` (each spell is
+    placed by the column's value on its first row, so a time-varying attribute
+    such as plan means "plan at the start of the spell") or ``"row value"``
+    (tables without customer ids).
+    """
+
+    by: str
+    basis: str
+    curves: dict[str, RetentionCurve]
+    n_missing: float
+    warnings: tuple[str, ...] = ()
+
+    def __getitem__(self, level: str) -> RetentionCurve:
+        if level not in self.curves:
+            raise ModelError(f"curves by {self.by}", f"no segment {level!r}",
+                             f"choose one of: {', '.join(self.curves)}")
+        return self.curves[level]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.curves)
+
+    def __len__(self) -> int:
+        return len(self.curves)
+
+    def keys(self) -> list[str]:
+        return list(self.curves)
+
+    def items(self) -> list[tuple[str, RetentionCurve]]:
+        return list(self.curves.items())
+
+    def to_frame(self) -> pd.DataFrame:
+        frames = [c.to_frame().assign(segment=k) for k, c in self.curves.items()]
+        out = pd.concat(frames, ignore_index=True)
+        return out[["segment"] + [c for c in out.columns if c != "segment"]]
+
+    def summary(self) -> str:
+        parts = [f"{k}: median {_fmt_days(c.median().days)}" for k, c in self.curves.items()]
+        return f"Retention by {self.by} ({self.basis}): " + "; ".join(parts)
+
+
+# --------------------------------------------------------------------------- entry points
+def kaplan_meier(table: StartStop, *, conf: float = 0.95, ci: str = "log-log",
+                 label: str = "all customers") -> RetentionCurve:
+    """Kaplan–Meier retention curve with Greenwood standard errors.
+
+    .. math::
+
+        \\hat S(t) = \\prod_{t_j \\le t} \\left(1 - \\frac{d_j}{n_j}\\right), \\qquad
+        \\widehat{\\mathrm{Var}}\\,\\hat S(t) = \\hat S(t)^2
+            \\sum_{t_j \\le t} \\frac{d_j}{n_j (n_j - d_j)}
+
+    (Kaplan & Meier 1958; Greenwood 1926) with ``n_j`` the weighted number at
+    risk on (start, stop] at ``t_j`` (delayed entry: Tsai, Jewell & Wang 1987)
+    and ``d_j`` the weighted churns at ``t_j``; churns before censorings at
+    tied times.
+
+    Parameters
+    ----------
+    table : StartStop
+    conf : float
+        Level of the pointwise intervals (default 0.95).
+    ci : {"log-log", "log", "linear"}
+        Interval scale; log-log (default) keeps limits inside (0, 1).
+    label : str
+        Name carried by the result.
+    """
+    where = f"Kaplan–Meier ({label})"
+    table = _check_table(table, where)
+    z = _check_conf(conf, ci, where)
+    return _km(table, z, float(conf), ci, label, _exits(table))
+
+
+def _km(table: StartStop, z: float, conf: float, ci: str, label: str,
+        exits: np.ndarray | None) -> RetentionCurve:
+    rt = risk_table(table.start, table.stop, table.churned, table.weight, exits=exits)
+    surv, gw = K.product_limit(rt.at_risk, rt.events)
+    lower, upper = K.survival_interval(surv, gw, z, ci)
+    warnings: list[str] = []
+    n_events = float(rt.events.sum())
+    if n_events == 0:
+        warnings.append(f"{label}: no churn observed; the curve stays at 1")
+    return RetentionCurve(
+        label=label, times=rt.times, at_risk=rt.at_risk, events=rt.events,
+        censored=rt.censored, survival=surv, se=surv * np.sqrt(gw), lower=lower, upper=upper,
+        greenwood=gw, conf=conf, ci=ci, n_rows=table.n_rows, n_customers=table.n_customers,
+        n_events=n_events, follow_up=float(table.stop.max()),
+        first_entry=float(table.start.min()), warnings=tuple(warnings),
+    )
+
+
+def nelson_aalen(table: StartStop, *, conf: float = 0.95,
+                 label: str = "all customers") -> CumulativeHazard:
+    """Nelson–Aalen cumulative hazard of churn with Aalen's variance.
+
+    :math:`\\hat H(t) = \\sum_{t_j \\le t} d_j / n_j`, variance
+    :math:`\\sum d_j / n_j^2` (Nelson 1972; Aalen 1978). Interval on the log
+    scale: :math:`\\hat H \\exp(\\pm z\\, se / \\hat H)`. Same risk sets as
+    :func:`kaplan_meier`.
+    """
+    where = f"Nelson–Aalen ({label})"
+    table = _check_table(table, where)
+    z = _check_conf(conf, "log", where)
+    rt = risk_table(table.start, table.stop, table.churned, table.weight, exits=_exits(table))
+    h, var = K.cumulative_hazard(rt.at_risk, rt.events)
+    se = np.sqrt(var)
+    ratio = np.divide(z * se, h, out=np.zeros_like(h), where=h > 0)
+    return CumulativeHazard(label, rt.times, rt.at_risk, rt.events, h, var, h * np.exp(-ratio),
+                            h * np.exp(ratio), float(conf), float(table.stop.max()),
+                            float(rt.events.sum()))
+
+
+def spell_start_codes(table: StartStop, by: str) -> tuple[np.ndarray, tuple[str, ...], str]:
+    """Group codes for ``by``, taken from the first row of each spell.
+
+    Returns (codes, levels, basis). A numeric column is grouped by its distinct
+    values. Without customer ids each row keeps its own value (basis
+    ``"row value"``). Code -1 marks a missing value.
+    """
+    col = table.column(by)
+    if isinstance(col, Categorical):
+        codes, levels = col.codes, col.levels
+    else:
+        finite = np.isfinite(col)
+        uniq = np.unique(col[finite])
+        codes = np.full(col.shape[0], -1, dtype=np.int32)
+        codes[finite] = np.searchsorted(uniq, col[finite]).astype(np.int32)
+        levels = tuple(f"{v:g}" for v in uniq)
+    if not table.has_customers:
+        return codes, levels, "row value"
+    head = first_of_spell(table.customer.codes, table.spell, table.start)
+    return codes[head], levels, "spell start"
+
+
+def curves_by(table: StartStop, by: str, *, conf: float = 0.95,
+              ci: str = "log-log") -> SegmentCurves:
+    """Kaplan–Meier curve for each value of column ``by``.
+
+    Any categorical (or numeric, by distinct value) column of the table. Each
+    spell is assigned by the column's value on the spell's first row, so for a
+    time-varying attribute (e.g. plan) a spell stays in the group it started
+    in: the curve answers "customers who started on plan X". Rows with a
+    missing value are left out (counted in ``n_missing``). Segments with no
+    rows are omitted; a segment with no churn gets a flat curve and a warning.
+    """
+    where = f"curves by {by!r}"
+    table = _check_table(table, where)
+    z = _check_conf(conf, ci, where)
+    codes, levels, basis = spell_start_codes(table, by)
+    exits = _exits(table)
+    curves: dict[str, RetentionCurve] = {}
+    warnings: list[str] = []
+    for code, level in enumerate(levels):
+        mask = codes == code
+        if not mask.any():
+            continue
+        sub = table.take(mask)
+        c = _km(sub, z, float(conf), ci, f"{by} = {level}",
+                None if exits is None else exits[mask])
+        curves[level] = c
+        warnings.extend(c.warnings)
+    missing = codes < 0
+    n_missing = float(table.weight[missing].sum())
+    if n_missing:
+        warnings.append(f"{int(missing.sum())} rows have no value of {by!r} and are left out")
+    if not curves:
+        raise ModelError(where, f"column {by!r} has no values", "pick a column with values")
+    return SegmentCurves(by, basis, curves, n_missing, tuple(warnings))
+
+
+# --------------------------------------------------------------------------- cohort table
+@dataclass(frozen=True, eq=False)
+class CohortTable(Result):
+    """Cohort × month retention: Kaplan–Meier per signup cohort, read at whole months.
+
+    Matrices have one row per cohort (``cohorts``, 'YYYY-MM') and one column per
+    month since start (``months`` = 1, 2, ...; month k = tenure
+    ``k * DAYS_PER_MONTH`` days). A cell that cannot be observed yet (the
+    cohort's oldest spell has not reached that tenure by the last day in the
+    data, or nobody of the cohort was under observation then) is NaN, never 0.
+
+    ``churn_rate[c, k-1]`` is churns in month k (tenure in
+    ((k-1)·DAYS_PER_MONTH, k·DAYS_PER_MONTH]) divided by the exposure in that
+    month in customer-months (``exposure`` holds the exposure).
+    """
+
+    cohorts: tuple[str, ...]
+    months: tuple[int, ...]
+    started: np.ndarray
+    retention: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    at_risk: np.ndarray
+    churns: np.ndarray
+    exposure: np.ndarray
+    churn_rate: np.ndarray
+    conf: float
+    ci: str
+    as_of_basis: str
+    warnings: tuple[str, ...] = ()
+
+    def to_frame(self) -> pd.DataFrame:
+        """Long form: one row per (cohort, month)."""
+        nc, nm = self.retention.shape
+        return pd.DataFrame({
+            "cohort": np.repeat(np.array(self.cohorts, dtype=object), nm),
+            "month": np.tile(np.array(self.months), nc),
+            "days": np.tile(np.array(self.months) * DAYS_PER_MONTH, nc),
+            "started": np.repeat(self.started, nm),
+            "retention": self.retention.ravel(), "lower": self.lower.ravel(),
+            "upper": self.upper.ravel(), "at_risk": self.at_risk.ravel(),
+            "churns": self.churns.ravel(), "exposure_months": self.exposure.ravel(),
+            "churn_rate": self.churn_rate.ravel(),
+        })
+
+    def retention_frame(self) -> pd.DataFrame:
+        """Wide form: cohorts down, months across, retention in the cells (NaN = not yet)."""
+        return pd.DataFrame(self.retention, index=pd.Index(self.cohorts, name="cohort"),
+                            columns=pd.Index(self.months, name="month"))
+
+    def churn_rate_frame(self) -> pd.DataFrame:
+        """Wide form of the monthly churn rate."""
+        return pd.DataFrame(self.churn_rate, index=pd.Index(self.cohorts, name="cohort"),
+                            columns=pd.Index(self.months, name="month"))
+
+    def summary(self) -> str:
+        obs = np.isfinite(self.retention)
+        return (f"Cohort retention: {len(self.cohorts)} cohorts x {len(self.months)} months, "
+                f"{int(obs.sum())} observable cells")
+
+
+def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
+                     ci: str = "log-log", cohort: str = "cohort") -> CohortTable:
+    """Cohort × months-since-start retention table built from Kaplan–Meier curves.
+
+    Each cell is the Kaplan–Meier retention of that signup cohort at tenure
+    ``k * DAYS_PER_MONTH`` days, with its pointwise interval and the number
+    still at risk then; beside it, the monthly churn rate (churns / exposure in
+    customer-months) of the cohort in month k.
+
+    Why not the spreadsheet triangle ("still active / started"): that ratio
+    counts a customer who signed up 40 days ago and is still active in the
+    denominator of month 3 as if month 3 had been observed, and a customer who
+    left observation (window end, delayed entry) as retained or lost depending
+    on how the sheet was filled. It is biased wherever follow-up differs within
+    a cohort. Kaplan–Meier uses each customer only while observed (censoring)
+    and only after entry (delayed entry), so a cell is an estimate of the same
+    quantity in every cohort, and cells that no one could have reached are left
+    empty instead of showing a misleading 0 or 100%.
+
+    Parameters
+    ----------
+    table : StartStop
+        Needs a ``cohort`` column ('YYYY-MM' of the spell's start day) or
+        ``start_date`` (the cohort is then derived from it).
+    months : int
+        Number of month columns (default 24).
+    cohort : str
+        Name of the cohort column.
+
+    Notes
+    -----
+    The last observed day is taken as ``max(start_date + stop)`` when
+    ``start_date`` is present; a cohort's cell at month k is observable when
+    the cohort's earliest start plus k months is on or before that day.
+    Without ``start_date`` the cohort's largest observed tenure is used.
+    """
+    where = "cohort retention"
+    table = _check_table(table, where)
+    z = _check_conf(conf, ci, where)
+    if not (isinstance(months, (int, np.integer)) and months >= 1):
+        raise ModelError(where, f"months must be a positive whole number, got {months!r}",
+                         "e.g. months=24")
+    if table.has(cohort):
+        col = table.column(cohort)
+        if not isinstance(col, Categorical):
+            raise DataError(where, f"column {cohort!r} must be text 'YYYY-MM'",
+                            "store the cohort as text")
+        codes, levels = col.codes, col.levels
+    elif table.start_date is not None:
+        cat = Categorical.from_values(
+            pd.Series(table.start_date.astype("datetime64[M]").astype(str)).to_numpy())
+        codes, levels = cat.codes, cat.levels
+    else:
+        raise DataError(where, f"the table has neither a {cohort!r} column nor start_date",
+                        "prepare the table with retain.data.prepare, which adds both")
+    if table.has_customers:
+        codes = codes[first_of_spell(table.customer.codes, table.spell, table.start)]
+    exits = _exits(table)
+    grid = np.arange(1, months + 1, dtype=np.float64) * DAYS_PER_MONTH
+    edges = np.concatenate(([0.0], grid))
+    if table.start_date is not None:
+        start_day = table.start_date.astype("datetime64[D]").astype(np.int64)
+        last_day = float(np.max(start_day + table.stop))
+        basis = "last day in the data (start_date + stop)"
+    else:
+        start_day = None
+        last_day = math.nan
+        basis = "largest observed tenure of each cohort"
+    shape = (len(levels), months)
+    out = {k: np.full(shape, np.nan) for k in
+           ("retention", "lower", "upper", "at_risk", "churns", "exposure", "rate")}
+    started = np.zeros(len(levels))
+    keep_rows: list[int] = []
+    warnings: list[str] = []
+    for code in range(len(levels)):
+        mask = codes == code
+        if not mask.any():
+            continue
+        keep_rows.append(code)
+        sub = table.take(mask)
+        ex = None if exits is None else exits[mask]
+        started[code] = float(sub.weight[ex].sum()) if ex is not None else float(sub.weight.sum())
+        if start_day is not None:
+            reach = last_day - float(start_day[mask].min())
+        else:
+            reach = float(sub.stop.max())
+        c = _km(sub, z, float(conf), ci, levels[code], ex)
+        s = _step_lookup(c.times, c.survival, grid, 1.0)
+        lo = _step_lookup(c.times, c.lower, grid, 1.0)
+        hi = _step_lookup(c.times, c.upper, grid, 1.0)
+        n_at = at_risk_at(sub.start, sub.stop, sub.weight, grid)
+        seen = (grid <= reach + 1e-9) & ((n_at > 0) | (s <= 0) | (grid <= c.follow_up))
+        out["retention"][code] = np.where(seen, s, np.nan)
+        out["lower"][code] = np.where(seen, lo, np.nan)
+        out["upper"][code] = np.where(seen, hi, np.nan)
+        out["at_risk"][code] = np.where(seen, n_at, np.nan)
+        # churns and exposure per month of tenure
+        ev = sub.churned == 1
+        month_of = np.searchsorted(edges, sub.stop[ev], side="left") - 1  # (e_k, e_k+1]
+        inside = month_of < months
+        churns = np.bincount(month_of[inside], weights=sub.weight[ev][inside], minlength=months)
+        expo = np.diff(exposure_to(sub.start, sub.stop, sub.weight, edges)) / DAYS_PER_MONTH
+        open_ = (edges[:-1] < reach) & (expo > 0)
+        out["churns"][code] = np.where(open_, churns, np.nan)
+        out["exposure"][code] = np.where(open_, expo, np.nan)
+        out["rate"][code] = np.where(open_, churns / np.where(expo > 0, expo, 1.0), np.nan)
+    rows = np.array(keep_rows, dtype=np.int64)
+    missing = codes < 0
+    if missing.any():
+        warnings.append(f"{int(missing.sum())} rows have no cohort and are left out")
+    return CohortTable(
+        cohorts=tuple(levels[i] for i in rows), months=tuple(range(1, months + 1)),
+        started=started[rows], retention=out["retention"][rows], lower=out["lower"][rows],
+        upper=out["upper"][rows], at_risk=out["at_risk"][rows], churns=out["churns"][rows],
+        exposure=out["exposure"][rows], churn_rate=out["rate"][rows], conf=float(conf), ci=ci,
+        as_of_basis=basis, warnings=tuple(warnings),
+    )
+
+
+# --------------------------------------------------------------------------- time grid
+@dataclass(frozen=True, eq=False)
+class RetentionGrid(Result):
+    """Retention read off a curve at chosen tenures, with intervals and numbers at risk.
+
+    Points past the curve's last observed tenure are NaN and listed in
+    ``warnings``.
+    """
+
+    label: str
+    months: np.ndarray
+    days: np.ndarray
+    retention: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    at_risk: np.ndarray
+    conf: float
+    ci: str
+    warnings: tuple[str, ...] = ()
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame({"months": self.months, "days": self.days,
+                             "retention": self.retention, "lower": self.lower,
+                             "upper": self.upper, "at_risk": self.at_risk})
+
+    def summary(self) -> str:
+        parts = []
+        for m, r, lo, hi in zip(self.months, self.retention, self.lower, self.upper, strict=True):
+            if math.isfinite(r):
+                parts.append(f"{m:g} mo {r:.1%} ({lo:.1%}-{hi:.1%})")
+            else:
+                parts.append(f"{m:g} mo not yet observed")
+        return f"{self.label}: " + ", ".join(parts)
+
+
+def retention_grid(curve: RetentionCurve, months: Sequence[float] | None = GRID_MONTHS, *,
+                   days: Sequence[float] | None = None) -> RetentionGrid:
+    """Retention at fixed tenures: months (× DAYS_PER_MONTH) or, if given, days.
+
+    Parameters
+    ----------
+    curve : RetentionCurve
+    months : sequence of float
+        Default 1, 3, 6, 12, 24 months. Ignored when ``days`` is given.
+    days : sequence of float, optional
+        Tenures in days instead of months.
+    """
+    if not isinstance(curve, RetentionCurve):
+        raise ModelError("retention grid", f"expected a RetentionCurve, got {type(curve).__name__}",
+                         "pass the result of kaplan_meier")
+    if days is not None:
+        d = np.asarray(days, dtype=np.float64)
+        m = d / DAYS_PER_MONTH
+    else:
+        m = np.asarray(months if months is not None else GRID_MONTHS, dtype=np.float64)
+        d = m * DAYS_PER_MONTH
+    if d.ndim != 1 or d.size == 0 or not np.all(np.isfinite(d)) or np.any(d < 0):
+        raise ModelError("retention grid", "tenures must be a non-empty list of numbers >= 0",
+                         "e.g. months=(1, 3, 6, 12)")
+    s = curve.at(d)
+    lo, hi = curve.interval_at(d)
+    n = np.where(np.isfinite(s), curve.at_risk_at(d), np.nan)
+    warn = tuple(f"{curve.label}: {x:g} days is past the last observed tenure "
+                 f"({curve.follow_up:g} days)" for x in d[~np.isfinite(s)])
+    return RetentionGrid(curve.label, m, d, s, lo, hi, n, curve.conf, curve.ci, warn)
