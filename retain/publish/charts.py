@@ -1,0 +1,250 @@
+"""Results tables -> Vega-Lite specs (through Altair). Never fits anything.
+
+Every function takes a tidy ``pandas.DataFrame`` that a page already built
+from a model result and returns a plain Vega-Lite dict with an explicit
+``name``; data are inlined as rounded values so the spec (and so the page) is
+the same bytes on every build. No selections or parameters are used, so
+Altair never invents counter-based names.
+
+Colours: the Okabe–Ito colour-blind-safe set (Okabe & Ito, 2008), with the
+low-contrast yellow moved to the end.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import altair as alt
+import numpy as np
+import pandas as pd
+
+PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#000000",
+           "#F0E442")
+INK = "#1e2a31"
+SOFT = "#4a5a63"
+GRID = "#e6e3da"
+HEIGHT = 300
+SIGNIFICANT = 6
+
+
+def _round(value: Any) -> Any:
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        if not math.isfinite(v):
+            return None
+        if v == 0:
+            return 0.0
+        digits = SIGNIFICANT - 1 - int(math.floor(math.log10(abs(v))))
+        return round(v, max(digits, 0)) if digits > 0 else float(round(v))
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if hasattr(value, "isoformat"):
+        return value.isoformat()[:10]
+    return str(value)
+
+
+def values(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    """Rows of ``frame`` as JSON-ready dicts, floats rounded to 6 significant digits."""
+    cols = [str(c) for c in frame.columns]
+    return [dict(zip(cols, (_round(v) for v in row), strict=True))
+            for row in frame.itertuples(index=False, name=None)]
+
+
+def _data(frame: pd.DataFrame) -> alt.InlineData:
+    return alt.InlineData(values=values(frame))
+
+
+def _config() -> dict[str, Any]:
+    font = "Source Sans 3, Segoe UI, Helvetica Neue, Arial, sans-serif"
+    return {
+        "font": font,
+        "background": "#ffffff",
+        "view": {"stroke": None, "continuousHeight": HEIGHT},
+        "axis": {"labelColor": SOFT, "titleColor": INK, "gridColor": GRID, "domainColor": SOFT,
+                 "tickColor": SOFT, "labelFontSize": 12, "titleFontSize": 12.5,
+                 "titleFontWeight": 600},
+        "legend": {"labelColor": INK, "titleColor": INK, "labelFontSize": 12, "titleFontSize": 12.5,
+                   "orient": "bottom", "columns": 4, "symbolStrokeWidth": 2.5, "labelLimit": 260},
+        "range": {"category": list(PALETTE)},
+        "title": {"color": INK, "fontSize": 14, "anchor": "start"},
+        "line": {"strokeWidth": 2.2},
+    }
+
+
+def finish(chart: alt.TopLevelMixin, name: str, *, width: Any = "container") -> dict[str, Any]:
+    """The chart as a Vega-Lite dict with a fixed name, our look, and no counters."""
+    chart = chart.properties(name=name)
+    if width is not None:
+        chart = chart.properties(width=width)
+    spec = chart.to_dict()
+    spec["config"] = _config()
+    spec["autosize"] = {"type": "fit-x", "contains": "padding"} if width == "container" \
+        else {"type": "pad"}
+    return spec
+
+
+def _series_scale(levels: list[str]) -> alt.Scale:
+    return alt.Scale(domain=levels, range=[PALETTE[i % len(PALETTE)] for i in range(len(levels))])
+
+
+def survival_chart(frame: pd.DataFrame, name: str, *, x: str = "month", y: str = "retention",
+                   lower: str | None = "lower", upper: str | None = "upper",
+                   series: str | None = None, x_title: str = "Months since start",
+                   y_title: str = "Still subscribed", y_zero: bool = True) -> dict[str, Any]:
+    """Step curves (right-continuous, as Kaplan–Meier is) with pointwise interval bands."""
+    base = alt.Chart(_data(frame))
+    enc_x = alt.X(f"{x}:Q", title=x_title)
+    scale_y = alt.Scale(domain=[0, 1]) if y_zero else alt.Scale(zero=False)
+    enc_y = alt.Y(f"{y}:Q", title=y_title, scale=scale_y, axis=alt.Axis(format="%"))
+    color: Any = alt.Undefined
+    if series:
+        levels = list(dict.fromkeys(frame[series].astype(str)))
+        color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series)
+    tip = [alt.Tooltip(f"{x}:Q", format=".1f")]
+    if series:
+        tip.insert(0, alt.Tooltip(f"{series}:N"))
+    tip.append(alt.Tooltip(f"{y}:Q", format=".1%"))
+    layers = []
+    if lower and upper:
+        layers.append(base.mark_area(interpolate="step-after", opacity=0.18).encode(
+            x=enc_x, y=alt.Y(f"{lower}:Q", scale=scale_y), y2=f"{upper}:Q", color=color))
+    layers.append(base.mark_line(interpolate="step-after").encode(
+        x=enc_x, y=enc_y, color=color, tooltip=tip))
+    return finish(alt.layer(*layers).properties(height=HEIGHT), name)
+
+
+def lines_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str,
+                x_title: str, y_title: str, dashed: dict[str, bool] | None = None,
+                y_format: str = "%", step: bool = False, lower: str | None = None,
+                upper: str | None = None, points: str | None = None,
+                y_domain: list[float] | None = None) -> dict[str, Any]:
+    """Several lines on shared axes; ``dashed`` marks model curves against data.
+
+    ``points`` names a series drawn as dots instead of a line (e.g. crude rates
+    under a graduated line).
+    """
+    levels = list(dict.fromkeys(frame[series].astype(str)))
+    color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series)
+    scale_y = alt.Scale(domain=y_domain) if y_domain else alt.Scale(zero=False)
+    enc_x = alt.X(f"{x}:Q", title=x_title)
+    enc_y = alt.Y(f"{y}:Q", title=y_title, axis=alt.Axis(format=y_format), scale=scale_y)
+    tip = [alt.Tooltip(f"{series}:N"), alt.Tooltip(f"{x}:Q", format=".1f"),
+           alt.Tooltip(f"{y}:Q", format=".3~g" if y_format != "%" else ".2%")]
+    base = alt.Chart(_data(frame))
+    layers = []
+    if lower and upper:
+        layers.append(base.mark_area(opacity=0.16, interpolate="step-after" if step else "linear")
+                      .encode(x=enc_x, y=alt.Y(f"{lower}:Q", scale=scale_y), y2=f"{upper}:Q",
+                              color=color))
+    line_data = base
+    if points:
+        line_data = base.transform_filter(alt.datum[series] != points)
+    stroke: Any = alt.Undefined
+    if dashed:
+        dash_levels = [lv for lv in levels if lv != points]
+        stroke = alt.StrokeDash(f"{series}:N", legend=None, scale=alt.Scale(
+            domain=dash_levels, range=[[6, 3] if dashed.get(lv) else [1, 0] for lv in dash_levels]))
+    layers.append(line_data.mark_line(interpolate="step-after" if step else "linear").encode(
+        x=enc_x, y=enc_y, color=color, strokeDash=stroke, tooltip=tip))
+    if points:
+        layers.append(base.transform_filter(alt.datum[series] == points).mark_point(
+            filled=True, size=34).encode(x=enc_x, y=enc_y, color=color, tooltip=tip))
+    return finish(alt.layer(*layers).properties(height=HEIGHT), name)
+
+
+def forest_chart(frame: pd.DataFrame, name: str, *, label: str = "term",
+                 estimate: str = "hazard_ratio", lower: str = "lower", upper: str = "upper",
+                 x_title: str = "Hazard ratio (log scale; 1 = no difference)",
+                 reference: float = 1.0, group: str | None = None) -> dict[str, Any]:
+    """Point estimates with interval whiskers on a log axis, one row per term."""
+    order = list(dict.fromkeys(frame[label].astype(str)))
+    lo = float(np.nanmin(frame[lower].to_numpy(dtype=float)))
+    hi = float(np.nanmax(frame[upper].to_numpy(dtype=float)))
+    lo, hi = min(lo, reference) * 0.9, max(hi, reference) * 1.1
+    xs = alt.Scale(type="log", domain=[lo, hi], nice=False)
+    y = alt.Y(f"{label}:N", sort=order, title=None, axis=alt.Axis(labelLimit=340))
+    color: Any = alt.value(PALETTE[0])
+    if group:
+        levels = list(dict.fromkeys(frame[group].astype(str)))
+        color = alt.Color(f"{group}:N", scale=_series_scale(levels), title=group)
+    base = alt.Chart(_data(frame))
+    tip = [alt.Tooltip(f"{label}:N"), alt.Tooltip(f"{estimate}:Q", format=".3f"),
+           alt.Tooltip(f"{lower}:Q", format=".3f"), alt.Tooltip(f"{upper}:Q", format=".3f")]
+    rule = base.mark_rule(strokeWidth=2).encode(
+        x=alt.X(f"{lower}:Q", scale=xs, title=x_title), x2=f"{upper}:Q", y=y, color=color)
+    dot = base.mark_point(filled=True, size=70).encode(
+        x=alt.X(f"{estimate}:Q", scale=xs), y=y, color=color, tooltip=tip)
+    ref = alt.Chart(alt.InlineData(values=[{"ref": reference}])).mark_rule(
+        color=SOFT, strokeDash=[4, 3]).encode(x=alt.X("ref:Q", scale=xs))
+    height = max(80, 26 * len(order))
+    return finish(alt.layer(ref, rule, dot).properties(height=height), name)
+
+
+def interval_bars(frame: pd.DataFrame, name: str, *, label: str, estimate: str,
+                  lower: str, upper: str, x_title: str, reference: float | None = None,
+                  x_format: str = ",.0f", log: bool = False) -> dict[str, Any]:
+    """Horizontal bars with interval whiskers (value by segment, A/E by segment)."""
+    order = list(dict.fromkeys(frame[label].astype(str)))
+    xs = alt.Scale(type="log") if log else alt.Scale(zero=True)
+    y = alt.Y(f"{label}:N", sort=order, title=None, axis=alt.Axis(labelLimit=340))
+    base = alt.Chart(_data(frame))
+    tip = [alt.Tooltip(f"{label}:N"), alt.Tooltip(f"{estimate}:Q", format=x_format),
+           alt.Tooltip(f"{lower}:Q", format=x_format), alt.Tooltip(f"{upper}:Q", format=x_format)]
+    layers = []
+    if log:
+        layers.append(base.mark_point(filled=True, size=70, color=PALETTE[0]).encode(
+            x=alt.X(f"{estimate}:Q", scale=xs, title=x_title, axis=alt.Axis(format=x_format)),
+            y=y, tooltip=tip))
+    else:
+        layers.append(base.mark_bar(color=PALETTE[4], height={"band": 0.6}).encode(
+            x=alt.X(f"{estimate}:Q", scale=xs, title=x_title, axis=alt.Axis(format=x_format)),
+            y=y, tooltip=tip))
+    layers.append(base.mark_rule(color=INK, strokeWidth=1.8).encode(
+        x=alt.X(f"{lower}:Q", scale=xs), x2=f"{upper}:Q", y=y))
+    if reference is not None:
+        layers.append(alt.Chart(alt.InlineData(values=[{"ref": reference}])).mark_rule(
+            color=PALETTE[5], strokeDash=[4, 3], strokeWidth=1.5).encode(
+            x=alt.X("ref:Q", scale=xs)))
+    height = max(80, 28 * len(order))
+    return finish(alt.layer(*layers).properties(height=height), name)
+
+
+def heat_chart(frame: pd.DataFrame, name: str, *, row: str, column: str, value: str,
+               row_title: str, column_title: str, value_title: str) -> dict[str, Any]:
+    """A cohort x month grid coloured by retention; missing cells stay blank."""
+    rows = list(dict.fromkeys(frame[row].astype(str)))
+    shown = frame[np.isfinite(frame[value].to_numpy(dtype=float))]
+    base = alt.Chart(_data(shown))
+    rect = base.mark_rect().encode(
+        x=alt.X(f"{column}:O", title=column_title, axis=alt.Axis(labelAngle=0)),
+        y=alt.Y(f"{row}:O", sort=rows, title=row_title),
+        color=alt.Color(f"{value}:Q", title=value_title,
+                        scale=alt.Scale(scheme="viridis", domain=[0, 1]),
+                        legend=alt.Legend(format="%", orient="right")),
+        tooltip=[alt.Tooltip(f"{row}:O"), alt.Tooltip(f"{column}:O"),
+                 alt.Tooltip(f"{value}:Q", format=".1%")])
+    height = max(120, 16 * len(rows))
+    return finish(rect.properties(height=height), name)
+
+
+def bars_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str | None,
+               x_title: str, y_title: str, y_format: str = ",.0f",
+               stack: bool = True) -> dict[str, Any]:
+    """Vertical bars by a quantitative or ordinal x (e.g. rows by reason)."""
+    base = alt.Chart(_data(frame))
+    color: Any = alt.value(PALETTE[0])
+    if series:
+        levels = list(dict.fromkeys(frame[series].astype(str)))
+        color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series)
+    order = list(dict.fromkeys(frame[x].astype(str)))
+    chart = base.mark_bar().encode(
+        y=alt.Y(f"{x}:N", sort=order, title=x_title, axis=alt.Axis(labelLimit=340)),
+        x=alt.X(f"{y}:Q", title=y_title, axis=alt.Axis(format=y_format),
+                stack=True if stack else None),
+        color=color, tooltip=[alt.Tooltip(f"{x}:N"), alt.Tooltip(f"{y}:Q", format=y_format)])
+    return finish(chart.properties(height=max(80, 26 * len(order))), name)

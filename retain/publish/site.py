@@ -1,0 +1,251 @@
+"""Write the static site: Jinja2 pages, one local Vega asset, CSVs and the run's JSON.
+
+The site opens from disk with no network. The Vega, Vega-Lite and vega-embed
+JavaScript comes from the installed vl-convert-python and is written once to
+``assets/vega-bundle.js``; every page loads it from there.
+
+Three promises of the build:
+
+* **Escaped.** Every string from the data goes through Jinja2's autoescape;
+  chart specs are embedded as JSON in which ``<``, ``>`` and ``&`` are written
+  as ``\\u003c``, ``\\u003e`` and ``\\u0026``, so no value can close the
+  ``<script>`` element that carries it.
+* **Atomic.** Everything is written to a temporary folder beside the target,
+  which then replaces the target by two renames. A build that fails leaves the
+  previous site as it was and raises :class:`~retain.errors.BuildError`.
+* **Deterministic.** The same results give byte-identical files: no clock
+  times (only the as-of date), stable ordering, explicit chart names.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import shutil
+import tempfile
+from collections.abc import Callable
+from functools import lru_cache
+from pathlib import Path
+from typing import Any
+
+import jinja2
+import numpy as np
+import pandas as pd
+from markupsafe import Markup
+
+from retain.errors import BuildError, RetainError
+from retain.paths import TEMPLATES_DIR
+from retain.publish.content import Figure, Page, SiteContent
+
+MARKER = ".retain-site"
+BUNDLE_NAME = "vega-bundle.js"
+STATIC_FILES = ("style.css", "site.js")
+
+
+@lru_cache(maxsize=2)
+def vega_bundle(vl_version: str | None = None) -> str:
+    """The Vega + Vega-Lite + vega-embed JavaScript, bundled by vl-convert-python.
+
+    Parameters
+    ----------
+    vl_version : str, optional
+        Vega-Lite version as vl-convert names it (e.g. ``"6.4"``); default: the
+        one matching the installed Altair's schema, else vl-convert's newest.
+    """
+    import vl_convert
+
+    if vl_version is None:
+        vl_version = _altair_vl_version(vl_convert.get_vegalite_versions())
+    return vl_convert.javascript_bundle(vl_version=vl_version)
+
+
+def _altair_vl_version(available: list[str]) -> str | None:
+    try:
+        import altair
+    except ImportError:  # pragma: no cover - altair is a dependency
+        return None
+    major_minor = ".".join(altair.SCHEMA_VERSION.lstrip("v").split(".")[:2])
+    return major_minor if major_minor in available else None
+
+
+def embed_json(value: Any) -> Markup:
+    """JSON that is safe inside ``<script type="application/json">``.
+
+    ``<``, ``>`` and ``&`` become JSON unicode escapes, so ``</script>`` or
+    ``<!--`` in any string cannot end the element; the text still parses as
+    the same JSON.
+    """
+    text = json.dumps(value, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
+    text = (text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
+            .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029"))
+    return Markup(text)
+
+
+def format_cell(value: Any) -> str:
+    """How a table cell reads on the page (CSV files keep full precision)."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return ""
+    if isinstance(value, (bool, np.bool_)):
+        return "yes" if value else "no"
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,}"
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        if not math.isfinite(v):
+            return "" if math.isnan(v) else ("∞" if v > 0 else "−∞")
+        if v == 0:
+            return "0"
+        if v.is_integer() and abs(v) < 1e15:
+            return f"{int(v):,}"
+        if abs(v) >= 1000:
+            return f"{v:,.0f}"
+        if abs(v) >= 0.001:
+            return f"{v:.4g}"
+        return f"{v:.3g}"
+    if hasattr(value, "isoformat"):
+        return value.isoformat()[:10]
+    return str(value)
+
+
+def table_rows(frame: pd.DataFrame, limit: int | None = None) -> tuple[list[str], list[list[str]]]:
+    """Header and formatted rows of a frame (at most ``limit`` rows)."""
+    head = [str(c) for c in frame.columns]
+    body = frame if limit is None else frame.head(limit)
+    rows = [[format_cell(v) for v in rec] for rec in body.itertuples(index=False, name=None)]
+    return head, rows
+
+
+def csv_text(frame: pd.DataFrame) -> str:
+    return frame.to_csv(index=False, lineterminator="\n")
+
+
+def make_environment(templates_dir: Path = TEMPLATES_DIR) -> jinja2.Environment:
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(templates_dir)),
+        autoescape=True,
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+    env.filters["cell"] = format_cell
+    env.filters["embed_json"] = embed_json
+    env.globals["table_rows"] = table_rows
+    return env
+
+
+def build_site(
+    content: SiteContent,
+    out_dir: str | Path,
+    *,
+    templates_dir: str | Path = TEMPLATES_DIR,
+    progress: Callable[[str], None] | None = None,
+) -> Path:
+    """Write the site for ``content`` into ``out_dir`` atomically; return index.html's path.
+
+    Parameters
+    ----------
+    content : SiteContent
+        The pages (from :func:`retain.publish.pages.site_content`).
+    out_dir : path
+        Target folder. It must be absent, empty, or a site this function wrote
+        before (it holds a ``.retain-site`` marker); it is replaced as a whole.
+    templates_dir : path
+        Jinja2 templates and the site's CSS / JS (default ``site_templates/``).
+
+    Raises
+    ------
+    BuildError
+        Anything went wrong; the previous site (if any) is untouched.
+    """
+    out = Path(out_dir).resolve()
+    templates = Path(templates_dir)
+    _check_target(out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.building-", dir=out.parent))
+    try:
+        _write_all(content, tmp, templates, progress)
+    except Exception as exc:
+        shutil.rmtree(tmp, ignore_errors=True)
+        if isinstance(exc, BuildError):
+            raise
+        where = f"site build into {out}"
+        if isinstance(exc, RetainError):
+            raise BuildError(where, exc.message, "the previous site was left as it was") from exc
+        raise BuildError(where, f"{type(exc).__name__}: {exc}",
+                         "the previous site was left as it was; rerun with --debug") from exc
+    _swap_into_place(tmp, out)
+    return out / "index.html"
+
+
+def _check_target(out: Path) -> None:
+    if out.exists():
+        if not out.is_dir():
+            raise BuildError(str(out), "the output path exists and is not a folder",
+                             "choose another --out")
+        if any(out.iterdir()) and not (out / MARKER).exists():
+            raise BuildError(str(out), "the output folder is not empty and was not written by "
+                             "retain", "choose an empty or new folder for --out")
+
+
+def _swap_into_place(tmp: Path, out: Path) -> None:
+    old = None
+    try:
+        if out.exists():
+            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.previous-", dir=out.parent))
+            old.rmdir()
+            os.rename(out, old)
+        os.rename(tmp, out)
+    except OSError as exc:
+        if old is not None and old.exists() and not out.exists():
+            os.rename(old, out)
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise BuildError(str(out), f"could not move the new site into place ({exc})",
+                         "check permissions on the output folder") from exc
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def _write_all(content: SiteContent, root: Path, templates: Path,
+               progress: Callable[[str], None] | None) -> None:
+    env = make_environment(templates)
+    assets = root / "assets"
+    data = root / "data"
+    assets.mkdir()
+    data.mkdir()
+    (assets / BUNDLE_NAME).write_text(vega_bundle(), encoding="utf-8")
+    for name in STATIC_FILES:
+        src = templates / name
+        if not src.exists():
+            raise BuildError(str(src), "a site file is missing from the templates folder",
+                             "reinstall retain or restore site_templates/")
+        shutil.copyfile(src, assets / name)
+    seen: set[str] = set()
+    for page in content.pages:
+        for fig in page.figures():
+            if fig.key in seen:
+                raise BuildError(f"page {page.slug!r}", f"figure key {fig.key!r} is used twice",
+                                 "this is a bug in retain: figure keys must be unique")
+            seen.add(fig.key)
+            (data / f"{fig.key}.csv").write_text(csv_text(fig.download), encoding="utf-8")
+    (root / "results.json").write_text(
+        json.dumps(content.results, indent=1, ensure_ascii=False, allow_nan=False) + "\n",
+        encoding="utf-8")
+    template = env.get_template("page.html")
+    nav = [(p.filename, p.label, p.group, p.slug) for p in content.pages]
+    for page in content.pages:
+        if progress:
+            progress(f"page {page.filename}")
+        html = template.render(site=content, page=page, nav=nav, bundle=BUNDLE_NAME)
+        (root / page.filename).write_text(html, encoding="utf-8")
+    (root / MARKER).write_text("written by retain build; replaced as a whole on rebuild\n",
+                               encoding="utf-8")
+
+
+def figure_csv_path(fig: Figure) -> str:
+    return f"data/{fig.key}.csv"
+
+
+def page_filenames(pages: tuple[Page, ...]) -> list[str]:
+    return [p.filename for p in pages]
