@@ -1,0 +1,335 @@
+"""Design-matrix coding shared by every regression model (Cox, exponential, Weibull).
+
+The user names covariates; nothing is written as a formula. A numeric covariate
+enters as one column, as is. A categorical covariate enters as indicator
+columns, one per level other than its *reference* level, so every coefficient
+compares one level with the reference ("plan Orchard vs Seedling").
+
+Default reference level: the most common level by total weight (so a
+compressed table and the full table choose the same one); ties go to the first
+level in sort order. Levels that do not occur in the table get no column.
+
+Checks (each raises :class:`~retain.errors.DataError` naming the column):
+covariate not in the table, missing values, no variation, a reference level
+that does not occur, and exactly collinear columns (found from the
+eigen-decomposition of the weighted correlation matrix of the columns; the
+columns loading on a near-null direction are named).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from retain.data.table import Categorical, StartStop
+from retain.errors import DataError
+
+#: a column whose weighted correlation matrix has an eigenvalue below this is
+#: treated as an exact linear combination of others (double precision leaves
+#: about 1e-12 of noise on a well-posed problem)
+COLLINEAR_TOL = 1e-9
+
+
+@dataclass(frozen=True, eq=False)
+class Design:
+    """A coded design matrix and everything needed to code new rows the same way.
+
+    Attributes
+    ----------
+    X : ndarray (n, p) float64
+        One row per table row, one column per coefficient (not centred).
+    columns : tuple of str
+        Short column names: ``"plan=Orchard"``, ``"price_ratio"``.
+    labels : tuple of str
+        Readable names: ``"plan Orchard vs Seedling"``, ``"price_ratio (per unit)"``.
+    covariates : tuple of str
+        The covariates as the user named them, in order.
+    terms : dict covariate -> slice
+        Which columns of ``X`` belong to each covariate.
+    reference : dict covariate -> level
+        Reference level of each categorical covariate.
+    levels : dict covariate -> tuple of str
+        Levels (in column order after the reference) of each categorical covariate;
+        the reference comes first.
+    means : ndarray (p,)
+        Weighted column means (for centring; compressed == full table).
+    """
+
+    X: np.ndarray
+    columns: tuple[str, ...]
+    labels: tuple[str, ...]
+    covariates: tuple[str, ...]
+    terms: dict[str, slice]
+    reference: dict[str, str]
+    levels: dict[str, tuple[str, ...]]
+    means: np.ndarray
+    source: str = field(default="start-stop table")
+
+    @property
+    def n_columns(self) -> int:
+        return len(self.columns)
+
+    def is_categorical(self, covariate: str) -> bool:
+        return covariate in self.reference
+
+    def centred(self) -> np.ndarray:
+        """``X - means`` (a new array)."""
+        return self.X - self.means
+
+    def column_of(self, covariate: str, level: str | None = None) -> int:
+        """Index of the column for a numeric covariate, or for one level of a categorical."""
+        if covariate not in self.terms:
+            raise DataError(self.source, f"covariate {covariate!r} is not in the model",
+                            f"choose one of: {', '.join(self.covariates)}")
+        if covariate in self.reference:
+            name = f"{covariate}={level}"
+            if name not in self.columns:
+                raise DataError(self.source, f"{covariate} level {level!r} has no column "
+                                f"(reference is {self.reference[covariate]!r})",
+                                f"choose one of: {', '.join(self.levels[covariate][1:])}")
+            return self.columns.index(name)
+        return self.terms[covariate].start
+
+    # ------------------------------------------------------------ new rows
+    def rows_for(self, profile: Mapping[str, object]) -> np.ndarray:
+        """Design rows for a covariate profile.
+
+        Parameters
+        ----------
+        profile : mapping covariate -> value
+            Every covariate of the model must be given. Values may be scalars
+            (one row) or equal-length sequences (one row per element).
+            Categorical values must be known levels.
+
+        Returns
+        -------
+        ndarray (m, p) float64, not centred.
+        """
+        missing = [c for c in self.covariates if c not in profile]
+        if missing:
+            raise DataError("covariate profile", f"no value for {', '.join(missing)}",
+                            "give a value for every covariate in the model")
+        extra = [c for c in profile if c not in self.terms]
+        if extra:
+            raise DataError("covariate profile", f"{', '.join(map(str, extra))} not in the model",
+                            f"the model's covariates are: {', '.join(self.covariates)}")
+        values = {c: np.atleast_1d(np.asarray(profile[c], dtype=object)) for c in self.covariates}
+        sizes = {len(v) for v in values.values()}
+        sizes.discard(1)
+        if len(sizes) > 1:
+            raise DataError("covariate profile", "values have different lengths",
+                            "give scalars or sequences of one length")
+        m = sizes.pop() if sizes else 1
+        out = np.zeros((m, self.n_columns))
+        for c in self.covariates:
+            v = values[c]
+            if len(v) == 1 and m > 1:
+                v = np.repeat(v, m)
+            sl = self.terms[c]
+            if c in self.reference:
+                lv = self.levels[c]
+                for k, val in enumerate(v):
+                    s = str(val)
+                    if s not in lv:
+                        raise DataError("covariate profile", f"{c} has no level {s!r}",
+                                        f"known levels: {', '.join(lv)}")
+                    j = lv.index(s)
+                    if j > 0:
+                        out[k, sl.start + j - 1] = 1.0
+            else:
+                try:
+                    out[:, sl.start] = v.astype(np.float64)
+                except (TypeError, ValueError) as exc:
+                    raise DataError("covariate profile", f"{c} must be a number, got {v[0]!r}",
+                                    "give a numeric value") from exc
+                if not np.all(np.isfinite(out[:, sl.start])):
+                    raise DataError("covariate profile", f"{c} is not finite",
+                                    "give a finite numeric value")
+        return out
+
+    def rows_for_table(self, table: StartStop) -> np.ndarray:
+        """Code another table's rows with this design's levels and references.
+
+        A level unknown to the design raises :class:`DataError` naming it.
+        """
+        out = np.zeros((table.n_rows, self.n_columns))
+        for c in self.covariates:
+            if not table.has(c):
+                raise DataError(table.source, f"there is no column {c!r}",
+                                f"choose one of: {', '.join(table.covariate_names) or '(none)'}")
+            col = table.column(c)
+            sl = self.terms[c]
+            if c in self.reference:
+                if not isinstance(col, Categorical):
+                    raise DataError(table.source, f"column {c!r} is numeric, the model coded "
+                                    "it as categorical", "use the same table layout")
+                _check_missing(table.source, c, col.codes < 0)
+                lv = self.levels[c]
+                present = np.unique(col.codes)
+                unknown = [col.levels[i] for i in present if col.levels[i] not in lv]
+                if unknown:
+                    raise DataError(table.source, f"{c} has level(s) the model has not seen: "
+                                    f"{', '.join(map(repr, unknown))}",
+                                    f"known levels: {', '.join(lv)}")
+                pos = np.array([lv.index(x) if x in lv else -1 for x in col.levels], dtype=np.int64)
+                j = pos[col.codes]
+                for k in range(1, len(lv)):
+                    out[:, sl.start + k - 1] = j == k
+            else:
+                if isinstance(col, Categorical):
+                    raise DataError(table.source, f"column {c!r} is text, the model coded it "
+                                    "as numeric", "use the same table layout")
+                _check_missing(table.source, c, ~np.isfinite(col))
+                out[:, sl.start] = col
+        return out
+
+
+def _check_missing(where: str, name: str, bad: np.ndarray) -> None:
+    n_bad = int(bad.sum())
+    if n_bad:
+        raise DataError(where, f"covariate {name!r} is missing on {n_bad} of {bad.shape[0]} rows",
+                        "fill the missing values or drop those rows before fitting")
+
+
+def design_matrix(
+    table: StartStop,
+    covariates: Sequence[str],
+    *,
+    reference: Mapping[str, str] | None = None,
+) -> Design:
+    """Code covariates of a start-stop table as a design matrix.
+
+    Parameters
+    ----------
+    table : StartStop
+    covariates : sequence of str
+        Covariate names (columns of ``table``), in the order wanted.
+    reference : mapping covariate -> level, optional
+        Reference level for categorical covariates. Default: the most common
+        level by weight (ties: first in sort order).
+
+    Returns
+    -------
+    Design
+
+    Raises
+    ------
+    DataError
+        Unknown covariate (lists the available ones), repeated covariate, missing
+        values (names the column and count), a covariate with no variation, an
+        unknown reference level, a reference given for a numeric covariate, or
+        collinear columns (names them).
+    """
+    where = table.source
+    covariates = [covariates] if isinstance(covariates, str) else list(covariates)
+    seen: set[str] = set()
+    for c in covariates:
+        if c in seen:
+            raise DataError(where, f"covariate {c!r} is named twice", "name each covariate once")
+        seen.add(c)
+        if not table.has(c):
+            raise DataError(where, f"there is no column {c!r}",
+                            "choose covariates from: "
+                            f"{', '.join(table.covariate_names) or '(none)'}")
+    reference = dict(reference or {})
+    for c in reference:
+        if c not in covariates:
+            raise DataError(where, f"a reference level is given for {c!r}, "
+                            "which is not a covariate",
+                            f"covariates are: {', '.join(covariates) or '(none)'}")
+    w = table.weight
+    blocks: list[np.ndarray] = []
+    columns: list[str] = []
+    labels: list[str] = []
+    terms: dict[str, slice] = {}
+    refs: dict[str, str] = {}
+    levels: dict[str, tuple[str, ...]] = {}
+    for c in covariates:
+        col = table.column(c)
+        start = len(columns)
+        if isinstance(col, Categorical):
+            _check_missing(where, c, col.codes < 0)
+            counts = np.bincount(col.codes, weights=w, minlength=len(col.levels))
+            present = [i for i in range(len(col.levels)) if counts[i] > 0]
+            if len(present) < 2:
+                only = col.levels[present[0]] if present else "(none)"
+                raise DataError(where, f"covariate {c!r} has no variation (every row is {only!r})",
+                                f"drop {c!r} from the covariates or fit within one level")
+            if c in reference:
+                ref = str(reference[c])
+                if ref not in col.levels or counts[col.levels.index(ref)] == 0:
+                    have = ", ".join(col.levels[i] for i in present)
+                    raise DataError(where, f"reference level {ref!r} of {c!r} does not occur",
+                                    f"choose one of: {have}")
+                ref_code = col.levels.index(ref)
+            else:
+                # most common by weight; np.argmax returns the first maximum = first in sort order
+                ref_code = int(np.argmax(counts))
+                ref = col.levels[ref_code]
+            others = [i for i in present if i != ref_code]
+            refs[c] = ref
+            levels[c] = (ref,) + tuple(col.levels[i] for i in others)
+            block = np.empty((table.n_rows, len(others)))
+            for k, i in enumerate(others):
+                block[:, k] = col.codes == i
+                columns.append(f"{c}={col.levels[i]}")
+                labels.append(f"{c} {col.levels[i]} vs {ref}")
+            blocks.append(block)
+        else:
+            if c in reference:
+                raise DataError(where, f"a reference level is given for numeric covariate {c!r}",
+                                "reference levels apply to categorical covariates only")
+            _check_missing(where, c, ~np.isfinite(col))
+            if np.all(col == col[0]):
+                raise DataError(where, f"covariate {c!r} has no variation "
+                                f"(every row is {col[0]:g})",
+                                f"drop {c!r} from the covariates")
+            blocks.append(col.reshape(-1, 1))
+            columns.append(c)
+            labels.append(f"{c} (per unit)")
+        terms[c] = slice(start, len(columns))
+    X = np.hstack(blocks) if blocks else np.zeros((table.n_rows, 0))
+    X = np.ascontiguousarray(X, dtype=np.float64)
+    wsum = float(w.sum())
+    means = (w @ X) / wsum if X.shape[1] else np.zeros(0)
+    design = Design(X=X, columns=tuple(columns), labels=tuple(labels),
+                    covariates=tuple(covariates), terms=terms, reference=refs, levels=levels,
+                    means=means, source=where)
+    _check_collinear(design, w)
+    return design
+
+
+def weighted_correlation(X: np.ndarray, w: np.ndarray, means: np.ndarray,
+                         chunk: int = 1 << 16) -> np.ndarray:
+    """Weighted correlation matrix of the columns of ``X``, computed in row chunks."""
+    p = X.shape[1]
+    G = np.zeros((p, p))
+    for a in range(0, X.shape[0], chunk):
+        Xc = X[a:a + chunk] - means
+        G += (Xc * w[a:a + chunk, None]).T @ Xc
+    sd = np.sqrt(np.diag(G))
+    return G / np.outer(sd, sd)
+
+
+def _check_collinear(design: Design, w: np.ndarray) -> None:
+    p = design.n_columns
+    if p < 2:
+        return
+    R = weighted_correlation(design.X, w, design.means)
+    vals, vecs = np.linalg.eigh(R)
+    null = vals < COLLINEAR_TOL * p
+    if not null.any():
+        return
+    v = vecs[:, null]
+    involved = np.flatnonzero(np.max(np.abs(v), axis=1) > 1e-6)
+    names = [design.columns[i] for i in involved]
+    raise DataError(design.source,
+                    f"covariates are collinear: {', '.join(names)} (one is a linear "
+                    "combination of the others, or a level always coincides with another "
+                    "covariate's level)",
+                    "drop one of them or merge levels")
+
+
+__all__ = ["Design", "design_matrix", "weighted_correlation", "COLLINEAR_TOL"]
