@@ -746,3 +746,220 @@ def retention_grid(curve: RetentionCurve, months: Sequence[float] | None = GRID_
     warn = tuple(f"{curve.label}: {x:g} days is past the last observed tenure "
                  f"({curve.follow_up:g} days)" for x in d[~np.isfinite(s)])
     return RetentionGrid(curve.label, m, d, s, lo, hi, n, curve.conf, curve.ci, warn)
+
+
+# --------------------------------------------------------------------------- comparisons
+@dataclass(frozen=True, eq=False)
+class GroupTest(Result):
+    """A (weighted, optionally stratified) log-rank test that curves are equal.
+
+    ``observed`` and ``expected`` are the weighted churns per group and their
+    expectation under equal hazards (summed over strata, without time
+    weights); ``statistic`` is chi-square with ``df`` degrees of freedom.
+    """
+
+    by: str
+    levels: tuple[str, ...]
+    weighting: str
+    strata: str | None
+    n_strata: int
+    at_start: np.ndarray
+    observed: np.ndarray
+    expected: np.ndarray
+    scores: np.ndarray
+    covariance: np.ndarray
+    statistic: float
+    df: int
+    p_value: float
+    warnings: tuple[str, ...] = ()
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame({"group": list(self.levels), "spells": self.at_start,
+                             "observed": self.observed, "expected": self.expected,
+                             "observed_over_expected": np.divide(
+                                 self.observed, self.expected,
+                                 out=np.full_like(self.observed, np.nan),
+                                 where=self.expected > 0)})
+
+    def summary(self) -> str:
+        strat = f", stratified by {self.strata}" if self.strata else ""
+        return (f"{self.weighting} test of equal retention across {self.by} "
+                f"({len(self.levels)} groups{strat}): chi-square {self.statistic:.2f} on "
+                f"{self.df} df, p = {self.p_value:.3g}")
+
+
+def _parse_weighting(weighting: object, where: str) -> tuple[str, float, float]:
+    if weighting == "logrank":
+        return "log-rank", 0.0, 0.0
+    if weighting == "peto-peto":
+        return "Peto–Peto", math.nan, math.nan
+    if (isinstance(weighting, tuple) and len(weighting) == 3
+            and weighting[0] == "fleming-harrington"):
+        p, q = float(weighting[1]), float(weighting[2])
+        if p < 0 or q < 0 or not (math.isfinite(p) and math.isfinite(q)):
+            raise ModelError(where, f"Fleming–Harrington exponents must be >= 0, got {p}, {q}",
+                             "e.g. ('fleming-harrington', 1, 0)")
+        return f"Fleming–Harrington({p:g}, {q:g})", p, q
+    raise ModelError(where, f"unknown weighting {weighting!r}",
+                     "use 'logrank', 'peto-peto' or ('fleming-harrington', p, q)")
+
+
+def _time_weights(n: np.ndarray, d: np.ndarray, p: float, q: float) -> np.ndarray:
+    """Time weights from the pooled counts at each event time.
+
+    Fleming–Harrington G(p, q) (Harrington & Fleming 1982):
+    :math:`w_j = \\hat S(t_j-)^p (1 - \\hat S(t_j-))^q` with the pooled
+    Kaplan–Meier left limit. Peto–Peto (Peto & Peto 1972; Klein & Moeschberger
+    2003, sec. 7.3): :math:`w_j = \\tilde S(t_j) = \\prod_{i \\le j}(1 - d_i/(n_i + 1))`.
+    """
+    if math.isnan(p):
+        return np.cumprod(1.0 - d / (n + 1.0))
+    if p == 0.0 and q == 0.0:
+        return np.ones_like(n)
+    s, _ = K.product_limit(n, d)
+    left = np.concatenate(([1.0], s[:-1]))
+    return left ** p * (1.0 - left) ** q
+
+
+def compare_groups(table: StartStop, by: str, *, strata: str | None = None,
+                   weighting: object = "logrank") -> GroupTest:
+    """Log-rank test (k groups) of equal retention, optionally stratified and weighted.
+
+    Groups and strata are assigned by the columns' values at the start of each
+    spell (see :func:`spell_start_codes`). With strata, the scores and their
+    covariances are summed over strata (stratified log-rank; Kalbfleisch &
+    Prentice 1980, sec. 6.2) and the time weights use each stratum's pooled
+    curve.
+
+    Parameters
+    ----------
+    by : str
+        Column defining the groups (two or more values).
+    strata : str, optional
+        Column defining strata.
+    weighting : "logrank" | "peto-peto" | ("fleming-harrington", p, q)
+        Time weights (see :func:`retain.kernels.km.rank_scores`). Peto–Peto and
+        Fleming–Harrington(1, 0) emphasise early differences; (0, 1) late ones.
+    """
+    where = f"comparison of retention by {by!r}"
+    table = _check_table(table, where)
+    label, p, q = _parse_weighting(weighting, where)
+    codes, levels, _ = spell_start_codes(table, by)
+    k = len(levels)
+    if strata is not None:
+        s_codes, s_levels, _ = spell_start_codes(table, strata)
+    else:
+        s_codes, s_levels = np.zeros(table.n_rows, dtype=np.int32), ("all",)
+    exits = _exits(table)
+    ok = (codes >= 0) & (s_codes >= 0)
+    present = np.bincount(codes[ok], minlength=k) > 0
+    if present.sum() < 2:
+        raise ModelError(where, f"column {by!r} has {int(present.sum())} group(s) with data; "
+                         "a comparison needs two or more", "pick a column with two values or more")
+    u = np.zeros(k)
+    v = np.zeros((k, k))
+    obs = np.zeros(k)
+    exp_ = np.zeros(k)
+    used_strata = 0
+    for sc in range(len(s_levels)):
+        m = ok & (s_codes == sc)
+        if not m.any():
+            continue
+        st, sp, ch, w = table.start[m], table.stop[m], table.churned[m], table.weight[m]
+        ev_times = np.unique(sp[ch == 1])
+        if ev_times.size == 0:
+            continue
+        used_strata += 1
+        rt = risk_table(st, sp, ch, w, exits=None if exits is None else exits[m],
+                        times=ev_times, group=codes[m], n_groups=k)
+        n_all = rt.at_risk.sum(axis=1)
+        d_all = rt.events.sum(axis=1)
+        tw = _time_weights(n_all, d_all, p, q)
+        uu, vv = K.rank_scores(rt.at_risk, rt.events, tw)
+        u += uu
+        v += vv
+        obs += rt.events.sum(axis=0)
+        share = np.divide(rt.at_risk, n_all[:, None], out=np.zeros_like(rt.at_risk),
+                          where=n_all[:, None] > 0)
+        exp_ += (share * d_all[:, None]).sum(axis=0)
+    warnings: list[str] = []
+    for g in range(k):
+        if present[g] and obs[g] == 0:
+            warnings.append(f"{by} = {levels[g]}: no churn observed in this group")
+    if not present.all():
+        warnings.append("groups with no rows are left out: "
+                        + ", ".join(levels[g] for g in range(k) if not present[g]))
+    if obs.sum() == 0:
+        warnings.append("no churn in any group: the test has no information")
+    stat, df = K.chi_square(u[present], v[np.ix_(present, present)])
+    pval = float(stats.chi2.sf(stat, df)) if df > 0 else math.nan
+    keep = np.flatnonzero(present)
+    last = ok if exits is None else ok & exits  # one row per spell: its last
+    at_start = np.bincount(codes[last], weights=table.weight[last], minlength=k)
+    return GroupTest(by, tuple(levels[g] for g in keep), label, strata, used_strata,
+                     at_start[keep], obs[keep], exp_[keep], u[keep], v[np.ix_(keep, keep)],
+                     stat, df, pval, tuple(warnings))
+
+
+@dataclass(frozen=True, eq=False)
+class RestrictedMeanDifference(Result):
+    """Difference in restricted mean tenure between two groups (``other`` − ``reference``).
+
+    Independent groups: ``se = sqrt(se_ref^2 + se_other^2)``, normal interval
+    and two-sided p-value (Royston & Parmar 2013).
+    """
+
+    by: str
+    reference: RestrictedMean
+    other: RestrictedMean
+    horizon: float
+    difference: float
+    se: float
+    lower: float
+    upper: float
+    p_value: float
+    conf: float
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([
+            {"group": self.reference.label, "mean": self.reference.mean, "se": self.reference.se},
+            {"group": self.other.label, "mean": self.other.mean, "se": self.other.se},
+            {"group": "difference", "mean": self.difference, "se": self.se},
+        ])
+
+    def summary(self) -> str:
+        return (f"Within {self.horizon:g} days, {self.other.label} stays {self.difference:+.1f} "
+                f"days vs {self.reference.label} ({self.conf:.0%} CI {self.lower:+.1f} to "
+                f"{self.upper:+.1f}, p = {self.p_value:.3g})")
+
+
+def rmst_difference(table: StartStop, by: str, horizon: float, *,
+                    levels: tuple[str, str] | None = None,
+                    conf: float = 0.95) -> RestrictedMeanDifference:
+    """Restricted mean tenure of two groups up to ``horizon`` days and their difference.
+
+    ``levels = (reference, other)``; default: the column's two values in
+    sorted order (required when it has more than two). The horizon must not
+    pass either group's last observed tenure (ModelError otherwise).
+    """
+    where = f"restricted mean difference by {by!r}"
+    table = _check_table(table, where)
+    curves = curves_by(table, by, conf=conf)
+    if levels is None:
+        if len(curves) != 2:
+            raise ModelError(where, f"column {by!r} has {len(curves)} groups with data",
+                             "pass levels=(reference, other)")
+        levels = (curves.keys()[0], curves.keys()[1])
+    ref, oth = curves[levels[0]], curves[levels[1]]
+    limit = min(ref.follow_up, oth.follow_up)
+    if horizon > limit:
+        raise ModelError(where, f"horizon {horizon:g} days is past the last observed tenure of "
+                         f"one group ({limit:g} days)", f"choose a horizon <= {limit:g} days")
+    a = ref.restricted_mean(horizon)
+    b = oth.restricted_mean(horizon)
+    diff = b.mean - a.mean
+    se = math.hypot(a.se, b.se)
+    z = float(stats.norm.isf((1.0 - conf) / 2.0))
+    pval = float(2 * stats.norm.sf(abs(diff) / se)) if se > 0 else math.nan
+    return RestrictedMeanDifference(by, a, b, float(horizon), diff, se, diff - z * se,
+                                    diff + z * se, pval, float(conf))
