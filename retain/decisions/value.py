@@ -1,0 +1,845 @@
+"""Lifetime value of new customers and residual value of the active base.
+
+Every figure here is a discounted sum over future months of survival x
+margin (see :mod:`retain.kernels.discount` for the formula and the timing
+convention: the margin of each month is received at the end of that month,
+only if the customer is still active then).
+
+The curve is an explicit input: anything that meets :class:`SurvivalCurve`
+(``survival(days)``, and optionally ``draws(n, seed)`` for intervals). The
+adapters below turn retain's fitted models into such curves
+(:func:`curve_from_parametric`, :func:`curve_from_cox`,
+:func:`curve_from_kaplan_meier`, :func:`curve_from_renewal`) and
+:class:`ConstantRetention` gives a plain geometric curve.
+
+Intervals: each curve offers draws of its survival function, made by drawing
+the model's parameters from the normal approximation to their sampling
+distribution (mean = estimate, covariance = inverse information; Krinsky &
+Robb 1986, Review of Economics and Statistics 68(4)); for Kaplan-Meier the
+draws of log S follow a Gaussian random walk whose variance at ``t`` is
+Greenwood's sum, the delta-method law of log S (Greenwood 1926). A value
+figure is computed on every draw and the interval is the pair of
+percentiles. It covers the statistical uncertainty of the *expected* value,
+not the spread of the cash a given set of customers will actually pay.
+
+These are statistical estimates, not accounting figures: see :data:`CAUTION`.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Protocol, runtime_checkable
+
+import numpy as np
+import pandas as pd
+
+from retain.data.table import Categorical, StartStop
+from retain.errors import ConfigError, DataError, ModelError
+from retain.kernels import discount as kd
+from retain.results import Result, to_jsonable
+from retain.units import DAYS_PER_MONTH
+
+CAUTION = (
+    "These values are statistical estimates from fitted retention models, not accounting "
+    "figures. Reserves, impairment and revenue recognition follow the company's accounting "
+    "standards and need review by a qualified actuary; the intervals cover model estimation "
+    "uncertainty only, not changes in pricing, costs or customer behaviour."
+)
+TIMING = "margin received at the end of each month survived (month k discounted by (1+d)^-k)"
+NO_CAP_MONTHS = 1200  # "no horizon cap" sums 100 years of months
+DEFAULT_DRAWS = 400
+DEFAULT_SEED = 20261202
+
+DrawFn = Callable[[np.ndarray], np.ndarray]
+
+
+@runtime_checkable
+class SurvivalCurve(Protocol):
+    """What value and planning need from a retention curve.
+
+    ``survival(days)`` gives S at tenure ``days`` (array in, array out).
+    ``draws(n, seed)`` gives ``n`` functions of the same kind, each a curve
+    with its parameters drawn from their sampling distribution, or ``None``
+    when the source has no uncertainty to offer. ``data_horizon_days`` is how
+    far the data behind the curve reach (``inf`` when unknown or not
+    applicable); value beyond it is an extrapolation and is flagged.
+    """
+
+    label: str
+    data_horizon_days: float
+
+    def survival(self, days: np.ndarray) -> np.ndarray: ...
+
+    def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None: ...
+
+
+# ---------------------------------------------------------------- plain curves
+
+
+@dataclass(frozen=True)
+class FunctionCurve:
+    """A curve from a function of tenure days, with optional draws."""
+
+    label: str
+    function: DrawFn
+    draw_function: Callable[[int, int], Sequence[DrawFn]] | None = None
+    data_horizon_days: float = math.inf
+
+    def survival(self, days: np.ndarray) -> np.ndarray:
+        return np.asarray(self.function(np.asarray(days, dtype=np.float64)), dtype=np.float64)
+
+    def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None:
+        return None if self.draw_function is None else self.draw_function(n, seed)
+
+
+@dataclass(frozen=True)
+class ConstantRetention:
+    """Geometric retention: a share ``retention_per_month`` stays each month.
+
+    ``S(t) = r ** (t / 30.4375)``. With ``se`` (standard error of ``r``) the
+    draws take ``logit r`` normal by the delta method; without, no interval.
+    """
+
+    retention_per_month: float
+    se: float | None = None
+    label: str = "constant monthly retention"
+    data_horizon_days: float = math.inf
+
+    def survival(self, days: np.ndarray) -> np.ndarray:
+        return self.retention_per_month ** (np.asarray(days, dtype=np.float64) / DAYS_PER_MONTH)
+
+    def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None:
+        if self.se is None:
+            return None
+        r = self.retention_per_month
+        rng = np.random.default_rng(seed)
+        logit = np.log(r / (1 - r)) + rng.standard_normal(n) * self.se / (r * (1 - r))
+        rs = 1.0 / (1.0 + np.exp(-logit))
+        return [(lambda d, q=q: q ** (np.asarray(d, dtype=np.float64) / DAYS_PER_MONTH))
+                for q in rs]
+
+
+@dataclass(frozen=True)
+class StepCurve:
+    """A Kaplan-Meier step curve, optionally joined to a parametric tail.
+
+    ``times`` are the event times (days), ``survival`` S just after each,
+    ``greenwood`` the Greenwood sum ``sum d / (n (n - d))`` at each (the
+    delta-method variance of log S). Up to ``join_days`` the curve is the
+    step function; past it ``S(t) = S_km(join) * T(t) / T(join)`` with ``T``
+    the tail curve (conditional survival of the tail model). Without a tail
+    the curve stays flat past the last time (and value past the data is then
+    flagged as an extrapolation at the last observed level).
+    """
+
+    times: np.ndarray
+    survival_steps: np.ndarray
+    greenwood: np.ndarray
+    join_days: float
+    tail: SurvivalCurve | None = None
+    label: str = "Kaplan-Meier"
+    data_horizon_days: float = math.inf
+
+    def _step(self, steps: np.ndarray, days: np.ndarray) -> np.ndarray:
+        idx = np.searchsorted(self.times, days, side="right") - 1
+        vals = np.where(idx >= 0, steps[np.clip(idx, 0, None)], 1.0)
+        return vals
+
+    def _join(self, steps: np.ndarray, tail: DrawFn | None, days: np.ndarray) -> np.ndarray:
+        days = np.asarray(days, dtype=np.float64)
+        inside = np.minimum(days, self.join_days)
+        s = self._step(steps, inside)
+        if tail is not None:
+            past = days > self.join_days
+            if past.any():
+                t_join = float(np.asarray(tail(np.array([self.join_days])))[0])
+                ratio = kd.conditional_survival(np.array([t_join]), np.asarray(tail(days[past])))
+                s = s.copy()
+                s[past] = s[past] * ratio
+        return s
+
+    def survival(self, days: np.ndarray) -> np.ndarray:
+        return self._join(self.survival_steps, None if self.tail is None else self.tail.survival,
+                          days)
+
+    def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None:
+        rng = np.random.default_rng(seed)
+        inc = np.diff(np.concatenate(([0.0], self.greenwood)))
+        inc = np.clip(np.nan_to_num(inc, nan=0.0, posinf=0.0), 0.0, None)
+        walk = np.cumsum(rng.standard_normal((n, inc.shape[0])) * np.sqrt(inc), axis=1)
+        with np.errstate(divide="ignore"):
+            log_s = np.log(self.survival_steps)
+        steps = np.exp(np.minimum(log_s + walk, 0.0))
+        steps = np.minimum.accumulate(steps, axis=1)  # a survival curve never rises
+        tails: Sequence[DrawFn | None]
+        if self.tail is None:
+            tails = [None] * n
+        else:
+            td = self.tail.draws(n, seed + 1)
+            tails = list(td) if td is not None else [self.tail.survival] * n
+        return [(lambda d, s=steps[i], t=tails[i]: self._join(s, t, d)) for i in range(n)]
+
+
+# ---------------------------------------------------------------- adapters to fitted models
+
+
+def _profile_label(profile: Mapping[str, Any] | None) -> str:
+    if not profile:
+        return ""
+    return " (" + ", ".join(f"{k}={v}" for k, v in profile.items()) + ")"
+
+
+def _model_draws(fit: Any, profile: Mapping[str, Any] | None, n: int, seed: int
+                 ) -> Sequence[DrawFn] | None:
+    """Draws from a fit that exposes ``with_params`` / ``params`` / ``covariance``."""
+    params = getattr(fit, "params", None)
+    cov = getattr(fit, "covariance", None)
+    if params is None or cov is None or not hasattr(fit, "with_params"):
+        return None
+    params = np.asarray(params, dtype=np.float64)
+    cov = np.asarray(cov, dtype=np.float64)
+    if not np.all(np.isfinite(cov)):
+        return None
+    rng = np.random.default_rng(seed)
+    thetas = rng.multivariate_normal(params, cov, size=n, method="eigh")
+    out = []
+    for th in thetas:
+        f = fit.with_params(th)
+        out.append(lambda d, f=f: _retention(f, profile, d))
+    return out
+
+
+def _retention(fit: Any, profile: Mapping[str, Any] | None, days: np.ndarray) -> np.ndarray:
+    days = np.asarray(days, dtype=np.float64)
+    flat = days.ravel()
+    uniq, inv = np.unique(flat, return_inverse=True)
+    s = np.asarray(fit.predict_retention(profile, uniq), dtype=np.float64).ravel()
+    return s[inv].reshape(days.shape)
+
+
+@dataclass(frozen=True)
+class ModelCurve:
+    """A fitted model's predicted retention for one covariate profile."""
+
+    fit: Any
+    profile: Mapping[str, Any] | None
+    label: str
+    data_horizon_days: float = math.inf
+
+    def survival(self, days: np.ndarray) -> np.ndarray:
+        return _retention(self.fit, self.profile, days)
+
+    def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None:
+        return _model_draws(self.fit, self.profile, n, seed)
+
+
+def _data_horizon(fit: Any) -> float:
+    for name in ("max_time", "data_horizon_days", "max_stop", "last_time"):
+        v = getattr(fit, name, None)
+        if v is not None:
+            try:
+                return float(v)
+            except (TypeError, ValueError):
+                continue
+    return math.inf
+
+
+def curve_from_model(fit: Any, profile: Mapping[str, Any] | None = None, *,
+                     label: str | None = None) -> ModelCurve:
+    """Wrap a fitted model with ``predict_retention(profile, days)`` as a curve.
+
+    Works for the parametric (Weibull, exponential) and Cox fits. Draws come
+    from the fit's parameter covariance when it offers ``params``,
+    ``covariance`` and ``with_params``.
+    """
+    if not hasattr(fit, "predict_retention"):
+        raise ModelError(type(fit).__name__, "the fit cannot predict retention",
+                         "pass a fitted Weibull, exponential, Cox or renewal model")
+    name = label or getattr(fit, "method", None) or type(fit).__name__
+    return ModelCurve(fit, profile, f"{name}{_profile_label(profile)}", _data_horizon(fit))
+
+
+# ---------------------------------------------------------------- results
+
+
+def _interval(draws: np.ndarray, level: float) -> tuple[float, float]:
+    ok = draws[np.isfinite(draws)]
+    if ok.size < 2:
+        return math.nan, math.nan
+    a = (1.0 - level) / 2.0
+    lo, hi = np.quantile(ok, [a, 1.0 - a])
+    return float(lo), float(hi)
+
+
+def _interval_method(n_draws: int, level: float, available: bool) -> str:
+    if not available:
+        return "none: the curve offers no parameter draws"
+    return (f"percentile interval ({level:.0%}) over {n_draws} draws of the curve from its "
+            "parameters' estimated sampling distribution")
+
+
+@dataclass(frozen=True)
+class LifetimeValue(Result):
+    """Expected discounted value of one new customer over the horizon.
+
+    ``value = margin_per_month * sum_{k=1}^{H} S(k months) (1 + d)^-k``.
+    ``expected_months`` is the undiscounted ``sum_k S(k)``: expected whole
+    months kept within the horizon.
+    """
+
+    segment: str
+    curve: str
+    customers: int
+    margin_per_month: float
+    margin_basis: str
+    annual_discount_rate: float
+    monthly_discount_rate: float
+    horizon_months: int | None
+    timing: str
+    value: float
+    lower: float
+    upper: float
+    level: float
+    interval_method: str
+    n_draws: int
+    expected_months: float
+    survival_at_horizon: float
+    extrapolated_months: float
+    warnings: tuple[str, ...] = ()
+
+    def to_frame(self) -> pd.DataFrame:
+        row = {k: v for k, v in self.to_dict().items() if k != "warnings"}
+        row["warnings"] = "; ".join(self.warnings)
+        return pd.DataFrame([row])
+
+    def summary(self) -> str:
+        h = "no cap" if self.horizon_months is None else f"{self.horizon_months} months"
+        ci = ("" if not math.isfinite(self.lower) else
+              f" ({self.level:.0%} interval {self.lower:,.2f} to {self.upper:,.2f})")
+        return (f"{self.segment}: a new customer is worth {self.value:,.2f}{ci} over {h} at "
+                f"{self.annual_discount_rate:.1%} a year, margin {self.margin_per_month:,.2f} a "
+                f"month, curve {self.curve}.")
+
+
+@dataclass(frozen=True)
+class SegmentValues(Result):
+    """Lifetime value of a new customer, one row per segment."""
+
+    by: tuple[str, ...]
+    curve: str
+    values: tuple[LifetimeValue, ...]
+    as_of: str | None = None
+    caution: str = CAUTION
+    warnings: tuple[str, ...] = ()
+
+    def to_frame(self) -> pd.DataFrame:
+        if not self.values:
+            return pd.DataFrame()
+        return pd.concat([v.to_frame() for v in self.values], ignore_index=True)
+
+    def summary(self) -> str:
+        return (f"Lifetime value of a new customer for {len(self.values)} segment(s) by "
+                f"{', '.join(self.by) or '(all)'} from the {self.curve} curve.")
+
+
+@dataclass(frozen=True)
+class BaseSegment:
+    """Residual value of the active customers of one segment."""
+
+    segment: str
+    curve: str
+    customers: float
+    value_per_customer: float
+    lower: float
+    upper: float
+    total: float
+    total_lower: float
+    total_upper: float
+    mean_tenure_months: float
+    mean_margin_per_month: float
+    extrapolated_months: float
+    method: str
+
+
+@dataclass(frozen=True)
+class BaseValue(Result):
+    """Residual value of the existing base: each active customer valued given tenure survived.
+
+    For a customer active at tenure ``t``:
+    ``value = m * sum_{k=1}^{H} [S(t + k months) / S(t)] (1 + d)^-k``, summed
+    over the customers of each segment (``H`` months after the as-of date).
+    """
+
+    by: tuple[str, ...]
+    segments: tuple[BaseSegment, ...]
+    margin_basis: str
+    annual_discount_rate: float
+    monthly_discount_rate: float
+    horizon_months: int | None
+    timing: str
+    level: float
+    interval_method: str
+    n_draws: int
+    as_of: str | None = None
+    caution: str = CAUTION
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def total(self) -> float:
+        return float(sum(s.total for s in self.segments))
+
+    def to_frame(self) -> pd.DataFrame:
+        rows = [to_jsonable(s) for s in self.segments]
+        frame = pd.DataFrame(rows)
+        for name in ("margin_basis", "annual_discount_rate", "horizon_months", "as_of"):
+            frame[name] = getattr(self, name)
+        return frame
+
+    def summary(self) -> str:
+        n = sum(s.customers for s in self.segments)
+        return (f"{n:,.0f} active customers are worth {self.total:,.2f} in expected discounted "
+                f"margin over the next {self.horizon_months or 'uncapped'} months.")
+
+
+# ---------------------------------------------------------------- checks
+
+
+def _check_money(margin_per_month: float, annual_discount_rate: float,
+                 horizon_months: int | None, level: float) -> int:
+    where = "value"
+    if not (isinstance(margin_per_month, (int, float, np.floating)) and
+            math.isfinite(margin_per_month) and margin_per_month >= 0):
+        raise ConfigError(f"{where}: margin_per_month", f"must be a finite number >= 0, got "
+                          f"{margin_per_month!r}", "set margin_per_month or margin_rate in [value]")
+    if not (math.isfinite(annual_discount_rate) and -1.0 < annual_discount_rate < 10.0):
+        raise ConfigError(f"{where}: annual_discount_rate", f"must be above -1 (and below 10), "
+                          f"got {annual_discount_rate!r}", "give a rate such as 0.10 for 10 %")
+    if horizon_months is not None and (int(horizon_months) != horizon_months or horizon_months < 1):
+        raise ConfigError(f"{where}: horizon_months", f"must be a whole number >= 1, got "
+                          f"{horizon_months!r}", "e.g. horizon_months = 60")
+    if not 0.5 <= level < 1.0:
+        raise ConfigError(f"{where}: level", f"interval level must be in [0.5, 1), got {level!r}",
+                          "use 0.95")
+    return NO_CAP_MONTHS if horizon_months is None else int(horizon_months)
+
+
+def _check_curve(curve: Any, where: str) -> None:
+    if not isinstance(curve, SurvivalCurve):
+        raise ModelError(where, f"{type(curve).__name__} is not a retention curve",
+                         "pass a curve with survival(days) and draws(n, seed), e.g. "
+                         "curve_from_model(fit)")
+
+
+def _extrapolation(curve: SurvivalCurve, reach_days: float) -> tuple[float, str | None]:
+    horizon = float(getattr(curve, "data_horizon_days", math.inf))
+    if not math.isfinite(horizon) or reach_days <= horizon:
+        return 0.0, None
+    months = (reach_days - horizon) / DAYS_PER_MONTH
+    return months, (f"the {curve.label} curve is extrapolated {months:.0f} months past the "
+                    f"data (which reach {horizon / DAYS_PER_MONTH:.0f} months of tenure)")
+
+
+# ---------------------------------------------------------------- lifetime value
+
+
+def lifetime_value(
+    curve: SurvivalCurve,
+    *,
+    margin_per_month: float,
+    annual_discount_rate: float,
+    horizon_months: int | None = 60,
+    segment: str = "all",
+    customers: int = 0,
+    margin_basis: str | None = None,
+    level: float = 0.95,
+    n_draws: int = DEFAULT_DRAWS,
+    seed: int = DEFAULT_SEED,
+) -> LifetimeValue:
+    """Expected discounted value of a new customer from a retention curve.
+
+    ``V = m * sum_{k=1}^{H} S(k * 30.4375 days) * (1 + d)^-k`` with
+    ``d = (1 + annual_discount_rate)^(1/12) - 1``: the margin ``m`` of month
+    ``k`` is received at the end of month ``k`` if the customer is still
+    active (end-of-period timing; for constant retention ``r`` and no cap this
+    is ``m r / (1 + d - r)``). ``horizon_months=None`` means no cap (summed
+    over 100 years, with a warning if survival is not negligible by then).
+
+    Parameters
+    ----------
+    curve : SurvivalCurve
+        The retention curve (see :func:`curve_from_model` and friends).
+    margin_per_month : float
+        Margin earned in each month the customer stays.
+    annual_discount_rate : float
+        Effective annual rate, e.g. 0.10.
+    horizon_months : int or None
+        Cap on the months counted.
+    level, n_draws, seed
+        Interval level, number of curve draws and their seed.
+    """
+    _check_curve(curve, f"lifetime value ({segment})")
+    h = _check_money(margin_per_month, annual_discount_rate, horizon_months, level)
+    d = kd.monthly_rate(annual_discount_rate)
+    days = np.arange(1, h + 1, dtype=np.float64) * DAYS_PER_MONTH
+    factors = kd.discount_factors(d, h)
+    s = curve.survival(days)
+    value = float(kd.discounted_value(s, margin_per_month, factors))
+    warnings: list[str] = []
+    if not np.all(np.isfinite(s)):
+        raise ModelError(f"lifetime value ({segment})", f"the {curve.label} curve gave a "
+                         "non-finite survival", "check the fit")
+    fns = curve.draws(n_draws, seed)
+    lower = upper = math.nan
+    if fns:
+        vals = np.array([kd.discounted_value(np.asarray(f(days)), margin_per_month, factors)
+                         for f in fns])
+        lower, upper = _interval(vals, level)
+    else:
+        warnings.append(f"no interval: the {curve.label} curve offers no parameter draws")
+    extra, msg = _extrapolation(curve, days[-1])
+    if msg:
+        warnings.append(msg)
+    if horizon_months is None and s[-1] > 1e-4:
+        warnings.append(f"with no horizon cap, {s[-1]:.2%} are still active after "
+                        f"{NO_CAP_MONTHS} months; the sum is cut there")
+    basis = margin_basis or f"given margin {margin_per_month:g} per month"
+    return LifetimeValue(
+        segment=segment, curve=curve.label, customers=int(customers),
+        margin_per_month=float(margin_per_month), margin_basis=basis,
+        annual_discount_rate=float(annual_discount_rate), monthly_discount_rate=d,
+        horizon_months=horizon_months, timing=TIMING, value=value, lower=lower, upper=upper,
+        level=level, interval_method=_interval_method(n_draws, level, bool(fns)),
+        n_draws=len(fns) if fns else 0, expected_months=float(np.sum(s)),
+        survival_at_horizon=float(s[-1]), extrapolated_months=extra,
+        warnings=tuple(warnings),
+    )
+
+
+# ---------------------------------------------------------------- sensitivity
+
+
+@dataclass(frozen=True)
+class ValueSensitivity(Result):
+    """Lifetime value of a new customer over a grid of discount rates and horizons."""
+
+    curve: str
+    segment: str
+    margin_per_month: float
+    table: pd.DataFrame
+    level: float
+    interval_method: str
+    timing: str = TIMING
+    caution: str = CAUTION
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.table.copy()
+
+    def pivot(self) -> pd.DataFrame:
+        """Values with discount rates as rows and horizons as columns."""
+        return self.table.pivot(index="annual_discount_rate", columns="horizon_months",
+                                values="value")
+
+    def summary(self) -> str:
+        v = self.table["value"]
+        return (f"{self.segment}: value per new customer ranges from {v.min():,.2f} to "
+                f"{v.max():,.2f} over {self.table['annual_discount_rate'].nunique()} discount "
+                f"rates and {self.table['horizon_months'].nunique()} horizons.")
+
+
+def value_sensitivity(
+    curve: SurvivalCurve,
+    *,
+    margin_per_month: float,
+    annual_discount_rates: Sequence[float] = (0.0, 0.05, 0.10, 0.15, 0.20),
+    horizons_months: Sequence[int] = (12, 24, 36, 60, 120),
+    segment: str = "all",
+    level: float = 0.95,
+    n_draws: int = DEFAULT_DRAWS,
+    seed: int = DEFAULT_SEED,
+) -> ValueSensitivity:
+    """Value of a new customer for every (discount rate, horizon) pair, with intervals.
+
+    The same draws of the curve serve every cell, so cells are comparable.
+    """
+    _check_curve(curve, f"value sensitivity ({segment})")
+    if not annual_discount_rates or not horizons_months:
+        raise ConfigError("value sensitivity", "needs at least one rate and one horizon",
+                          "pass annual_discount_rates and horizons_months")
+    for r in annual_discount_rates:
+        for hz in horizons_months:
+            _check_money(margin_per_month, float(r), int(hz), level)
+    hmax = int(max(horizons_months))
+    days = np.arange(1, hmax + 1, dtype=np.float64) * DAYS_PER_MONTH
+    s = curve.survival(days)
+    fns = curve.draws(n_draws, seed)
+    sd = np.array([np.asarray(f(days)) for f in fns]) if fns else None
+    rows = []
+    for r in annual_discount_rates:
+        factors = kd.discount_factors(kd.monthly_rate(float(r)), hmax)
+        cum = kd.cumulative_value(s, margin_per_month, factors)
+        cum_d = kd.cumulative_value(sd, margin_per_month, factors) if sd is not None else None
+        for hz in horizons_months:
+            lo, hi = (_interval(cum_d[:, hz - 1], level) if cum_d is not None
+                      else (math.nan, math.nan))
+            rows.append({"annual_discount_rate": float(r), "horizon_months": int(hz),
+                         "value": float(cum[hz - 1]), "lower": lo, "upper": hi})
+    return ValueSensitivity(curve=curve.label, segment=segment,
+                            margin_per_month=float(margin_per_month),
+                            table=pd.DataFrame(rows), level=level,
+                            interval_method=_interval_method(n_draws, level, bool(fns)))
+
+
+# ---------------------------------------------------------------- segments
+
+
+def segment_labels(table: StartStop, by: Sequence[str]) -> np.ndarray:
+    """One text label per row: the values of the ``by`` columns joined by " / "."""
+    if not by:
+        return np.full(table.n_rows, "all", dtype=object)
+    parts = []
+    for name in by:
+        col = table.column(name)
+        if isinstance(col, Categorical):
+            vals = col.values()
+            parts.append(np.where(pd.isna(vals), "(missing)", vals).astype(object))
+        else:
+            parts.append(np.array([("(missing)" if not math.isfinite(x) else f"{x:g}")
+                                   for x in col], dtype=object))
+    out = parts[0].astype(str).astype(object)
+    for p in parts[1:]:
+        out = out + " / " + p.astype(str)
+    return out
+
+
+def _margin_for_rows(table: StartStop, rows: np.ndarray, *, margin_per_month: float | None,
+                     margin_rate: float | None, price: str) -> tuple[np.ndarray, str]:
+    if margin_per_month is not None:
+        if margin_rate is not None:
+            raise ConfigError("[value]", "margin_per_month and margin_rate are both set",
+                              "keep one of them")
+        return np.full(rows.shape[0], float(margin_per_month)), \
+            f"margin_per_month = {margin_per_month:g}"
+    if margin_rate is None:
+        raise ConfigError("[value]", "neither margin_per_month nor margin_rate is set",
+                          "set margin_rate (share of the monthly price) or margin_per_month")
+    p = table.numeric(price)[rows]
+    bad = ~np.isfinite(p)
+    if bad.any():
+        raise DataError(f"{table.source}: column {price!r}",
+                        f"{int(bad.sum())} rows have no price", "fill the price or set "
+                        "margin_per_month in [value]")
+    return float(margin_rate) * p, f"margin_rate {margin_rate:g} x {price}"
+
+
+def _get(spec: Any, name: str, default: Any = None) -> Any:
+    if isinstance(spec, Mapping):
+        return spec.get(name, default)
+    return getattr(spec, name, default)
+
+
+def _residual_per_tenure(fn: DrawFn, tenure: np.ndarray, grid: np.ndarray,
+                         factors: np.ndarray) -> np.ndarray:
+    """``sum_k S(t + k) / S(t) v^k`` for each tenure (per unit margin)."""
+    s_now = np.asarray(fn(tenure))[:, None]
+    return kd.discounted_value(kd.conditional_survival(s_now, np.asarray(fn(grid))), 1.0, factors)
+
+
+def residual_value(
+    table: StartStop,
+    curves: SurvivalCurve | Mapping[str, SurvivalCurve],
+    *,
+    by: Sequence[str] = (),
+    margin_per_month: float | None = None,
+    margin_rate: float | None = None,
+    price: str = "price",
+    annual_discount_rate: float = 0.10,
+    horizon_months: int | None = 60,
+    as_of: str | None = None,
+    level: float = 0.95,
+    n_draws: int = DEFAULT_DRAWS,
+    seed: int = DEFAULT_SEED,
+) -> BaseValue:
+    """Residual value of the active base, by segment.
+
+    An active customer is the last row of a spell still open at the as-of
+    date (``churned = 0``). With tenure ``t`` and margin ``m`` (fixed, or
+    ``margin_rate`` x the price on that last row) the customer is worth
+
+        m * sum_{k=1}^{H} [S(t + k months) / S(t)] (1 + d)^-k,
+
+    the value conditioned on the tenure already survived. For the renewal
+    (sBG) curve and no horizon cap this is ``m * DERL / (1 + d)`` with DERL
+    from Fader & Hardie (2010, Marketing Science 29(1), eq. 6).
+
+    ``curves`` is one curve for everybody or a mapping segment label -> curve
+    (labels as :func:`segment_labels` makes them).
+    """
+    where = f"residual value ({table.source})"
+    if not table.has_customers:
+        raise DataError(where, "the table has no customer_id, so open spells cannot be told "
+                        "apart", "use the uncompressed start-stop table")
+    h = _check_money(0.0 if margin_per_month is None else margin_per_month,
+                     annual_discount_rate, horizon_months, level)
+    d = kd.monthly_rate(annual_discount_rate)
+    factors = kd.discount_factors(d, h)
+    active = np.flatnonzero(table.last_of_spell & (table.churned == 0))
+    if active.size == 0:
+        raise DataError(where, "no customer is active at the as-of date",
+                        "check the as-of date and the table")
+    labels = segment_labels(table, by)[active]
+    margins, basis = _margin_for_rows(table, active, margin_per_month=margin_per_month,
+                                      margin_rate=margin_rate, price=price)
+    tenure = table.stop[active]
+    weight = table.weight[active]
+    months = np.arange(1, h + 1, dtype=np.float64) * DAYS_PER_MONTH
+    segments: list[BaseSegment] = []
+    warnings: list[str] = []
+    any_draws = False
+    for seg in sorted(set(labels)):
+        if isinstance(curves, Mapping):
+            if seg not in curves:
+                warnings.append(f"segment {seg!r}: no curve, its "
+                                f"{float(weight[labels == seg].sum()):g} active customers "
+                                "are not valued")
+                continue
+            curve = curves[seg]
+        else:
+            curve = curves
+        _check_curve(curve, where)
+        mask = labels == seg
+        t_seg, w_seg, m_seg = tenure[mask], weight[mask], margins[mask]
+        uniq, inv = np.unique(t_seg, return_inverse=True)
+        wm = np.bincount(inv, w_seg * m_seg, uniq.shape[0])  # margin mass at each tenure
+        grid = uniq[:, None] + months[None, :]
+
+        closed = getattr(curve, "residual_months", None)
+        if horizon_months is None and closed is not None:
+            a = np.asarray(closed(uniq, d))
+            method = "closed form (DERL, Fader & Hardie 2010) / (1 + d)"
+        else:
+            a = _residual_per_tenure(curve.survival, uniq, grid, factors)
+            method = "sum over months of S(t + k) / S(t) x margin x discount"
+        total = float(wm @ a)
+        n_cust = float(w_seg.sum())
+        fns = curve.draws(n_draws, seed)
+        lo = hi = tlo = thi = math.nan
+        if fns:
+            any_draws = True
+            tot_d = np.array([wm @ _residual_per_tenure(f, uniq, grid, factors) for f in fns])
+            tlo, thi = _interval(tot_d, level)
+            lo, hi = tlo / n_cust, thi / n_cust
+        else:
+            warnings.append(f"segment {seg!r}: no interval, the {curve.label} curve offers "
+                            "no parameter draws")
+        extra, msg = _extrapolation(curve, float(uniq.max() + months[-1]))
+        if msg:
+            warnings.append(f"segment {seg!r}: {msg}")
+        segments.append(BaseSegment(
+            segment=seg, curve=curve.label, customers=n_cust, value_per_customer=total / n_cust,
+            lower=lo, upper=hi, total=total, total_lower=tlo, total_upper=thi,
+            mean_tenure_months=float(np.average(t_seg, weights=w_seg) / DAYS_PER_MONTH),
+            mean_margin_per_month=float(np.average(m_seg, weights=w_seg)),
+            extrapolated_months=extra, method=method))
+    return BaseValue(
+        by=tuple(by), segments=tuple(segments), margin_basis=basis,
+        annual_discount_rate=float(annual_discount_rate), monthly_discount_rate=d,
+        horizon_months=horizon_months, timing=TIMING, level=level,
+        interval_method=_interval_method(n_draws, level, any_draws), n_draws=n_draws,
+        as_of=as_of, warnings=tuple(warnings))
+
+
+# ---------------------------------------------------------------- finance export
+
+
+@dataclass(frozen=True)
+class FinanceExport(Result):
+    """The finance file pair of one run: rows, assumptions, caution, paths."""
+
+    csv_path: str
+    json_path: str
+    table: pd.DataFrame
+    assumptions: dict[str, Any] = field(default_factory=dict)
+    caution: str = CAUTION
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.table.copy()
+
+    def summary(self) -> str:
+        return f"Finance export: {len(self.table)} rows written to {self.csv_path}."
+
+
+EXPORT_COLUMNS = (
+    "figure", "segment", "customers", "value_per_customer", "lower", "upper", "total",
+    "total_lower", "total_upper", "interval_level", "interval_method", "curve",
+    "annual_discount_rate", "horizon_months", "margin_basis", "timing", "as_of", "caution",
+)
+
+
+def finance_export(
+    out_dir: str | Path,
+    *,
+    new_customers: SegmentValues | None = None,
+    base: BaseValue | None = None,
+    as_of: str | None = None,
+    stem: str = "finance_value",
+) -> FinanceExport:
+    """Write one CSV and one JSON with every value figure and its assumptions.
+
+    One row per (figure, segment): ``figure`` is ``new customer`` (value of a
+    new customer; ``total`` is blank) or ``active base`` (residual value;
+    ``total`` is the segment's sum). Every assumption is a column, and the
+    caution text is on every row and at the top of the JSON.
+    """
+    if new_customers is None and base is None:
+        raise ConfigError("finance export", "nothing to export",
+                          "pass new_customers and/or base")
+    rows: list[dict[str, Any]] = []
+    if new_customers is not None:
+        for v in new_customers.values:
+            rows.append({
+                "figure": "new customer", "segment": v.segment, "customers": v.customers,
+                "value_per_customer": v.value, "lower": v.lower, "upper": v.upper,
+                "total": math.nan, "total_lower": math.nan, "total_upper": math.nan,
+                "interval_level": v.level, "interval_method": v.interval_method,
+                "curve": v.curve, "annual_discount_rate": v.annual_discount_rate,
+                "horizon_months": v.horizon_months, "margin_basis": v.margin_basis,
+                "timing": v.timing, "as_of": as_of or new_customers.as_of,
+            })
+    if base is not None:
+        for s in base.segments:
+            rows.append({
+                "figure": "active base", "segment": s.segment, "customers": s.customers,
+                "value_per_customer": s.value_per_customer, "lower": s.lower, "upper": s.upper,
+                "total": s.total, "total_lower": s.total_lower, "total_upper": s.total_upper,
+                "interval_level": base.level, "interval_method": base.interval_method,
+                "curve": s.curve, "annual_discount_rate": base.annual_discount_rate,
+                "horizon_months": base.horizon_months, "margin_basis": base.margin_basis,
+                "timing": base.timing, "as_of": as_of or base.as_of,
+            })
+    for r in rows:
+        r["caution"] = CAUTION
+        if r["horizon_months"] is None:
+            r["horizon_months"] = "no cap"
+    table = pd.DataFrame(rows, columns=list(EXPORT_COLUMNS))
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    csv_path = out / f"{stem}.csv"
+    json_path = out / f"{stem}.json"
+    table.to_csv(csv_path, index=False, lineterminator="\n")
+    warnings = list(new_customers.warnings if new_customers else ()) + \
+        list(base.warnings if base else ())
+    if new_customers is not None:
+        for v in new_customers.values:
+            warnings.extend(f"{v.segment}: {w}" for w in v.warnings)
+    assumptions = {"as_of": as_of or (new_customers.as_of if new_customers else None) or
+                   (base.as_of if base else None), "timing": TIMING,
+                   "time_unit": f"month = {DAYS_PER_MONTH} days of tenure"}
+    doc = {"caution": CAUTION, "assumptions": assumptions, "warnings": warnings,
+           "rows": to_jsonable(table)}
+    json_path.write_text(json.dumps(doc, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+    return FinanceExport(csv_path=str(csv_path), json_path=str(json_path), table=table,
+                         assumptions=assumptions)
