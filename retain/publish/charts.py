@@ -95,16 +95,19 @@ def _series_scale(levels: list[str]) -> alt.Scale:
 def survival_chart(frame: pd.DataFrame, name: str, *, x: str = "month", y: str = "retention",
                    lower: str | None = "lower", upper: str | None = "upper",
                    series: str | None = None, x_title: str = "Months since start",
-                   y_title: str = "Still subscribed", y_zero: bool = True) -> dict[str, Any]:
+                   y_title: str = "Still subscribed", y_zero: bool = True,
+                   series_title: str | None = None) -> dict[str, Any]:
     """Step curves (right-continuous, as Kaplan–Meier is) with pointwise interval bands."""
     base = alt.Chart(_data(frame))
     enc_x = alt.X(f"{x}:Q", title=x_title)
     scale_y = alt.Scale(domain=[0, 1]) if y_zero else alt.Scale(zero=False)
     enc_y = alt.Y(f"{y}:Q", title=y_title, scale=scale_y, axis=alt.Axis(format="%"))
-    color: Any = alt.Undefined
+    band_color: Any = alt.value(PALETTE[0])
+    line_color: Any = alt.value(PALETTE[0])
     if series:
         levels = list(dict.fromkeys(frame[series].astype(str)))
-        color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series)
+        line_color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title)
+        band_color = alt.Color(f"{series}:N", scale=_series_scale(levels), legend=None)
     tip = [alt.Tooltip(f"{x}:Q", format=".1f")]
     if series:
         tip.insert(0, alt.Tooltip(f"{series}:N"))
@@ -112,9 +115,9 @@ def survival_chart(frame: pd.DataFrame, name: str, *, x: str = "month", y: str =
     layers = []
     if lower and upper:
         layers.append(base.mark_area(interpolate="step-after", opacity=0.18).encode(
-            x=enc_x, y=alt.Y(f"{lower}:Q", scale=scale_y), y2=f"{upper}:Q", color=color))
+            x=enc_x, y=alt.Y(f"{lower}:Q", scale=scale_y), y2=f"{upper}:Q", color=band_color))
     layers.append(base.mark_line(interpolate="step-after").encode(
-        x=enc_x, y=enc_y, color=color, tooltip=tip))
+        x=enc_x, y=enc_y, color=line_color, tooltip=tip))
     return finish(alt.layer(*layers).properties(height=HEIGHT), name)
 
 
@@ -222,10 +225,10 @@ def heat_chart(frame: pd.DataFrame, name: str, *, row: str, column: str, value: 
     base = alt.Chart(_data(shown))
     rect = base.mark_rect().encode(
         x=alt.X(f"{column}:O", title=column_title, axis=alt.Axis(labelAngle=0)),
-        y=alt.Y(f"{row}:O", sort=rows, title=row_title),
+        y=alt.Y(f"{row}:O", sort=rows, title=row_title or None),
         color=alt.Color(f"{value}:Q", title=value_title,
                         scale=alt.Scale(scheme="viridis", domain=[0, 1]),
-                        legend=alt.Legend(format="%", orient="right")),
+                        legend=alt.Legend(format="%", orient="right", titleLimit=200)),
         tooltip=[alt.Tooltip(f"{row}:O"), alt.Tooltip(f"{column}:O"),
                  alt.Tooltip(f"{value}:Q", format=".1%")])
     height = max(120, 16 * len(rows))

@@ -164,6 +164,7 @@ def build_site(
     _check_target(out)
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.building-", dir=out.parent))
+    os.chmod(tmp, 0o755)  # mkdtemp makes it private; a site is meant to be read
     try:
         _write_all(content, tmp, templates, progress)
     except Exception as exc:

@@ -1,0 +1,367 @@
+"""Turn one run's results into site pages (content only; no statistics computed here).
+
+Each ``*_page`` function reads the outcomes of :class:`retain.run.RunResults`
+and returns a :class:`~retain.publish.content.Page`. A failed or missing
+outcome becomes a section that shows its message. Numbers are only read from
+results and formatted; the one thing done here is to choose which points of a
+curve to show.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from retain.publish import charts
+from retain.publish.content import Fact, Figure, Page, Section, SiteContent, slug
+from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
+
+MONEY_CAUTIONS = (
+    "These are statistical estimates from past behaviour, shown with their uncertainty; "
+    "the future can differ, above all where a figure extrapolates past the observed tenures.",
+    "They are inputs to judgement, not accounting entries: the company's actuarial and "
+    "accounting standards, and licensed practitioners, decide how they may be used.",
+    "Reserving and pricing bases are for qualified actuaries to set under local standards.",
+)
+AT_RISK_MONTHS = (0, 3, 6, 12, 18, 24, 36)
+VIRIDIS = ("#440154", "#482878", "#3e4989", "#31688e", "#26828e", "#1f9e89", "#35b779",
+           "#6ece58", "#b5de2b", "#fde725")
+
+
+# --------------------------------------------------------------------------- formatting
+def pct(x: float | None, digits: int = 1) -> str:
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    return f"{100.0 * x:.{digits}f} %"
+
+
+def num(x: float | None, digits: int = 0) -> str:
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    return f"{x:,.{digits}f}"
+
+
+def months_text(days: float | None) -> str:
+    if days is None or not math.isfinite(days):
+        return "not reached"
+    return f"{days / DAYS_PER_MONTH:.1f} months"
+
+
+def interval_text(lo: float | None, hi: float | None, fmt: Callable[[float | None], str]) -> str:
+    return f"95 % interval {fmt(lo)} to {fmt(hi)}"
+
+
+def _f(x: Any) -> float:
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return math.nan
+    return v
+
+
+def failure_section(title: str, outcome: Any, intro: str = "") -> Section:
+    return Section(title=title, intro=intro, failure=getattr(outcome, "error", None)
+                   or "this part was not run")
+
+
+def _curve_points(curve: Any, label: str | None = None) -> pd.DataFrame:
+    """A curve's steps in months, starting at (0, 1)."""
+    t = np.concatenate(([0.0], np.asarray(curve.times, dtype=float)))
+    s = np.concatenate(([1.0], curve.survival))
+    lo = np.concatenate(([1.0], curve.lower))
+    hi = np.concatenate(([1.0], curve.upper))
+    frame = pd.DataFrame({"month": t / DAYS_PER_MONTH, "retention": s, "lower": lo, "upper": hi})
+    if label is not None:
+        frame.insert(0, "segment", label)
+    return frame
+
+
+def _curve_download(curve: Any, label: str) -> pd.DataFrame:
+    frame = curve.to_frame().rename(columns={"time": "day", "survival": "retention"})
+    frame.insert(0, "segment", label)
+    frame.insert(2, "month", frame["day"] / DAYS_PER_MONTH)
+    return frame
+
+
+def _at_risk_table(curves: Iterable[tuple[str, Any]]) -> pd.DataFrame:
+    rows = []
+    for label, c in curves:
+        d = np.array(AT_RISK_MONTHS, dtype=float) * DAYS_PER_MONTH
+        s = c.at(d)
+        lo, hi = c.interval_at(d)
+        n = c.at_risk_at(d)
+        for m, sv, a, b, k in zip(AT_RISK_MONTHS, s, lo, hi, n, strict=True):
+            seen = math.isfinite(sv)
+            rows.append({"segment": label, "month": m, "at_risk": float(k) if seen else math.nan,
+                         "retention": sv, "lower": a, "upper": b})
+    return pd.DataFrame(rows)
+
+
+def _heat_colours(values: np.ndarray) -> dict[str, Any]:
+    colours, inks = [], []
+    for row in values:
+        c_row, i_row = [""], [""]  # first column is the row label
+        for v in row:
+            if not math.isfinite(v):
+                c_row.append("")
+                i_row.append("")
+                continue
+            k = min(len(VIRIDIS) - 1, max(0, int(v * (len(VIRIDIS) - 1) + 0.5)))
+            c_row.append(VIRIDIS[k])
+            i_row.append("#ffffff" if k <= 5 else "#1e2a31")
+        colours.append(c_row)
+        inks.append(i_row)
+    return {"colours": colours, "inks": inks}
+
+
+# --------------------------------------------------------------------------- pages
+def overview_page(run: Any) -> Page:
+    book = run.get("book")
+    km = run.get("km")
+    facts: list[Fact] = []
+    sections: list[Section] = []
+    if book.ok:
+        b = book.value
+        facts += [
+            Fact("Customers", num(b.customers), f"{num(b.spells)} subscription spells",
+                 "customers", float(b.customers)),
+            Fact("Active now", num(b.active),
+                 f"open spells on {run.options.as_of or 'the as-of date'}",
+                 "active", float(b.active)),
+            Fact("Monthly churn", pct(b.monthly_churn_q, 2),
+                 f"{num(b.window_churns)} churns over {num(b.window_exposure_months)} "
+                 f"customer-months ({b.basis})", "monthly-churn", float(b.monthly_churn_q)),
+        ]
+    if km.ok:
+        c = km.value
+        med = c.median()
+        facts.append(Fact("Median lifetime", months_text(med.days),
+                          f"95 % interval {months_text(med.lower)} to {months_text(med.upper)}",
+                          "median-days", med.days))
+        s12 = float(c.at(DAYS_PER_YEAR)[0])
+        lo, hi = (float(x[0]) for x in c.interval_at(DAYS_PER_YEAR))
+        facts.append(Fact("Retained at 12 months", pct(s12),
+                          interval_text(lo, hi, pct) if math.isfinite(s12) else
+                          "not yet observed", "retention-12m", s12))
+    sections.append(Section(
+        "The book at a glance", facts=tuple(facts),
+        failure=None if (book.ok and km.ok) else (book.error or km.error)))
+    sections.append(_hazard_words(run))
+    if km.ok:
+        c = km.value
+        fig = Figure(
+            key="overview-retention", title="Retention of all customers",
+            guide="The line is the share of customers still subscribed after each month of "
+                  "tenure (Kaplan–Meier); the shaded band is its 95 % interval. A steep early "
+                  "drop means many leave soon after starting.",
+            chart=charts.survival_chart(_curve_points(c), "overview_retention"),
+            table=_at_risk_table([("all customers", c)]),
+            csv=_curve_download(c, "all customers"))
+        sections.append(Section("Retention curve", figures=(fig,)))
+    return Page("overview", "Overview", "How many customers stay, for how long, and what moves "
+                "the odds of leaving.", tuple(sections), nav_label="Overview")
+
+
+def _hazard_words(run: Any) -> Section:
+    cox = run.get("cox")
+    title = "What moves churn most"
+    if not cox.ok:
+        return failure_section(title, cox)
+    words = hazard_sentences(cox.value, 3)
+    return Section(title, intro="The three largest effects in the proportional-hazards model, "
+                   "each compared with its reference group and holding the others fixed:",
+                   bullets=tuple(words))
+
+
+def hazard_sentences(cox: Any, k: int) -> list[str]:  # filled when the Cox model lands
+    frame = hazard_frame(cox)
+    if frame.empty:
+        return []
+    order = np.argsort(-np.abs(np.log(frame["hazard_ratio"].to_numpy(dtype=float))),
+                       kind="stable")
+    out = []
+    for i in order[:k]:
+        r = frame.iloc[int(i)]
+        hr = float(r["hazard_ratio"])
+        more = "higher" if hr > 1 else "lower"
+        size = abs(hr - 1.0) if hr > 1 else 1.0 - hr
+        out.append(f"{r['term']}: churn risk {pct(size, 0)} {more} at any tenure "
+                   f"(hazard ratio {hr:.2f}, 95 % interval {float(r['lower']):.2f} to "
+                   f"{float(r['upper']):.2f}).")
+    return out
+
+
+def hazard_frame(cox: Any) -> pd.DataFrame:
+    """term, hazard_ratio, lower, upper, p_value from a Cox result (to_frame)."""
+    return cox.to_frame()
+
+
+def curves_page(run: Any) -> Page:
+    sections: list[Section] = []
+    km = run.get("km")
+    if km.ok:
+        c = km.value
+        sections.append(Section(
+            "All customers",
+            intro=c.summary() + ".",
+            figures=(Figure(
+                key="curves-all", title="Retention of all customers",
+                guide="Share still subscribed by months of tenure, with its 95 % interval "
+                      "band. The table gives the number still at risk at each tenure: where it "
+                      "is small, the curve rests on few customers.",
+                chart=charts.survival_chart(_curve_points(c), "curves_all"),
+                table=_at_risk_table([("all customers", c)]),
+                csv=_curve_download(c, "all customers")),)))
+    else:
+        sections.append(failure_section("All customers", km))
+    for seg in run.options.segments:
+        o = run.get(f"curves:{seg}")
+        title = f"By {seg}"
+        if not o.ok:
+            sections.append(failure_section(title, o))
+            continue
+        sc = o.value
+        pts = pd.concat([_curve_points(c, k) for k, c in sc.items()], ignore_index=True)
+        meds = [f"{k}: median {months_text(c.median().days)}" for k, c in sc.items()]
+        sections.append(Section(
+            title, intro=f"Each spell is placed by its {seg} at the start of the spell "
+            f"({sc.basis}). " + "; ".join(meds) + ".",
+            bullets=tuple(sc.warnings),
+            figures=(Figure(
+                key=f"curves-{slug(seg)}", title=f"Retention by {seg}",
+                guide=f"One line per {seg}; shaded bands are 95 % intervals. Lines that stay "
+                      "apart with bands that do not overlap point to a real difference. "
+                      "The table lists the number still at risk at chosen tenures.",
+                chart=charts.survival_chart(pts, f"curves_{slug(seg).replace('-', '_')}",
+                                            series="segment", series_title=seg),
+                table=_at_risk_table(sc.items()),
+                csv=pd.concat([_curve_download(c, k) for k, c in sc.items()],
+                              ignore_index=True)),)))
+    return Page("curves", "Retention curves", "Kaplan–Meier retention: the share of customers "
+                "still subscribed after each month of tenure, overall and by segment, with "
+                "delayed entry and censoring at the as-of date.", tuple(sections),
+                nav_label="Retention curves")
+
+
+def cohorts_page(run: Any) -> Page:
+    o = run.get("cohorts")
+    title = "Retention by signup cohort"
+    if not o.ok:
+        return Page("cohorts", "Cohorts", "Signup cohorts month by month.",
+                    (failure_section(title, o),))
+    ct = o.value
+    long = ct.to_frame()
+    wide = ct.retention_frame()
+    shown = wide.copy()
+    shown.columns = [f"m{c}" for c in shown.columns]
+    shown = shown.reset_index()
+    heat = _heat_colours(wide.to_numpy(dtype=float))
+    cells = np.isfinite(ct.retention)
+    fig = Figure(
+        key="cohorts-retention", title="Cohort × month retention",
+        guide="Each row is a signup month, each column a month of tenure; the colour is the "
+              "Kaplan–Meier share still subscribed. Read down a column to compare cohorts at "
+              "the same age. Blank cells cannot be observed yet: that cohort has not reached "
+              "that tenure by the as-of date.",
+        chart=charts.heat_chart(long[["cohort", "month", "retention"]], "cohorts_retention",
+                                row="cohort", column="month", value="retention",
+                                row_title="", column_title="Months since start",
+                                value_title="Retained"),
+        table=shown, csv=long, heat=heat, show_rows=len(shown))
+    facts = (Fact("Cohorts", num(len(ct.cohorts)), f"{ct.cohorts[0]} to {ct.cohorts[-1]}"
+                  if ct.cohorts else "", "cohorts", float(len(ct.cohorts))),
+             Fact("Observable cells", num(int(cells.sum())),
+                  f"of {cells.size}; the rest are not yet reached", "cohort-cells",
+                  float(cells.sum())))
+    return Page("cohorts", "Cohorts", "Retention of each signup month's customers by months "
+                "since start. Every cell is a Kaplan–Meier estimate, so customers still "
+                "subscribed count only for the months they were observed.",
+                (Section(title, facts=facts, bullets=tuple(ct.warnings), figures=(fig,)),),
+                nav_label="Cohorts")
+
+
+def quality_page(run: Any) -> Page:
+    t = run.table
+    sections: list[Section] = []
+    prepared = run.prepared
+    rec = getattr(prepared, "reconciliation", None) if prepared is not None else None
+    if rec is not None:
+        sections.append(_reconciliation_section(rec))
+    else:
+        sections.append(Section("Reconciliation", intro="This run started from a start-stop "
+                                "table prepared elsewhere, so there is no event-log "
+                                "reconciliation to show."))
+    quarantine = getattr(prepared, "quarantine", None) if prepared is not None else None
+    if quarantine is not None:
+        sections.append(_quarantine_section(quarantine))
+    cause_counts = t.cause.counts(t.weight * t.churned)
+    facts = (Fact("Start-stop rows", num(t.n_rows), "", "table-rows", float(t.n_rows)),
+             Fact("Customers", num(t.n_customers), "", "table-customers", float(t.n_customers)),
+             Fact("Churns", num(t.n_events), ", ".join(f"{k} {num(v)}" for k, v in
+                                                       cause_counts.items()),
+                  "table-churns", float(t.n_events)))
+    sections.append(Section("The start-stop table", intro="What the models were fitted on: one "
+                            "row per customer, spell and interval with constant attributes.",
+                            facts=facts))
+    return Page("quality", "Data quality", "Every input row is either used or set aside with a "
+                "reason; this page shows the count of each and a sample of the rows set aside.",
+                tuple(sections), nav_label="Data quality")
+
+
+def _as_frame(obj: Any) -> pd.DataFrame:
+    if isinstance(obj, pd.DataFrame):
+        return obj
+    if hasattr(obj, "to_frame"):
+        return obj.to_frame()
+    if hasattr(obj, "to_pandas"):
+        return obj.to_pandas()
+    if hasattr(obj, "df"):
+        return obj.df()
+    return pd.DataFrame(obj)
+
+
+def _reconciliation_section(rec: Any) -> Section:
+    frame = _as_frame(rec)
+    return Section("Reconciliation", intro=getattr(rec, "summary", lambda: "")() or "",
+                   figures=(Figure(key="quality-reconciliation",
+                                   title="Rows in, used and set aside",
+                                   guide="Rows read from the event log, by what happened to "
+                                         "them. Rows in = rows used + rows quarantined.",
+                                   table=frame, show_rows=len(frame)),))
+
+
+def _quarantine_section(quarantine: Any) -> Section:
+    frame = _as_frame(quarantine)
+    return Section("Quarantined rows (sample)", figures=(Figure(
+        key="quality-quarantine", title="Rows set aside",
+        guide="Rows that could not be used, with their original values and the reason. "
+              "Fix the source or the mapping in retain.toml and run again.",
+        table=frame, show_rows=30),))
+
+
+# --------------------------------------------------------------------------- the site
+PAGE_BUILDERS: tuple[Callable[[Any], Page], ...] = (
+    overview_page, curves_page, cohorts_page, quality_page,
+)
+
+
+def _build_page(builder: Callable[[Any], Page], run: Any) -> Page:
+    """A page, or, if assembling it fails, a page that says why (the site still builds)."""
+    try:
+        return builder(run)
+    except Exception as exc:  # noqa: BLE001 - one broken page must not hide the others
+        name = builder.__name__.removesuffix("_page")
+        return Page(name, name.replace("_", " ").capitalize(), "This page could not be assembled.",
+                    (Section("Error", failure=f"{type(exc).__name__}: {exc} -- this is a bug "
+                             "in retain; please report it"),))
+
+
+def site_content(run: Any) -> SiteContent:
+    """All pages for one run, in navigation order."""
+    pages = tuple(_build_page(builder, run) for builder in PAGE_BUILDERS)
+    return SiteContent(title=run.options.title, as_of=run.options.as_of, pages=pages,
+                       results=run.to_dict(), source=run.options.source)

@@ -1,0 +1,210 @@
+"""One run of the whole flow: prepare -> models -> decisions -> a results bundle.
+
+:func:`run_config` takes a loaded ``retain.toml`` (``retain.data.config``),
+prepares the start-stop table and runs every model and decision the config
+asks for; :func:`run_table` does the same from a start-stop table prepared
+elsewhere. Each model runs inside :func:`attempt`: a model that fails records
+its message in the bundle (and so on its site page) instead of stopping the
+run. The site builder reads the bundle and never fits anything itself.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import traceback
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from retain.data.table import StartStop
+from retain.errors import RetainError
+from retain.results import Result, to_jsonable
+from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
+
+
+@dataclass(frozen=True)
+class Outcome:
+    """What one step of the run produced: a value, or the message of its failure."""
+
+    name: str
+    value: Any = None
+    error: str | None = None
+    kind: str = ""  # "retain" for a RetainError, "internal" for any other exception
+
+    @property
+    def ok(self) -> bool:
+        return self.error is None
+
+    def to_dict(self) -> dict[str, Any]:
+        if not self.ok:
+            return {"error": self.error, "kind": self.kind}
+        return {"value": to_jsonable(self.value)}
+
+
+def attempt(name: str, step: Callable[[], Any]) -> Outcome:
+    """Run ``step``; a failure becomes an :class:`Outcome` carrying its message.
+
+    A :class:`~retain.errors.RetainError` is a model refusing with a reason (no
+    events, separation, no convergence): its one-line message is kept as is.
+    Any other exception is a bug; it is recorded as an internal error with the
+    last frame of its traceback so the page still builds and says so.
+    """
+    try:
+        return Outcome(name, step())
+    except RetainError as exc:
+        return Outcome(name, error=exc.message, kind="retain")
+    except Exception as exc:  # noqa: BLE001 - a bug must not take the site down
+        tb = traceback.extract_tb(exc.__traceback__)
+        at = f" (at {tb[-1].name}, {tb[-1].filename.rsplit('/', 1)[-1]}:{tb[-1].lineno})" \
+            if tb else ""
+        return Outcome(name, error=f"internal error {type(exc).__name__}: {exc}{at} -- "
+                       "this is a bug in retain; please report it", kind="internal")
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """What to run, in the config's terms (see CONFIG.md)."""
+
+    title: str = "Retention review"
+    source: str = "start-stop table"
+    as_of: str = ""
+    segments: tuple[str, ...] = ()
+    covariates: tuple[str, ...] = ()
+    strata: tuple[str, ...] = ()
+    reference: Mapping[str, str] = field(default_factory=dict)
+    value: Mapping[str, Any] = field(default_factory=dict)
+    experiments: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
+    cohort_months: int = 24
+
+
+@dataclass(frozen=True, eq=False)
+class RunResults(Result):
+    """The bundle one run produces: the table, its data-quality record, every outcome."""
+
+    options: RunOptions
+    table: StartStop
+    outcomes: dict[str, Outcome]
+    prepared: Any = None
+
+    def get(self, name: str) -> Outcome:
+        return self.outcomes.get(name, Outcome(name, error="this step was not run", kind="absent"))
+
+    def value(self, name: str) -> Any:
+        o = self.outcomes.get(name)
+        return None if o is None or not o.ok else o.value
+
+    def to_dict(self) -> dict[str, Any]:
+        opts = {f.name: to_jsonable(getattr(self.options, f.name))
+                for f in dataclasses.fields(self.options)}
+        return {"options": opts,
+                "table": {"rows": self.table.n_rows, "customers": self.table.n_customers,
+                          "churns": self.table.n_events},
+                "outcomes": {k: o.to_dict() for k, o in self.outcomes.items()}}
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([{"step": k, "ok": o.ok, "error": o.error or ""}
+                             for k, o in self.outcomes.items()])
+
+    def summary(self) -> str:
+        bad = [k for k, o in self.outcomes.items() if not o.ok]
+        return (f"run on {self.table.n_rows} rows: {len(self.outcomes)} steps, "
+                f"{len(bad)} failed" + (f" ({', '.join(bad)})" if bad else ""))
+
+
+# --------------------------------------------------------------------------- book facts
+@dataclass(frozen=True, eq=False)
+class BookSummary(Result):
+    """Counts that describe the book of customers (no model involved).
+
+    ``monthly_churn_rate`` is the crude central rate over the last
+    ``window_days`` of calendar time before the as-of date: churns in that
+    window divided by the customer-months of exposure in it; ``monthly_churn_q``
+    is the matching monthly probability 1 − exp(−m).
+    """
+
+    customers: int
+    spells: int
+    rows: int
+    churns: float
+    active: float
+    exposure_months: float
+    window_days: float
+    window_churns: float
+    window_exposure_months: float
+    monthly_churn_rate: float
+    monthly_churn_q: float
+    basis: str
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([self.to_dict()])
+
+    def summary(self) -> str:
+        return (f"{self.customers} customers, {self.active:g} active, monthly churn "
+                f"{self.monthly_churn_q:.2%}")
+
+
+def book_summary(table: StartStop, window_days: float = DAYS_PER_YEAR) -> BookSummary:
+    """Customers, active spells and the recent monthly churn rate of ``table``."""
+    last = table.last_of_spell
+    w = table.weight
+    active = float(w[last & (table.churned == 0)].sum())
+    spells = int(last.sum()) if table.has_customers else table.n_rows
+    exposure = float(np.dot(w, table.stop - table.start)) / DAYS_PER_MONTH
+    if table.start_date is not None:
+        day0 = table.start_date.astype("datetime64[D]").astype(np.int64).astype(np.float64)
+        a, b = day0 + table.start, day0 + table.stop
+        end = float(b.max())
+        lo = end - window_days
+        overlap = np.clip(np.minimum(b, end) - np.maximum(a, lo), 0.0, None)
+        w_exp = float(np.dot(w, overlap)) / DAYS_PER_MONTH
+        w_ch = float(w[(table.churned == 1) & (b > lo)].sum())
+        basis = f"last {window_days:g} days of calendar time"
+    else:
+        w_exp, w_ch = exposure, table.n_events
+        window_days = math.nan
+        basis = "whole table (no start dates)"
+    rate = w_ch / w_exp if w_exp > 0 else math.nan
+    return BookSummary(
+        customers=table.n_customers, spells=spells, rows=table.n_rows, churns=table.n_events,
+        active=active, exposure_months=exposure, window_days=float(window_days),
+        window_churns=w_ch, window_exposure_months=w_exp, monthly_churn_rate=rate,
+        monthly_churn_q=1.0 - math.exp(-rate) if math.isfinite(rate) else math.nan, basis=basis)
+
+
+# --------------------------------------------------------------------------- the run
+def run_table(table: StartStop, options: RunOptions, *, prepared: Any = None,
+              progress: Callable[[str], None] | None = None) -> RunResults:
+    """Run every model and decision on a prepared start-stop table.
+
+    Steps that need a module not present in this installation, or a column the
+    table lacks, record why in their outcome; the rest still run.
+    """
+    say = progress or (lambda _msg: None)
+    out: dict[str, Outcome] = {}
+
+    def step(name: str, fn: Callable[[], Any]) -> Outcome:
+        say(name)
+        out[name] = attempt(name, fn)
+        return out[name]
+
+    step("book", lambda: book_summary(table))
+    for name, fn in _model_steps(table, options, out):
+        step(name, fn)
+    return RunResults(options=options, table=table, outcomes=out, prepared=prepared)
+
+
+def _model_steps(table: StartStop, options: RunOptions,
+                 done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
+    from retain.models import curves
+
+    steps: list[tuple[str, Callable[[], Any]]] = [
+        ("km", lambda: curves.kaplan_meier(table)),
+    ]
+    for seg in options.segments:
+        steps.append((f"curves:{seg}", lambda seg=seg: curves.curves_by(table, seg)))
+    steps.append(("cohorts", lambda: curves.cohort_retention(table, months=options.cohort_months)))
+    return steps
