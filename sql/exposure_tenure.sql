@@ -1,0 +1,148 @@
+-- exposure_tenure: central exposure and churns by segment and tenure month.
+--
+-- Reads the view exposure_input(segment varchar, start double, stop double,
+-- churned integer, cause varchar, weight double) that the caller registers.
+-- Band k (k = 0, 1, ...) is tenure (k*D, (k+1)*D] days with D = $days_per_month.
+-- A row at risk on (start, stop] adds its overlap with each band (delayed
+-- entry: nothing before start); its churn falls in the band holding stop.
+-- Bands k >= $n_bands are left out (pass a large number for no limit).
+--
+-- No row is exploded into one row per band: each row adds its partial first
+-- and last band, and +weight / -weight at the ends of its run of full bands;
+-- a running sum over bands counts the full bands (a difference array).
+with rows_in as (
+    select
+        segment,
+        start,
+        least(stop, $n_bands * $days_per_month) as stop_in,
+        stop,
+        churned,
+        cause,
+        weight
+    from exposure_input
+    where start < $n_bands * $days_per_month
+),
+
+banded as (
+    select
+        *,
+        cast(floor(start / $days_per_month) as bigint) as first_band,
+        cast(ceil(stop_in / $days_per_month) - 1 as bigint) as last_band,
+        -- first band whose lower edge is >= start: in force from there
+        cast(ceil(start / $days_per_month) as bigint) as entry_band
+    from rows_in
+),
+
+at_first as (
+    select
+        segment,
+        first_band as band,
+        sum(weight * (least(stop_in, (first_band + 1) * $days_per_month) - start))
+            as exposure_days,
+        sum(case when last_band > first_band then weight else 0 end) as full_from_next
+    from banded
+    group by segment, first_band
+),
+
+at_last as (
+    select
+        segment,
+        last_band as band,
+        sum(case when last_band > first_band
+                 then weight * (stop_in - last_band * $days_per_month) else 0 end)
+            as exposure_days,
+        sum(case when last_band > first_band then weight else 0 end) as full_until,
+        sum(case when entry_band <= last_band then weight else 0 end) as leaving_after,
+        sum(case when churned = 1 and stop = stop_in then weight else 0 end) as churns,
+        sum(case when churned = 1 and stop = stop_in and cause = 'voluntary'
+                 then weight else 0 end) as churns_voluntary,
+        sum(case when churned = 1 and stop = stop_in and cause = 'involuntary'
+                 then weight else 0 end) as churns_involuntary
+    from banded
+    group by segment, last_band
+),
+
+at_entry as (
+    select
+        segment,
+        entry_band as band,
+        sum(weight) as entering
+    from banded
+    where entry_band <= last_band
+    group by segment, entry_band
+),
+
+-- every change, keyed by the band it applies to
+deltas as (
+    select segment, band, exposure_days, 0.0 as full_delta, 0.0 as force_delta,
+           0.0 as churns, 0.0 as churns_voluntary, 0.0 as churns_involuntary
+    from at_first
+    union all
+    select segment, band + 1, 0.0, full_from_next, 0.0, 0.0, 0.0, 0.0
+    from at_first
+    union all
+    select segment, band, exposure_days, -full_until, 0.0,
+           churns, churns_voluntary, churns_involuntary
+    from at_last
+    union all
+    select segment, band + 1, 0.0, 0.0, -leaving_after, 0.0, 0.0, 0.0
+    from at_last
+    union all
+    select segment, band, 0.0, 0.0, entering, 0.0, 0.0, 0.0
+    from at_entry
+),
+
+summed as (
+    select
+        segment,
+        band,
+        sum(exposure_days) as exposure_days,
+        sum(full_delta) as full_delta,
+        sum(force_delta) as force_delta,
+        sum(churns) as churns,
+        sum(churns_voluntary) as churns_voluntary,
+        sum(churns_involuntary) as churns_involuntary
+    from deltas
+    group by segment, band
+),
+
+grid as (
+    select
+        segments.segment,
+        bands.band
+    from (select distinct segment from summed) as segments
+    cross join (
+        select unnest(range(0, max(last_band) + 1)) as band from banded
+    ) as bands
+),
+
+final as (
+    select
+        grid.segment,
+        grid.band,
+        coalesce(summed.exposure_days, 0.0)
+            + $days_per_month * sum(coalesce(summed.full_delta, 0.0)) over running
+            as exposure_days,
+        sum(coalesce(summed.force_delta, 0.0)) over running as in_force,
+        coalesce(summed.churns, 0.0) as churns,
+        coalesce(summed.churns_voluntary, 0.0) as churns_voluntary,
+        coalesce(summed.churns_involuntary, 0.0) as churns_involuntary
+    from grid
+    left join summed
+        on summed.segment = grid.segment and summed.band = grid.band
+    window running as (
+        partition by grid.segment order by grid.band
+        rows between unbounded preceding and current row
+    )
+)
+
+select
+    cast(segment as varchar) as segment,
+    cast(band as bigint) as band,
+    cast(exposure_days as double) as exposure_days,
+    cast(in_force as double) as in_force,
+    cast(churns as double) as churns,
+    cast(churns_voluntary as double) as churns_voluntary,
+    cast(churns_involuntary as double) as churns_involuntary
+from final
+order by segment, band
