@@ -171,9 +171,10 @@ def _min_sum(v: np.ndarray, w: np.ndarray, x: np.ndarray) -> np.ndarray:
 
 def continued_rows(customer: np.ndarray, spell: np.ndarray, start: np.ndarray,
                    stop: np.ndarray) -> np.ndarray:
-    """Boolean mask: the row is followed by another row of the same (customer, spell).
+    """Boolean mask: the next row of the same (customer, spell) starts at this row's stop.
 
-    Such a row's stop is not a censoring but a change of covariates. O(n) when
+    Such a row's stop is not a censoring but a change of covariates. A gap
+    (next start > stop) or a duplicate row is not a continuation. O(n) when
     the rows are already ordered by customer, spell and start (as ``prepare``
     writes them); otherwise one ``lexsort``.
     """
@@ -186,13 +187,23 @@ def continued_rows(customer: np.ndarray, spell: np.ndarray, start: np.ndarray,
                           | ((customer[1:] == customer[:-1]) & (spell[1:] > spell[:-1]))
                           | (same & (start[1:] >= stop[:-1]))))
     if ordered:
-        out[:-1] = same
+        out[:-1] = same & (start[1:] == stop[:-1])
         return out
-    order = np.lexsort((start, spell, customer))
-    c, s = customer[order], spell[order]
-    nxt = np.zeros(n, dtype=bool)
-    nxt[:-1] = (c[1:] == c[:-1]) & (s[1:] == s[:-1])
-    out[order] = nxt
+    # general case (any order, duplicate rows): merge the stops and starts of
+    # each spell; a stop is continued if some row of its spell starts there
+    sid = customer.astype(np.int64) * (int(spell.max()) + 1) + spell.astype(np.int64)
+    keys = np.concatenate((sid, sid))
+    at = np.concatenate((stop, start))
+    is_entry = np.concatenate((np.zeros(n, dtype=bool), np.ones(n, dtype=bool)))
+    o = np.lexsort((is_entry, at, keys))
+    k, t, e = keys[o], at[o], is_entry[o]
+    new = np.ones(2 * n, dtype=bool)
+    new[1:] = (k[1:] != k[:-1]) | (t[1:] != t[:-1])
+    gid = np.cumsum(new) - 1
+    has_entry = np.zeros(int(gid[-1]) + 1, dtype=bool)
+    has_entry[gid[e]] = True
+    exits = ~e
+    out[o[exits]] = has_entry[gid[exits]]
     return out
 
 
