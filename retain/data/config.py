@@ -1,0 +1,642 @@
+"""retain.toml -> a frozen :class:`Config`, validated once.
+
+The file format is fixed (see DEVELOPERS.md, "The project file"). Every
+problem raises :class:`~retain.errors.ConfigError` naming the file, the
+section and key, the rule, and the allowed values. Paths are resolved
+relative to the toml file.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+import sys
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from retain.errors import ConfigError
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - Python 3.10 only
+    import tomli as tomllib
+
+#: Our event vocabulary, in the fixed order same-day events are applied.
+EVENTS = ("start", "update", "pause", "resume", "payment_failed", "payment_recovered", "end")
+CAUSES = ("voluntary", "involuntary")
+KINDS = ("categorical", "numeric")
+CURVES = ("weibull", "exponential", "cox", "km_weibull_tail", "renewal")
+FORMATS = ("csv", "parquet")
+#: Columns the start-stop table always has (an attribute may not take these names).
+CORE_OUTPUT = ("customer_id", "spell", "start", "stop", "churned", "cause", "weight",
+               "start_date", "cohort")
+DERIVED = ("in_recovery", "paused", "prior_spells")
+
+_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_MEMORY = re.compile(r"^\s*\d+(\.\d+)?\s*(B|KB|MB|GB|TB|KIB|MIB|GIB|TIB)\s*$", re.IGNORECASE)
+_COHORT = re.compile(r"^\d{4}-(0[1-9]|1[0-2])$")
+
+
+# ---------------------------------------------------------------------- sections
+@dataclass(frozen=True)
+class SourceConfig:
+    """Where the event log is: a file (or glob) or a table in a DuckDB file."""
+
+    path: Path | None
+    duckdb: Path | None
+    table: str | None
+    format: str  # "csv", "parquet" or "duckdb"
+
+    @property
+    def label(self) -> str:
+        if self.format == "duckdb":
+            return f"{self.duckdb} table {self.table}"
+        return str(self.path)
+
+
+@dataclass(frozen=True)
+class ColumnMap:
+    """Our column name -> the user's column name."""
+
+    customer_id: str
+    event_time: str
+    event: str
+    reason: str | None = None
+
+
+@dataclass(frozen=True)
+class EventMap:
+    map: Mapping[str, str]
+    ignore: tuple[str, ...] = ()
+    strict: bool = False
+
+
+@dataclass(frozen=True)
+class ReasonMap:
+    map: Mapping[str, str] = field(default_factory=dict)
+    ignore: tuple[str, ...] = ()
+    strict: bool = False
+
+
+@dataclass(frozen=True)
+class WindowConfig:
+    as_of: dt.date
+    start: dt.date | None = None
+    timezone: str = "UTC"
+
+
+@dataclass(frozen=True)
+class AttributeSpec:
+    name: str
+    column: str
+    kind: str  # "categorical" | "numeric"
+    varies: bool
+    ratio: bool = False
+
+    @property
+    def prefix(self) -> str:
+        """Column prefix the SQL steps use to find this attribute's group."""
+        if not self.varies:
+            return "sn__" if self.kind == "numeric" else "sc__"
+        if self.kind == "categorical":
+            return "vc__"
+        return "vr__" if self.ratio else "vn__"
+
+
+@dataclass(frozen=True)
+class SegmentsConfig:
+    by: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class ModelConfig:
+    covariates: tuple[str, ...] = ()
+    strata: tuple[str, ...] = ()
+    reference: Mapping[str, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class ValueConfig:
+    price: str | None = None
+    margin_rate: float | None = None
+    margin_per_month: float | None = None
+    annual_discount_rate: float = 0.10
+    horizon_months: int = 60
+    curve: str = "weibull"
+
+
+@dataclass(frozen=True)
+class ExperimentSpec:
+    name: str
+    arm: str
+    control: str
+    treatment: tuple[str, ...] | None = None
+    cohorts: tuple[str, ...] | None = None
+    signup_from: dt.date | None = None
+    signup_to: dt.date | None = None
+    horizon_days: int = 365
+    covariates: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class EngineConfig:
+    memory_limit: str = "4GB"
+    threads: int = 2
+    temp_directory: Path | None = None
+
+
+@dataclass(frozen=True)
+class OutputConfig:
+    dir: Path
+    compress: bool = False
+
+
+@dataclass(frozen=True)
+class Config:
+    """A validated retain.toml."""
+
+    path: Path
+    source: SourceConfig
+    columns: ColumnMap
+    events: EventMap
+    reasons: ReasonMap
+    window: WindowConfig
+    attributes: tuple[AttributeSpec, ...]
+    segments: SegmentsConfig
+    model: ModelConfig
+    value: ValueConfig
+    experiments: tuple[ExperimentSpec, ...]
+    engine: EngineConfig
+    output: OutputConfig
+
+    def attribute(self, name: str) -> AttributeSpec:
+        for a in self.attributes:
+            if a.name == name:
+                return a
+        raise KeyError(name)
+
+    @property
+    def output_columns(self) -> tuple[str, ...]:
+        """Columns of the start-stop table ``prepare`` writes, in order."""
+        return output_columns(self.attributes)
+
+
+def output_columns(attributes: tuple[AttributeSpec, ...]) -> tuple[str, ...]:
+    static = [a.name for a in attributes if not a.varies]
+    varying = [a.name for a in attributes if a.varies]
+    ratios = [f"{a.name}_ratio" for a in attributes if a.ratio]
+    return (*CORE_OUTPUT, *static, *varying, *ratios, *DERIVED)
+
+
+# ---------------------------------------------------------------------- reading
+class _Section:
+    """One table of the toml file; remembers the keys read so unknown ones are errors."""
+
+    def __init__(self, file: str, name: str, data: Any, allowed: tuple[str, ...]) -> None:
+        self.file = file
+        self.name = name
+        if not isinstance(data, dict):
+            raise ConfigError(f"{file}: [{name}]", "must be a table (a [section])",
+                              f"write it as [{name}] followed by key = value lines")
+        self.data = data
+        unknown = [k for k in data if k not in allowed]
+        if unknown:
+            raise ConfigError(f"{file}: [{name}]", f"unknown key {unknown[0]!r}",
+                              f"allowed keys: {', '.join(allowed)}")
+
+    def where(self, key: str) -> str:
+        return f"{self.file}: [{self.name}] {key}"
+
+    def has(self, key: str) -> bool:
+        return key in self.data
+
+    def _get(self, key: str, required: bool) -> Any:
+        if key not in self.data:
+            if required:
+                raise ConfigError(self.where(key), "is required",
+                                  f"add {key} = ... to [{self.name}]")
+            return None
+        return self.data[key]
+
+    def text(self, key: str, *, required: bool = False, default: str | None = None,
+             allowed: tuple[str, ...] | None = None) -> Any:
+        value = self._get(key, required)
+        if value is None:
+            return default
+        if not isinstance(value, str) or not value.strip():
+            raise ConfigError(self.where(key), f"must be a non-empty text, got {value!r}",
+                              'write it in quotes, e.g. key = "value"')
+        if allowed is not None and value not in allowed:
+            raise ConfigError(self.where(key), f"{value!r} is not allowed",
+                              f"allowed values: {', '.join(allowed)}")
+        return value
+
+    def boolean(self, key: str, default: bool) -> bool:
+        value = self._get(key, False)
+        if value is None:
+            return default
+        if not isinstance(value, bool):
+            raise ConfigError(self.where(key), f"must be true or false, got {value!r}",
+                              "write true or false without quotes")
+        return value
+
+    def number(self, key: str, *, default: float | None = None, low: float | None = None,
+               high: float | None = None, integer: bool = False, required: bool = False) -> Any:
+        value = self._get(key, required)
+        if value is None:
+            return default
+        ok = isinstance(value, int) if integer else isinstance(value, (int, float))
+        if isinstance(value, bool) or not ok:
+            kind = "a whole number" if integer else "a number"
+            raise ConfigError(self.where(key), f"must be {kind}, got {value!r}",
+                              "write it without quotes")
+        if (low is not None and value < low) or (high is not None and value > high):
+            span = f"between {low:g} and {high:g}" if low is not None and high is not None \
+                else (f">= {low:g}" if low is not None else f"<= {high:g}")
+            raise ConfigError(self.where(key), f"must be {span}, got {value!r}",
+                              "choose a value in that range")
+        return int(value) if integer else float(value)
+
+    def texts(self, key: str, *, default: tuple[str, ...] | None = ()) -> Any:
+        value = self._get(key, False)
+        if value is None:
+            return default
+        if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+            raise ConfigError(self.where(key), f"must be a list of texts, got {value!r}",
+                              'write it as ["a", "b"]')
+        return tuple(value)
+
+    def mapping(self, key: str) -> dict[str, str]:
+        value = self._get(key, False)
+        if value is None:
+            return {}
+        if not isinstance(value, dict) or not all(isinstance(v, str) for v in value.values()):
+            raise ConfigError(self.where(key), f"must be a table of text values, got {value!r}",
+                              'write it as { their_value = "our_value", ... }')
+        return {str(k): v for k, v in value.items()}
+
+    def date(self, key: str, *, required: bool = False) -> dt.date | None:
+        value = self._get(key, required)
+        if value is None:
+            return None
+        if isinstance(value, dt.datetime):
+            value = value.date()
+        if isinstance(value, dt.date):
+            return value
+        if isinstance(value, str):
+            try:
+                return dt.date.fromisoformat(value.strip())
+            except ValueError:
+                pass
+        raise ConfigError(self.where(key), f"{value!r} is not a date",
+                          'write it as "YYYY-MM-DD", e.g. "2026-11-30"')
+
+
+def _timezones() -> frozenset[str]:
+    import duckdb
+
+    con = duckdb.connect()
+    try:
+        rows = con.execute("select name from pg_timezone_names()").fetchall()
+        return frozenset(r[0] for r in rows)
+    finally:
+        con.close()
+
+
+_SECTIONS = ("source", "columns", "events", "reasons", "window", "attributes", "segments",
+             "model", "value", "experiments", "engine", "output")
+
+
+def load_config(path: str | Path) -> Config:
+    """Read and validate a retain.toml file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The toml file. Relative paths inside it are relative to its folder.
+
+    Returns
+    -------
+    Config
+        Frozen, validated configuration.
+
+    Raises
+    ------
+    ConfigError
+        Naming the file, section and key, the rule and the allowed values.
+    """
+    path = Path(path)
+    file = str(path)
+    if not path.is_file():
+        raise ConfigError(file, "file not found", "give the path of your retain.toml")
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(file, f"is not valid TOML ({exc})",
+                          "fix the syntax at that line") from exc
+    except UnicodeDecodeError as exc:
+        raise ConfigError(file, "is not UTF-8 text", "save the file as UTF-8") from exc
+    return parse_config(data, path)
+
+
+def parse_config(data: dict[str, Any], path: Path) -> Config:
+    """Validate an already-parsed toml document (``path`` names it and anchors paths)."""
+    file = str(path)
+    base = path.resolve().parent
+    unknown = [k for k in data if k not in _SECTIONS]
+    if unknown:
+        raise ConfigError(file, f"unknown section [{unknown[0]}]",
+                          f"allowed sections: {', '.join(_SECTIONS)}")
+    for required in ("source", "columns", "events", "window"):
+        if required not in data:
+            raise ConfigError(file, f"section [{required}] is required",
+                              f"add a [{required}] section (see DEVELOPERS.md)")
+
+    source = _source(_Section(file, "source", data["source"],
+                              ("path", "duckdb", "table", "format")), base)
+    columns = _columns(_Section(file, "columns", data["columns"],
+                                ("customer_id", "event_time", "event", "reason")))
+    events = _events(_Section(file, "events", data["events"], ("map", "ignore", "strict")))
+    reasons = _reasons(_Section(file, "reasons", data.get("reasons", {}),
+                                ("map", "ignore", "strict")), events.strict)
+    window = _window(_Section(file, "window", data["window"], ("as_of", "start", "timezone")))
+    attributes = _attributes(file, data.get("attributes", {}), columns)
+    names = set(output_columns(attributes))
+    categorical = {a.name for a in attributes if a.kind == "categorical"} | {"cohort"}
+    segments = _segments(_Section(file, "segments", data.get("segments", {}), ("by",)), names)
+    model = _model(_Section(file, "model", data.get("model", {}),
+                            ("covariates", "strata", "reference")), names, categorical)
+    value = _value(_Section(file, "value", data.get("value", {}),
+                            ("price", "margin_rate", "margin_per_month", "annual_discount_rate",
+                             "horizon_months", "curve")), attributes)
+    experiments = _experiments(file, data.get("experiments", {}), attributes, names)
+    engine = _engine(_Section(file, "engine", data.get("engine", {}),
+                              ("memory_limit", "threads", "temp_directory")), base)
+    output = _output(_Section(file, "output", data.get("output", {}), ("dir", "compress")), base)
+    return Config(path=path, source=source, columns=columns, events=events, reasons=reasons,
+                  window=window, attributes=attributes, segments=segments, model=model,
+                  value=value, experiments=experiments, engine=engine, output=output)
+
+
+def _source(s: _Section, base: Path) -> SourceConfig:
+    p = s.text("path")
+    db = s.text("duckdb")
+    table = s.text("table")
+    fmt = s.text("format", allowed=FORMATS)
+    if p is None and db is None:
+        raise ConfigError(s.where("path"), "is required (or duckdb + table)",
+                          'add path = "events.csv" or duckdb = "file.duckdb" and table = "events"')
+    if p is not None and db is not None:
+        raise ConfigError(s.where("duckdb"), "give either path or duckdb, not both",
+                          "remove one of them")
+    if db is not None:
+        if table is None:
+            raise ConfigError(s.where("table"), "is required with duckdb",
+                              'add table = "the table holding the events"')
+        if fmt is not None:
+            raise ConfigError(s.where("format"), "does not apply to a DuckDB table",
+                              "remove format")
+        dbpath = (base / db).resolve()
+        if not dbpath.is_file():
+            raise ConfigError(s.where("duckdb"), f"file not found: {dbpath}", "fix the path")
+        if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)?", table):
+            raise ConfigError(s.where("table"), f"{table!r} is not a plain table name",
+                              "use letters, digits and _ (optionally schema.table)")
+        return SourceConfig(path=None, duckdb=dbpath, table=table, format="duckdb")
+    if table is not None:
+        raise ConfigError(s.where("table"), "only applies with duckdb = ...",
+                          "remove table or add duckdb")
+    full = base / p
+    if fmt is None:
+        low = p.lower()
+        if low.endswith((".csv", ".csv.gz", ".tsv", ".txt", ".csv.zst")):
+            fmt = "csv"
+        elif low.endswith((".parquet", ".pq")):
+            fmt = "parquet"
+        else:
+            raise ConfigError(s.where("path"), f"cannot tell the format of {p!r}",
+                              f'add format = one of: {", ".join(FORMATS)}')
+    if not any(ch in p for ch in "*?[") and not full.is_file():
+        raise ConfigError(s.where("path"), f"file not found: {full}", "fix the path")
+    if any(ch in p for ch in "*?[") and not list(full.parent.glob(full.name)):
+        raise ConfigError(s.where("path"), f"no file matches {full}", "fix the pattern")
+    return SourceConfig(path=full, duckdb=None, table=None, format=fmt)
+
+
+def _columns(s: _Section) -> ColumnMap:
+    c = ColumnMap(customer_id=s.text("customer_id", required=True),
+                  event_time=s.text("event_time", required=True),
+                  event=s.text("event", required=True),
+                  reason=s.text("reason"))
+    seen: dict[str, str] = {}
+    for ours in ("customer_id", "event_time", "event", "reason"):
+        theirs = getattr(c, ours)
+        if theirs is None:
+            continue
+        if theirs in seen:
+            raise ConfigError(s.where(ours), f"column {theirs!r} is already mapped to "
+                              f"{seen[theirs]}", "map each of our columns to a different column")
+        seen[theirs] = ours
+    return c
+
+
+def _events(s: _Section) -> EventMap:
+    m = s.mapping("map")
+    if not m:
+        raise ConfigError(s.where("map"), "is required and must not be empty",
+                          'add map = { signup = "start", cancel = "end", ... }')
+    for theirs, ours in m.items():
+        if ours not in EVENTS:
+            raise ConfigError(s.where(f"map.{theirs}"), f"{ours!r} is not an event of ours",
+                              f"allowed values: {', '.join(EVENTS)}")
+    for needed in ("start", "end"):
+        if needed not in m.values():
+            raise ConfigError(s.where("map"), f"no event maps to {needed!r}",
+                              f"map the value that marks a spell's {needed} onto {needed!r}")
+    ignore = s.texts("ignore")
+    both = sorted(set(ignore) & set(m))
+    if both:
+        raise ConfigError(s.where("ignore"), f"{both[0]!r} is both mapped and ignored",
+                          "remove it from one of map and ignore")
+    return EventMap(map=m, ignore=ignore, strict=s.boolean("strict", False))
+
+
+def _reasons(s: _Section, strict_default: bool) -> ReasonMap:
+    m = s.mapping("map")
+    for theirs, ours in m.items():
+        if ours not in CAUSES:
+            raise ConfigError(s.where(f"map.{theirs}"), f"{ours!r} is not a cause",
+                              f"allowed values: {', '.join(CAUSES)}")
+    ignore = s.texts("ignore")
+    both = sorted(set(ignore) & set(m))
+    if both:
+        raise ConfigError(s.where("ignore"), f"{both[0]!r} is both mapped and ignored",
+                          "remove it from one of map and ignore")
+    return ReasonMap(map=m, ignore=ignore, strict=s.boolean("strict", strict_default))
+
+
+def _window(s: _Section) -> WindowConfig:
+    as_of = s.date("as_of", required=True)
+    start = s.date("start")
+    tz = s.text("timezone", default="UTC")
+    if start is not None and start > as_of:
+        raise ConfigError(s.where("start"), f"{start} is after as_of {as_of}",
+                          "the observation window must start on or before as_of")
+    zones = _timezones()
+    if tz not in zones:
+        near = sorted(z for z in zones if z.lower().startswith(tz.split("/")[0].lower()))[:5]
+        hint = f" (e.g. {', '.join(near)})" if near else ""
+        raise ConfigError(s.where("timezone"), f"unknown time zone {tz!r}",
+                          f"use an IANA name such as UTC or Europe/London{hint}")
+    return WindowConfig(as_of=as_of, start=start, timezone=tz)
+
+
+def _attributes(file: str, data: Any, columns: ColumnMap) -> tuple[AttributeSpec, ...]:
+    if not isinstance(data, dict):
+        raise ConfigError(f"{file}: [attributes]", "must hold [attributes.<name>] tables",
+                          "write [attributes.plan] with kind and varies")
+    reserved = set(CORE_OUTPUT) | set(DERIVED) | {"event_time", "event", "reason", "source_row"}
+    used = {columns.customer_id, columns.event_time, columns.event, columns.reason} - {None}
+    out: list[AttributeSpec] = []
+    taken: set[str] = set()
+    for name, body in data.items():
+        s = _Section(file, f"attributes.{name}", body, ("kind", "varies", "column", "ratio"))
+        if not _NAME.match(name):
+            raise ConfigError(f"{file}: [attributes.{name}]", f"{name!r} is not a usable name",
+                              "start with a letter; use letters, digits and _")
+        if name in reserved:
+            raise ConfigError(f"{file}: [attributes.{name}]", f"{name!r} is a reserved column",
+                              f"rename it; reserved: {', '.join(sorted(reserved))}")
+        kind = s.text("kind", required=True, allowed=KINDS)
+        if "varies" not in body:
+            raise ConfigError(s.where("varies"), "is required",
+                              "true = time-varying (update events change it); false = static")
+        varies = s.boolean("varies", False)
+        column = s.text("column", default=name)
+        ratio = s.boolean("ratio", False)
+        if ratio and not (kind == "numeric" and varies):
+            raise ConfigError(s.where("ratio"), "needs kind = \"numeric\" and varies = true",
+                              "a ratio to the spell's first value only changes if the value does")
+        if column in used:
+            raise ConfigError(s.where("column"), f"column {column!r} is already mapped in "
+                              "[columns]", "an attribute needs a column of its own")
+        if f"{name}_ratio" in taken or (ratio and f"{name}_ratio" in data):
+            raise ConfigError(s.where("ratio"), f"{name}_ratio clashes with another attribute",
+                              "rename one of them")
+        taken.add(name)
+        out.append(AttributeSpec(name=name, column=column, kind=kind, varies=varies, ratio=ratio))
+    return tuple(out)
+
+
+def _known(s: _Section, key: str, values: tuple[str, ...], names: set[str]) -> None:
+    for v in values:
+        if v not in names:
+            raise ConfigError(s.where(key), f"{v!r} is not a column of the start-stop table",
+                              f"allowed values: {', '.join(sorted(names))}")
+
+
+def _segments(s: _Section, names: set[str]) -> SegmentsConfig:
+    by = s.texts("by")
+    _known(s, "by", by, names)
+    return SegmentsConfig(by=by)
+
+
+def _model(s: _Section, names: set[str], categorical: set[str]) -> ModelConfig:
+    covs = s.texts("covariates")
+    strata = s.texts("strata")
+    allowed = names - {"customer_id", "spell", "start", "stop", "churned", "cause", "weight",
+                       "start_date"}
+    _known(s, "covariates", covs, allowed)
+    _known(s, "strata", strata, allowed)
+    ref = s.mapping("reference")
+    for k in ref:
+        if k not in categorical:
+            raise ConfigError(s.where(f"reference.{k}"), f"{k!r} is not a categorical column",
+                              f"allowed keys: {', '.join(sorted(categorical))}")
+    return ModelConfig(covariates=covs, strata=strata, reference=ref)
+
+
+def _value(s: _Section, attributes: tuple[AttributeSpec, ...]) -> ValueConfig:
+    numeric = [a.name for a in attributes if a.kind == "numeric"]
+    price = s.text("price")
+    if price is not None and price not in numeric:
+        raise ConfigError(s.where("price"), f"{price!r} is not a numeric attribute",
+                          "allowed values: "
+                          + (", ".join(numeric) or "(declare a numeric attribute)"))
+    rate = s.number("margin_rate", low=0.0, high=1.0)
+    per_month = s.number("margin_per_month", low=0.0)
+    if rate is not None and per_month is not None:
+        raise ConfigError(s.where("margin_per_month"), "give margin_rate or margin_per_month, "
+                          "not both", "remove one of them")
+    if rate is not None and price is None:
+        raise ConfigError(s.where("margin_rate"), "needs price = the attribute holding the "
+                          "monthly price", "add price = \"price\"")
+    return ValueConfig(price=price, margin_rate=rate, margin_per_month=per_month,
+                       annual_discount_rate=s.number("annual_discount_rate", default=0.10,
+                                                     low=0.0, high=1.0),
+                       horizon_months=s.number("horizon_months", default=60, low=1, high=600,
+                                               integer=True),
+                       curve=s.text("curve", default="weibull", allowed=CURVES))
+
+
+def _experiments(file: str, data: Any, attributes: tuple[AttributeSpec, ...],
+                 names: set[str]) -> tuple[ExperimentSpec, ...]:
+    if not isinstance(data, dict):
+        raise ConfigError(f"{file}: [experiments]", "must hold [experiments.<name>] tables",
+                          "write [experiments.my_test] with arm and control")
+    cats = {a.name for a in attributes if a.kind == "categorical"}
+    out = []
+    for name, body in data.items():
+        s = _Section(file, f"experiments.{name}", body,
+                     ("arm", "control", "treatment", "cohorts", "signup_from", "signup_to",
+                      "horizon_days", "covariates"))
+        arm = s.text("arm", required=True)
+        if arm not in cats:
+            raise ConfigError(s.where("arm"), f"{arm!r} is not a categorical attribute",
+                              f"allowed values: {', '.join(sorted(cats)) or '(none declared)'}")
+        control = s.text("control", required=True)
+        treatment = s.texts("treatment", default=None)
+        if treatment is not None and control in treatment:
+            raise ConfigError(s.where("treatment"), f"{control!r} is also the control",
+                              "list only the treatment arms")
+        cohorts = s.texts("cohorts", default=None)
+        for c in cohorts or ():
+            if not _COHORT.match(c):
+                raise ConfigError(s.where("cohorts"), f"{c!r} is not a cohort",
+                                  'write cohorts as "YYYY-MM"')
+        lo, hi = s.date("signup_from"), s.date("signup_to")
+        if cohorts is not None and (lo is not None or hi is not None):
+            raise ConfigError(s.where("cohorts"), "give cohorts or signup_from/signup_to, not both",
+                              "remove one of them")
+        if cohorts is None and (lo is None or hi is None):
+            raise ConfigError(s.where("cohorts"), "is required (or signup_from and signup_to)",
+                              'add cohorts = ["2025-03"]')
+        if lo is not None and hi is not None and lo > hi:
+            raise ConfigError(s.where("signup_to"), f"{hi} is before signup_from {lo}",
+                              "swap them")
+        covs = s.texts("covariates")
+        _known(s, "covariates", covs, names)
+        out.append(ExperimentSpec(name=name, arm=arm, control=control, treatment=treatment,
+                                  cohorts=cohorts, signup_from=lo, signup_to=hi,
+                                  horizon_days=s.number("horizon_days", default=365, low=1,
+                                                        integer=True),
+                                  covariates=covs))
+    return tuple(out)
+
+
+def _engine(s: _Section, base: Path) -> EngineConfig:
+    mem = s.text("memory_limit", default="4GB")
+    if not _MEMORY.match(mem):
+        raise ConfigError(s.where("memory_limit"), f"{mem!r} is not a memory size",
+                          'write it like "4GB" or "512MB"')
+    threads = s.number("threads", default=2, low=1, high=1024, integer=True)
+    tmp = s.text("temp_directory")
+    return EngineConfig(memory_limit=mem.replace(" ", ""), threads=threads,
+                        temp_directory=None if tmp is None else (base / tmp).resolve())
+
+
+def _output(s: _Section, base: Path) -> OutputConfig:
+    d = s.text("dir", default="retain_out")
+    return OutputConfig(dir=(base / d).resolve(), compress=s.boolean("compress", False))

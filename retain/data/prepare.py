@@ -1,0 +1,379 @@
+"""From a raw event log to the start-stop table, in DuckDB.
+
+:func:`prepare` runs the SQL steps in ``sql/`` by name (see DEVELOPERS.md,
+"Preparation rules"):
+
+``import_*``  the log as text (CSV, Parquet or a DuckDB table) -> ``raw``
+``normalise`` our column names, the day in the configured zone, our events,
+              typed attributes, row-level quarantine reasons  -> ``events``
+``sequence``  rows out of order for their customer            -> ``sequence_problems``
+``spells``    every used event with its customer's state      -> ``spells``
+``intervals`` the start-stop rows                             -> ``start_stop``
+``compress``  optional: identical rows collapsed with a weight
+``quarantine``, ``reconcile``, ``unknown_events``: what became of every row.
+
+The log is never loaded into pandas; results come back as Arrow tables.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import duckdb
+import pandas as pd
+import pyarrow as pa
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+
+from retain.data.config import Config
+from retain.data.sqlsteps import run_step
+from retain.data.table import StartStop
+from retain.errors import DataError, ReconciliationError
+from retain.results import Result
+
+#: progress(step, rows, seconds): called after each step.
+Progress = Callable[[str, int, float], None]
+
+_GROUPS = ("sc__", "sn__", "vc__", "vn__", "vr__")
+
+
+# ---------------------------------------------------------------------- results
+@dataclass(frozen=True)
+class Reconciliation(Result):
+    """What became of every input row; ``rows_in`` = the sum of the lines.
+
+    Lines (``outcome``, ``reason``, ``n_rows``): ``used`` (an event of a spell in
+    the window), ``outside window`` (an event of a spell that ended on or before
+    the window's first day), ``ignored`` (an event value listed in
+    ``[events] ignore``) and ``quarantined`` by reason.
+    """
+
+    source: str
+    rows_in: int
+    used: int
+    outside_window: int
+    ignored: int
+    quarantined: int
+    by_reason: dict[str, int]
+    n_customers: int
+    n_spells: int
+    n_intervals: int
+    n_churns: int
+    churns_by_cause: dict[str, int] = field(default_factory=dict)
+
+    def to_frame(self) -> pd.DataFrame:
+        rows = [("rows in", "", self.rows_in), ("used", "", self.used),
+                ("outside window", "", self.outside_window), ("ignored", "", self.ignored)]
+        rows += [("quarantined", reason, n) for reason, n in sorted(self.by_reason.items())]
+        return pd.DataFrame(rows, columns=["outcome", "reason", "n_rows"])
+
+    def summary(self) -> str:
+        q = ", ".join(f"{r}: {n}" for r, n in sorted(self.by_reason.items())) or "none"
+        return (f"{self.rows_in} rows read from {self.source}: {self.used} used, "
+                f"{self.outside_window} outside the window, {self.ignored} ignored, "
+                f"{self.quarantined} quarantined ({q}). Start-stop table: {self.n_intervals} "
+                f"rows, {self.n_customers} customers, {self.n_spells} spells, "
+                f"{self.n_churns} churns.")
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """Everything :func:`prepare` produces."""
+
+    table: StartStop
+    arrow: pa.Table
+    quarantine: pa.Table
+    reconciliation: Reconciliation
+    unknown_events: dict[str, int]
+    config: Config
+    compressed: pa.Table | None = None
+
+
+# ---------------------------------------------------------------------- helpers
+def _ident(name: str) -> str:
+    """A column name as a quoted SQL identifier (names cannot be bound parameters)."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def _literal(text: str) -> str:
+    """A validated setting value as an SQL string literal (SET takes no parameters)."""
+    return "'" + text.replace("'", "''") + "'"
+
+
+def connect(config: Config) -> duckdb.DuckDBPyConnection:
+    """An in-memory DuckDB connection with the engine settings of ``config``."""
+    eng = config.engine
+    settings: dict[str, Any] = {"memory_limit": eng.memory_limit, "threads": eng.threads,
+                                "preserve_insertion_order": True}
+    if eng.temp_directory is not None:
+        eng.temp_directory.mkdir(parents=True, exist_ok=True)
+        settings["temp_directory"] = str(eng.temp_directory)
+    con = duckdb.connect(config=settings)
+    # the zone was checked against DuckDB's own list when the config was read
+    con.execute(f"set TimeZone = {_literal(config.window.timezone)}")
+    return con
+
+
+class _Timer:
+    def __init__(self, con: duckdb.DuckDBPyConnection, progress: Progress | None) -> None:
+        self.con = con
+        self.progress = progress
+        self.times: dict[str, float] = {}
+
+    def run(self, step: str, fn: Callable[[], Any], table: str | None = None) -> Any:
+        t0 = time.perf_counter()
+        out = fn()
+        dt = time.perf_counter() - t0
+        self.times[step] = dt
+        if self.progress is not None:
+            if table is not None:
+                rows = self.con.execute(f"select count(*) from {table}").fetchall()[0][0]
+            else:
+                rows = out.num_rows if isinstance(out, pa.Table) else 0
+            self.progress(step, int(rows), dt)
+        return out
+
+
+def _import(con: duckdb.DuckDBPyConnection, config: Config) -> None:
+    src = config.source
+    try:
+        if src.format == "duckdb":
+            con.execute(f"attach {_literal(str(src.duckdb))} as user_db (read_only)")
+            parts = src.table.split(".")
+            con.execute("create or replace view source_table as select * from user_db."
+                        + ".".join(_ident(p) for p in parts))
+            run_step(con, "import_table", create="raw")
+        elif src.format == "parquet":
+            run_step(con, "import_parquet", {"path": str(src.path)}, create="raw")
+        else:
+            run_step(con, "import_csv", {"path": str(src.path)}, create="raw")
+    except duckdb.Error as exc:
+        first = str(exc).strip().splitlines()[0]
+        raise DataError(src.label, f"cannot be read as {src.format} ({first})",
+                        "check the file and [source] in retain.toml") from exc
+
+
+def _source_view(con: duckdb.DuckDBPyConnection, config: Config) -> None:
+    """Name the user's columns in our words (the only place their names appear)."""
+    found = [r[0] for r in con.execute("describe raw").fetchall()]
+    cols = config.columns
+    wanted = [("customer_id", cols.customer_id, "[columns] customer_id"),
+              ("event_time", cols.event_time, "[columns] event_time"),
+              ("event", cols.event, "[columns] event")]
+    if cols.reason is not None:
+        wanted.append(("reason", cols.reason, "[columns] reason"))
+    for a in config.attributes:
+        wanted.append((a.prefix + a.name, a.column, f"[attributes.{a.name}] column"))
+    for _, theirs, key in wanted:
+        if theirs not in found:
+            raise DataError(f"{config.source.label}", f"has no column {theirs!r} (named by "
+                            f"{key} in {config.path})",
+                            f"columns found: {', '.join(found)}")
+    select = ["rowid + 1 as source_row"]
+    select += [f"{_ident(theirs)} as {_ident(ours)}" for ours, theirs, _ in wanted]
+    if cols.reason is None:
+        select.append("cast(null as varchar) as reason")
+    select += [f"cast(null as varchar) as {g}0" for g in _GROUPS]
+    con.execute("create or replace view source_events as select " + ", ".join(select)
+                + " from raw")
+
+
+def _params(config: Config) -> dict[str, Any]:
+    ev, rs = config.events, config.reasons
+    return {
+        "timezone": config.window.timezone,
+        "as_of": config.window.as_of,
+        "window_start": config.window.start,
+        "event_from": list(ev.map), "event_to": list(ev.map.values()),
+        "event_ignore": list(ev.ignore),
+        "reason_from": list(rs.map), "reason_to": list(rs.map.values()),
+        "reason_ignore": list(rs.ignore),
+    }
+
+
+def _public_names(table: pa.Table) -> pa.Table:
+    """Strip the SQL steps' group prefixes; drop the placeholders."""
+    keep, names = [], []
+    for i, name in enumerate(table.column_names):
+        base = name
+        if base.startswith("ratio__"):
+            base = base[len("ratio__"):]
+            if base[4:] == "0":
+                continue
+            names.append(base[4:] + "_ratio")
+            keep.append(i)
+            continue
+        if base[:4] in _GROUPS:
+            if base[4:] == "0":
+                continue
+            base = base[4:]
+        names.append(base)
+        keep.append(i)
+    return table.select(keep).rename_columns(names)
+
+
+def _strict_checks(con: duckdb.DuckDBPyConnection, config: Config) -> None:
+    if config.events.strict:
+        rows = run_step(con, "unknown_events").fetchall()
+        if rows:
+            listed = ", ".join(f"{v!r} ({n} rows)" for v, n in rows[:10])
+            raise DataError(f"{config.source.label} column {config.columns.event!r}",
+                            f"unknown event values: {listed}",
+                            f"map them in [events] map or list them in [events] ignore "
+                            f"in {config.path}")
+    if config.reasons.strict:
+        rows = con.execute("select e.source_row from events as e where e.reason = "
+                           "'unknown churn reason' limit 1").fetchall()
+        if rows:
+            vals = con.execute(
+                "select distinct s.reason from source_events as s inner join events as e "
+                "on s.source_row = e.source_row where e.reason = 'unknown churn reason' "
+                "order by 1 limit 10").fetchall()
+            raise DataError(f"{config.source.label} column {config.columns.reason!r}",
+                            "unknown churn reasons: " + ", ".join(repr(v[0]) for v in vals),
+                            f"map them in [reasons] map or list them in [reasons] ignore "
+                            f"in {config.path}")
+
+
+def _reconcile(con: duckdb.DuckDBPyConnection, config: Config, table: pa.Table) -> Reconciliation:
+    rows_in = int(con.execute("select count(*) from raw").fetchall()[0][0])
+    lines = run_step(con, "reconcile").fetchall()
+    by_reason: dict[str, int] = {}
+    counts = {"used": 0, "outside window": 0, "ignored": 0}
+    for outcome, reason, n in lines:
+        if outcome == "quarantined":
+            by_reason[reason] = by_reason.get(reason, 0) + int(n)
+        else:
+            counts[outcome] += int(n)
+    quarantined = sum(by_reason.values())
+    total = counts["used"] + counts["outside window"] + counts["ignored"] + quarantined
+    if total != rows_in:
+        raise ReconciliationError(
+            config.source.label,
+            f"rows in ({rows_in}) != used ({counts['used']}) + outside window "
+            f"({counts['outside window']}) + ignored ({counts['ignored']}) + quarantined "
+            f"({quarantined})", "this is a bug in retain: please report it with the log")
+    spells, customers = con.execute(
+        "select count(*), count(distinct customer_id) from "
+        "(select distinct customer_id, spell from start_stop)").fetchall()[0]
+    churn_rows = con.execute("select cause, count(*) from start_stop where churned = 1 "
+                             "group by cause order by cause").fetchall()
+    by_cause = {c: int(n) for c, n in churn_rows}
+    return Reconciliation(source=config.source.label, rows_in=rows_in, used=counts["used"],
+                          outside_window=counts["outside window"], ignored=counts["ignored"],
+                          quarantined=quarantined, by_reason=by_reason,
+                          n_customers=int(customers), n_spells=int(spells),
+                          n_intervals=table.num_rows, n_churns=sum(by_cause.values()),
+                          churns_by_cause=by_cause)
+
+
+# ---------------------------------------------------------------------- entry points
+def prepare(config: Config, *, progress: Progress | None = None,
+            compress: bool | None = None) -> Prepared:
+    """Turn the event log that ``config`` describes into the start-stop table.
+
+    Parameters
+    ----------
+    config : Config
+        From :func:`retain.data.config.load_config`.
+    progress : callable, optional
+        ``progress(step, rows, seconds)`` after each step (the CLI prints it).
+    compress : bool, optional
+        Also build the compressed table (default: ``[output] compress``).
+
+    Returns
+    -------
+    Prepared
+        The start-stop table (as :class:`StartStop` and Arrow), the quarantine,
+        the reconciliation and the unknown event values.
+
+    Raises
+    ------
+    DataError
+        The log cannot be read, a mapped column is missing, strict mode found
+        unknown values, or no spell is left.
+    ReconciliationError
+        Rows in != used + outside window + ignored + quarantined (a bug).
+    """
+    compress = config.output.compress if compress is None else compress
+    con = connect(config)
+    try:
+        timer = _Timer(con, progress)
+        params = _params(config)
+        timer.run("import", lambda: _import(con, config), "raw")
+        _source_view(con, config)
+        timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
+                  "events")
+        _strict_checks(con, config)
+        timer.run("sequence", lambda: run_step(con, "sequence", params,
+                                               create="sequence_problems"), "sequence_problems")
+        timer.run("spells", lambda: run_step(con, "spells", params, create="spells"), "spells")
+        timer.run("intervals", lambda: run_step(con, "intervals", params, create="start_stop"),
+                  "start_stop")
+        raw_table = con.table("start_stop").to_arrow_table()
+        arrow = _public_names(raw_table)
+        quarantine = timer.run("quarantine", lambda: run_step(con, "quarantine").to_arrow_table())
+        unknown = {v: int(n) for v, n in run_step(con, "unknown_events").fetchall()}
+        reconciliation = _reconcile(con, config, arrow)
+        compressed = None
+        if compress:
+            compressed = timer.run("compress", lambda: _public_names(
+                run_step(con, "compress").to_arrow_table()))
+    finally:
+        con.close()
+    if arrow.num_rows == 0:
+        raise DataError(config.source.label, "no spell of any customer lies in the window: "
+                        + reconciliation.summary(),
+                        "check [events] map, [window] and the quarantine reasons")
+    table = StartStop.from_arrow(arrow, source=f"start-stop table of {config.source.label}")
+    return Prepared(table=table, arrow=arrow, quarantine=quarantine,
+                    reconciliation=reconciliation, unknown_events=unknown, config=config,
+                    compressed=compressed)
+
+
+def compress_table(arrow: pa.Table) -> pa.Table:
+    """Collapse identical rows of a start-stop Arrow table into one with a weight.
+
+    ``customer_id``, ``spell`` and ``start_date`` are dropped first. Runs the
+    ``compress`` SQL step on an in-memory DuckDB connection.
+    """
+    con = duckdb.connect()
+    try:
+        con.register("start_stop", arrow)
+        return run_step(con, "compress").to_arrow_table()
+    finally:
+        con.close()
+
+
+def write_outputs(prepared: Prepared, out_dir: str | Path) -> dict[str, Path]:
+    """Write the start-stop table, quarantine and reconciliation into ``out_dir``.
+
+    Files: ``start_stop.parquet`` (and ``start_stop_compressed.parquet`` when
+    compressed), ``quarantine.parquet`` and ``quarantine.csv``,
+    ``reconciliation.csv`` and ``reconciliation.json``.
+    """
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    paths = {
+        "start_stop": out / "start_stop.parquet",
+        "quarantine": out / "quarantine.parquet",
+        "quarantine_csv": out / "quarantine.csv",
+        "reconciliation_csv": out / "reconciliation.csv",
+        "reconciliation_json": out / "reconciliation.json",
+    }
+    pq.write_table(prepared.arrow, paths["start_stop"])
+    if prepared.compressed is not None:
+        paths["start_stop_compressed"] = out / "start_stop_compressed.parquet"
+        pq.write_table(prepared.compressed, paths["start_stop_compressed"])
+    pq.write_table(prepared.quarantine, paths["quarantine"])
+    pacsv.write_csv(prepared.quarantine, paths["quarantine_csv"])
+    prepared.reconciliation.to_csv(paths["reconciliation_csv"])
+    doc = prepared.reconciliation.to_dict()
+    doc["unknown_events"] = prepared.unknown_events
+    paths["reconciliation_json"].write_text(json.dumps(doc, indent=2) + "\n", encoding="utf-8")
+    return paths

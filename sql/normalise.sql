@@ -1,0 +1,108 @@
+-- normalise: one row per input row, in our words.
+--
+-- Reads the view `source_events` that prepare.py defines over the imported log:
+--   source_row, customer_id, event_time, event, reason  (text)
+--   one text column per attribute, named by group:
+--     sc__<name> static categorical   sn__<name> static numeric
+--     vc__<name> varying categorical  vn__<name> varying numeric
+--     vr__<name> varying numeric with a ratio to its spell-start value
+--   and a null placeholder <group>0 for each group (so every group exists).
+-- Produces: typed columns, the calendar day in the configured zone, our event,
+-- its same-day rank, the cause given by the reason, and `reason` = the first
+-- row-level quarantine reason (null = usable so far). Ignored events are kept
+-- with ignored = true so the reconciliation can count them.
+-- Parameters: $timezone, $as_of, $event_from, $event_to, $event_ignore,
+--             $reason_from, $reason_to, $reason_ignore.
+with imported as (
+    select
+        source_row,
+        customer_id,
+        -- a time without an offset is a wall-clock time in the session zone,
+        -- which prepare.py sets to $timezone
+        try_cast(nullif(trim(event_time), '') as timestamptz) as event_ts,
+        nullif(trim(event), '') as event_raw,
+        nullif(trim(reason), '') as reason_raw,
+        nullif(trim(columns('^([sv]c__.*)$')), '') as '\1',
+        nullif(trim(columns('^([sv][nr]__.*)$')), '') as 'text__\1'
+    from source_events
+),
+
+typed as (
+    select
+        *,
+        try_cast(columns('^text__(.*)$') as double) as '\1',
+        (columns('^text__(.*)$') is not null
+            and not coalesce(isfinite(try_cast(columns('^text__(.*)$') as double)), false))
+            as 'bad__\1'
+    from imported
+),
+
+mapped as (
+    select
+        *,
+        cast(timezone($timezone, event_ts) as date) as day,
+        cast($event_to as varchar[])[list_position(cast($event_from as varchar[]), event_raw)]
+            as event,
+        coalesce(list_contains(cast($event_ignore as varchar[]), event_raw), false) as ignored,
+        case
+            when list_contains(cast($reason_ignore as varchar[]), reason_raw) then null
+            else cast($reason_to as varchar[])[
+                list_position(cast($reason_from as varchar[]), reason_raw)]
+        end as cause_given,
+        reason_raw is not null
+            and not list_contains(cast($reason_ignore as varchar[]), reason_raw)
+            and not list_contains(cast($reason_from as varchar[]), reason_raw) as reason_unknown,
+        greatest(*columns('^bad__')) as bad_number
+    from typed
+),
+
+flagged as (
+    select
+        *,
+        case
+            when ignored then null
+            when customer_id is null or trim(customer_id) = '' then 'missing id'
+            when event_ts is null then 'unparseable time'
+            when event is null then 'unknown event'
+            when day > $as_of then 'time after the as-of date'
+            when bad_number then 'non-numeric value in a numeric attribute'
+            when event = 'end' and reason_unknown then 'unknown churn reason'
+        end as row_reason
+    from mapped
+),
+
+deduplicated as (
+    select
+        *,
+        -- exact duplicates: identical in every column retain reads; the first
+        -- (lowest source row) is kept
+        row_number() over (
+            partition by ignored, row(customer_id, event_ts, event_raw, reason_raw,
+                                      *columns('^([sv]c|text)__'))
+            order by source_row
+        ) as copy_number
+    from flagged
+),
+
+final as (
+    select
+        cast(source_row as bigint) as source_row,
+        cast(customer_id as varchar) as customer_id,
+        cast(day as date) as day,
+        cast(event_raw as varchar) as event_raw,
+        cast(event as varchar) as event,
+        cast(list_position(['start', 'update', 'pause', 'resume', 'payment_failed',
+                            'payment_recovered', 'end'], event) - 1 as integer) as event_rank,
+        cast(cause_given as varchar) as cause_given,
+        cast(ignored as boolean) as ignored,
+        cast(case
+            when ignored then null
+            when row_reason is not null then row_reason
+            when copy_number > 1 then 'exact duplicate'
+        end as varchar) as reason,
+        cast(columns('^([sv]c__.*)$') as varchar) as '\1',
+        cast(columns('^[sv][nr]__.*$') as double)
+    from deduplicated
+)
+
+select * from final
