@@ -1,0 +1,187 @@
+"""The ``retain`` command line.
+
+Each command is a small function registered in :data:`COMMANDS` with the
+function that declares its arguments; :func:`main` builds the parser from that
+table, runs the command and turns a :class:`~retain.errors.RetainError` into
+one line on stderr (exit code 2; the traceback only with ``--debug``).
+
+To add a command, write ``def _cmd_x(args) -> int`` and
+``def _args_x(parser)``, then ``register("x", "what it does", _args_x, _cmd_x)``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+from retain.errors import RetainError
+
+EXIT_ERROR = 2
+
+
+@dataclass(frozen=True)
+class Command:
+    name: str
+    help: str
+    add_arguments: Callable[[argparse.ArgumentParser], None]
+    run: Callable[[argparse.Namespace], int]
+
+
+COMMANDS: dict[str, Command] = {}
+
+
+def register(name: str, help: str, add_arguments: Callable[[argparse.ArgumentParser], None],
+             run: Callable[[argparse.Namespace], int]) -> None:
+    """Add (or replace) a command in the table :func:`main` reads."""
+    COMMANDS[name] = Command(name, help, add_arguments, run)
+
+
+# ---------------------------------------------------------------------- shared helpers
+def stderr_progress(args: argparse.Namespace) -> Callable[[str, int, float], None] | None:
+    """A progress callback that prints step, rows and seconds to stderr (None if --quiet)."""
+    if getattr(args, "quiet", False):
+        return None
+
+    def show(step: str, rows: int, seconds: float) -> None:
+        print(f"  {step:<11} {rows:>12,} rows {seconds:8.2f} s", file=sys.stderr, flush=True)
+
+    return show
+
+
+def print_reconciliation(prepared) -> None:  # noqa: ANN001 - retain.data.prepare.Prepared
+    """The reconciliation table and every unknown event value, on stdout."""
+    rec = prepared.reconciliation
+    frame = rec.to_frame()
+    labels = [f"{o}: {r}" if r else o for o, r, _ in frame.itertuples(index=False)]
+    width = max(len(label) for label in labels) + 2
+    print(f"Reconciliation of {rec.source}")
+    for label, n in zip(labels, frame.n_rows, strict=True):
+        print(f"  {label:<{width}} {n:>12,}")
+    print(f"Start-stop table: {rec.n_intervals:,} rows, {rec.n_customers:,} customers, "
+          f"{rec.n_spells:,} spells, {rec.n_churns:,} churns"
+          + (" (" + ", ".join(f"{c} {n:,}" for c, n in rec.churns_by_cause.items()) + ")"
+             if rec.churns_by_cause else ""))
+    if prepared.unknown_events:
+        print("Unknown event values (map them in [events] map or list them in [events] ignore):")
+        for value, n in prepared.unknown_events.items():
+            print(f"  {value!r}: {n:,} rows")
+
+
+def _prepare(args: argparse.Namespace, config_path: Path):  # noqa: ANN202
+    from retain.data.config import load_config
+    from retain.data.prepare import prepare
+
+    config = load_config(config_path)
+    return prepare(config, progress=stderr_progress(args))
+
+
+def _write(prepared, out: Path) -> None:  # noqa: ANN001
+    from retain.data.prepare import write_outputs
+
+    paths = write_outputs(prepared, out)
+    for key, path in paths.items():
+        print(f"wrote {key}: {path}")
+
+
+# ---------------------------------------------------------------------- commands
+def _args_config(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("config", type=Path, help="the project's retain.toml")
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    prepared = _prepare(args, args.config)
+    print_reconciliation(prepared)
+    return 0
+
+
+def _args_prepare(parser: argparse.ArgumentParser) -> None:
+    _args_config(parser)
+    parser.add_argument("--out", type=Path, default=None,
+                        help="folder for the tables (default: [output] dir in retain.toml)")
+
+
+def _cmd_prepare(args: argparse.Namespace) -> int:
+    prepared = _prepare(args, args.config)
+    print_reconciliation(prepared)
+    _write(prepared, args.out or prepared.config.output.dir)
+    return 0
+
+
+def _args_demo(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--out", type=Path, default=Path("retain_demo"),
+                        help="folder for the demo's outputs (default: ./retain_demo)")
+
+
+def demo_config_path() -> Path:
+    from retain.paths import DEMO_DIR
+
+    path = DEMO_DIR / "retain.toml"
+    if not path.is_file():
+        raise RetainError(str(path), "the demo project file is missing",
+                          "reinstall retain from its repository (demo_data/ holds the demo)")
+    return path
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    prepared = _prepare(args, demo_config_path())
+    print_reconciliation(prepared)
+    _write(prepared, args.out)
+    return 0
+
+
+register("check", "validate retain.toml and the event log; print the reconciliation",
+         _args_config, _cmd_check)
+register("prepare", "write the start-stop table, quarantine and reconciliation",
+         _args_prepare, _cmd_prepare)
+register("demo", "run on the invented demo business (Quillfern)", _args_demo, _cmd_demo)
+
+
+# ---------------------------------------------------------------------- main
+def build_parser() -> argparse.ArgumentParser:
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                        help="show the traceback of an error")
+    common.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS,
+                        help="no progress lines on stderr")
+    parser = argparse.ArgumentParser(
+        prog="retain", parents=[common],
+        description="Survival analysis of a subscription business's event log.")
+    sub = parser.add_subparsers(dest="command", metavar="command")
+    sub.required = True
+    for cmd in COMMANDS.values():
+        p = sub.add_parser(cmd.name, help=cmd.help, description=cmd.help, parents=[common])
+        cmd.add_arguments(p)
+        p.set_defaults(_run=cmd.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run one command; return its exit code (0 ok, 2 error)."""
+    parser = build_parser()
+    args = parser.parse_args(list(argv) if argv is not None else None)
+    debug = getattr(args, "debug", False)
+    try:
+        return int(args._run(args) or 0)
+    except RetainError as exc:
+        if debug:
+            traceback.print_exc()
+        print(f"retain: {exc.message}", file=sys.stderr)
+        return EXIT_ERROR
+    except KeyboardInterrupt:
+        print("retain: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a bug: still one line unless --debug
+        if debug:
+            traceback.print_exc()
+        first = (str(exc).strip().splitlines() or [""])[0]
+        print(f"retain: internal error ({type(exc).__name__}: {first}) -- this is a bug in "
+              "retain; rerun with --debug and report the traceback", file=sys.stderr)
+        return EXIT_ERROR
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
