@@ -1,0 +1,737 @@
+r"""Cox proportional-hazards churn model on start-stop data.
+
+:func:`fit_cox` validates the table and options, codes the covariates
+(:mod:`retain.models.design`), builds the risk-set index once, maximises the
+log partial likelihood with Newton–Raphson (:mod:`retain.kernels.cox`) and
+returns a frozen :class:`CoxFit`.
+
+Conventions: intervals are (start, stop] in days of tenure (a row entering at
+:math:`t` is not at risk at :math:`t`); delayed entry is the row's start;
+case weights count rows (the compressed table gives the full table's fit);
+Efron ties by default. Robust (sandwich) errors are clustered by customer
+(Lin & Wei 1989, JASA 84:1074), because one customer contributes many rows.
+
+Prediction uses the Breslow (1972) baseline cumulative hazard of each
+stratum, :math:`\hat H_0(t) = \sum_{t_k\le t} D_k / \sum_{R_k} w_i e^{\eta_i}`,
+held at the column means of the design (centred, as is usual); retention for
+a profile :math:`x` is :math:`\exp\{-\hat H_0(t)\,e^{(x-\bar x)^\top\hat\beta}\}`.
+The baseline is flat after the last observed churn of a stratum, so any
+figure that reaches past it is flagged as extrapolated.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from retain.data.table import Categorical, StartStop
+from retain.errors import ConvergenceError, DataError, ModelError
+from retain.kernels import cox as K
+from retain.models.design import Design, design_matrix
+from retain.results import Result, to_jsonable
+from retain.units import DAYS_PER_MONTH
+
+TIES = ("efron", "breslow")
+#: events per parameter below which a warning is attached (common practice: ~10)
+MIN_EVENTS_PER_PARAMETER = 10.0
+#: |coefficient| x (column sd) above which a fit is flagged as (quasi-)separated
+SEPARATION_SIZE = 15.0
+
+
+# --------------------------------------------------------------------------- results
+@dataclass(frozen=True, eq=False)
+class TestStat(Result):
+    """A chi-square test: statistic, degrees of freedom, p-value."""
+
+    name: str
+    statistic: float
+    df: int
+    p_value: float
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([self.to_dict()])
+
+    def summary(self) -> str:
+        return f"{self.name}: chi2 = {self.statistic:.3f} on {self.df} df, p = {self.p_value:.3g}"
+
+
+def _chi2(name: str, stat: float, df: int) -> TestStat:
+    p = float(stats.chi2.sf(stat, df)) if np.isfinite(stat) and df > 0 else float("nan")
+    return TestStat(name, float(stat), int(df), p)
+
+
+@dataclass(frozen=True, eq=False)
+class ProportionalHazardsTest(Result):
+    """Grambsch–Therneau (1994) test of proportional hazards, per term and global."""
+
+    transform: str
+    table: pd.DataFrame          # term, chi2, df, p_value (one row per column, per term, global)
+    residuals: pd.DataFrame      # time, g(time), weight, then one scaled Schoenfeld column each
+    n_events: float
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.table
+
+    def summary(self) -> str:
+        glob = self.table[self.table["term"] == "GLOBAL"].iloc[0]
+        worst = self.table[self.table["term"] != "GLOBAL"].sort_values("p_value").iloc[0]
+        return (f"Proportional-hazards test ({self.transform} time): global chi2 = "
+                f"{glob['chi2']:.2f} on {int(glob['df'])} df, p = {glob['p_value']:.3g}; "
+                f"smallest p for {worst['term']} ({worst['p_value']:.3g}).")
+
+
+@dataclass(frozen=True, eq=False)
+class Concordance(Result):
+    """Harrell's C on start-stop data with its pair counts (weighted)."""
+
+    c_index: float
+    concordant: float
+    discordant: float
+    tied_risk: float
+    comparable: float
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([self.to_dict()])
+
+    def summary(self) -> str:
+        return (f"Concordance (Harrell's C) = {self.c_index:.3f} over {self.comparable:.0f} "
+                "comparable pairs judged among those at risk at each churn time.")
+
+
+@dataclass(frozen=True, eq=False)
+class RemainingLifetime(Result):
+    """Expected tenure still to come, up to a horizon, for one covariate profile."""
+
+    days: float
+    months: float
+    from_tenure: float
+    horizon: float
+    stratum: str
+    last_churn_time: float
+    extrapolated: bool
+    note: str
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([self.to_dict()])
+
+    def summary(self) -> str:
+        return (f"Expected remaining lifetime from tenure {self.from_tenure:g} to {self.horizon:g} "
+                f"days: {self.days:.1f} days ({self.months:.2f} months). {self.note}").strip()
+
+
+_PRIVATE = ("design", "_index", "_Xc", "_weight", "_churned", "_offset", "_stratum", "_dH0",
+            "_table", "_cluster")
+
+
+@dataclass(frozen=True, eq=False)
+class CoxFit(Result):
+    """A fitted Cox model: estimates with their context, prediction and diagnostics.
+
+    ``se`` is the standard error the z, p and intervals use: robust (clustered
+    by customer) when ``robust`` is True, model-based otherwise; both are kept.
+    """
+
+    covariates: tuple[str, ...]
+    columns: tuple[str, ...]
+    labels: tuple[str, ...]
+    reference: dict[str, str]
+    coef: np.ndarray
+    se: np.ndarray
+    se_model: np.ndarray
+    se_robust: np.ndarray
+    cov_model: np.ndarray
+    cov_robust: np.ndarray
+    z: np.ndarray
+    p_value: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    conf: float
+    ties: str
+    strata: tuple[str, ...]
+    stratum_labels: tuple[str, ...]
+    penalty: float
+    robust: bool
+    robust_clusters: str
+    n_rows: int
+    n_customers: int
+    n_events: float
+    events_per_parameter: float
+    loglik: float
+    loglik_null: float
+    lr_test: TestStat
+    wald_test: TestStat
+    score_test: TestStat
+    aic: float
+    iterations: int
+    history: tuple[tuple, ...]
+    warnings: tuple[str, ...]
+    source: str
+    design: Design = field(repr=False)
+    _index: K.RiskIndex = field(repr=False)
+    _Xc: np.ndarray = field(repr=False)
+    _weight: np.ndarray = field(repr=False)
+    _churned: np.ndarray = field(repr=False)
+    _offset: np.ndarray | None = field(repr=False)
+    _stratum: np.ndarray = field(repr=False)
+    _dH0: np.ndarray = field(repr=False)
+    _table: StartStop = field(repr=False)
+    _cluster: np.ndarray = field(repr=False)
+
+    # ---------------------------------------------------------------- conversion
+    def to_dict(self) -> dict[str, Any]:
+        out = {f.name: to_jsonable(getattr(self, f.name)) for f in dataclasses.fields(self)
+               if f.name not in _PRIVATE}
+        out["hazard_ratios"] = to_jsonable(self.hazard_ratios)
+        return out
+
+    @property
+    def hazard_ratio(self) -> np.ndarray:
+        return np.exp(self.coef)
+
+    @property
+    def hazard_ratios(self) -> pd.DataFrame:
+        """One row per coefficient: what it compares, HR and its interval, SEs, z, p."""
+        return pd.DataFrame({
+            "term": list(self.labels),
+            "column": list(self.columns),
+            "coef": self.coef,
+            "hazard_ratio": np.exp(self.coef),
+            "hr_low": np.exp(self.ci_low),
+            "hr_high": np.exp(self.ci_high),
+            "se": self.se,
+            "se_model": self.se_model,
+            "se_robust": self.se_robust,
+            "z": self.z,
+            "p_value": self.p_value,
+        })
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.hazard_ratios
+
+    def summary(self) -> str:
+        se_kind = ("robust, clustered by " + self.robust_clusters) if self.robust else "model-based"
+        lines = [
+            f"Cox proportional hazards ({self.ties} ties) on {self.n_rows} rows, "
+            f"{self.n_customers} customers, {self.n_events:g} churns"
+            + (f", {len(self.stratum_labels)} strata by {', '.join(self.strata)}"
+               if self.strata else "") + ".",
+            f"Log partial likelihood {self.loglik:.3f}; {self.lr_test.summary()}; "
+            f"AIC {self.aic:.1f}.",
+            f"Standard errors: {se_kind}"
+            f"; {int(round(self.conf * 100))}% intervals.",
+        ]
+        pct = int(round(self.conf * 100))
+        for i, lab in enumerate(self.labels):
+            hr = np.exp(self.coef[i])
+            lines.append(f"  {lab}: hazard ratio {hr:.3f} ({pct}% CI {np.exp(self.ci_low[i]):.3f}"
+                         f" to {np.exp(self.ci_high[i]):.3f}), p = {self.p_value[i]:.3g}")
+        for w in self.warnings:
+            lines.append(f"Warning: {w}")
+        return "\n".join(lines)
+
+    # ---------------------------------------------------------------- baseline
+    def _stratum_code(self, stratum: str | None) -> int:
+        if len(self.stratum_labels) == 1 and stratum is None:
+            return 0
+        if stratum is None:
+            raise DataError("prediction", "the model is stratified; name the stratum",
+                            f"choose one of: {', '.join(self.stratum_labels)}")
+        if stratum not in self.stratum_labels:
+            raise DataError("prediction", f"unknown stratum {stratum!r}",
+                            f"choose one of: {', '.join(self.stratum_labels)}")
+        return self.stratum_labels.index(stratum)
+
+    def baseline(self, stratum: str | None = None) -> pd.DataFrame:
+        """Breslow baseline cumulative hazard of a stratum at the column means.
+
+        Columns: time, churns (weighted), hazard increment, cumulative_hazard,
+        retention (= exp(-cumulative hazard) for the mean profile).
+        """
+        s = self._stratum_code(stratum)
+        a, b = self._index.bounds[s], self._index.bounds[s + 1]
+        dh = self._dH0[a:b]
+        H = np.cumsum(dh)
+        return pd.DataFrame({"time": self._index.times[a:b], "churns": self._index.deaths[a:b],
+                             "hazard": dh, "cumulative_hazard": H, "retention": np.exp(-H)})
+
+    def _cumhaz_at(self, s: int, t: np.ndarray) -> np.ndarray:
+        a, b = self._index.bounds[s], self._index.bounds[s + 1]
+        c = np.concatenate(([0.0], np.cumsum(self._dH0[a:b])))
+        return c[np.searchsorted(self._index.times[a:b], t, side="right")]
+
+    def _last_time(self, s: int) -> float:
+        a, b = self._index.bounds[s], self._index.bounds[s + 1]
+        return float(self._index.times[b - 1]) if b > a else 0.0
+
+    def linear_predictor(self, profile: Mapping[str, object]) -> np.ndarray:
+        """Centred linear predictor :math:`(x-\\bar x)^\\top\\hat\\beta` of one or more profiles."""
+        return (self.design.rows_for(profile) - self.design.means) @ self.coef
+
+    def predict_retention(self, profile: Mapping[str, object], times: Sequence[float],
+                          stratum: str | None = None) -> pd.DataFrame:
+        """Retention curve :math:`S(t\\mid x)` from tenure 0 for a covariate profile.
+
+        The profile is held fixed over time. ``times`` in days of tenure. The
+        column ``extrapolated`` marks times after the stratum's last churn
+        (the baseline is flat there).
+        """
+        s = self._stratum_code(stratum)
+        lp = self.linear_predictor(profile)
+        if lp.shape[0] != 1:
+            raise DataError("covariate profile", "give one value per covariate",
+                            "use segment_retention for several members")
+        t = np.asarray(times, dtype=float)
+        H = self._cumhaz_at(s, t) * np.exp(lp[0])
+        return pd.DataFrame({"time": t, "cumulative_hazard": H, "retention": np.exp(-H),
+                             "extrapolated": t > self._last_time(s)})
+
+    def _strata_of(self, table: StartStop) -> np.ndarray:
+        if not self.strata:
+            return np.zeros(table.n_rows, dtype=np.int64)
+        labels = _stratum_labels(table, self.strata)
+        lut = {lab: i for i, lab in enumerate(self.stratum_labels)}
+        unknown = sorted(set(labels) - set(lut))
+        if unknown:
+            raise DataError(table.source, f"stratum {unknown[0]!r} was not in the fitted data",
+                            f"known strata: {', '.join(self.stratum_labels)}")
+        return np.array([lut[x] for x in labels], dtype=np.int64)
+
+    def segment_retention(self, table: StartStop, times: Sequence[float],
+                          at: str = "first") -> pd.DataFrame:
+        """Average of the members' retention curves (from tenure 0).
+
+        Each (customer, spell) of ``table`` is one member, with the covariates
+        of its first row (``at="first"``, the state at entry) or its last row
+        (``at="last"``, the current state); members are weighted by row weight.
+        """
+        if at not in ("first", "last"):
+            raise DataError("segment_retention", f"at must be 'first' or 'last', got {at!r}",
+                            "use 'first' (state at entry) or 'last' (current state)")
+        if at == "last":
+            rows = np.flatnonzero(table.last_of_spell)
+        else:
+            order = np.lexsort((table.start, table.spell, table.customer.codes))
+            c, sp = table.customer.codes[order], table.spell[order]
+            first = np.ones(order.shape[0], dtype=bool)
+            first[1:] = (c[1:] != c[:-1]) | (sp[1:] != sp[:-1])
+            rows = order[first]
+        sub = table.take(rows)
+        lp = (self.design.rows_for_table(sub) - self.design.means) @ self.coef
+        strata = self._strata_of(sub)
+        t = np.asarray(times, dtype=float)
+        w = sub.weight
+        total = np.zeros(t.shape[0])
+        last = 0.0
+        for s in np.unique(strata):
+            m = strata == s
+            H0 = self._cumhaz_at(int(s), t)
+            risk = np.exp(lp[m])
+            ws = w[m]
+            for a in range(0, risk.shape[0], 4096):
+                total += ws[a:a + 4096] @ np.exp(-np.outer(risk[a:a + 4096], H0))
+            last = max(last, self._last_time(int(s)))
+        ret = total / w.sum()
+        return pd.DataFrame({"time": t, "retention": ret, "members": float(w.sum()),
+                             "extrapolated": t > last})
+
+    def remaining_lifetime(self, profile: Mapping[str, object], horizon: float,
+                           from_tenure: float = 0.0, stratum: str | None = None
+                           ) -> RemainingLifetime:
+        r"""Expected tenure to come up to ``horizon`` given survival to ``from_tenure``.
+
+        :math:`\int_a^h S(t\mid x)/S(a\mid x)\,dt`, exact for the step-function
+        Breslow curve. Beyond the stratum's last churn time the baseline adds
+        no hazard, so a horizon past it gives an upper bound (flagged).
+        """
+        if not horizon > from_tenure:
+            raise DataError("remaining_lifetime", f"horizon ({horizon:g}) must exceed "
+                            f"from_tenure ({from_tenure:g})", "choose a later horizon")
+        s = self._stratum_code(stratum)
+        lp = self.linear_predictor(profile)[0]
+        a, b = self._index.bounds[s], self._index.bounds[s + 1]
+        ts = self._index.times[a:b]
+        inner = ts[(ts > from_tenure) & (ts < horizon)]
+        knots = np.concatenate(([from_tenure], inner, [horizon]))
+        H = (self._cumhaz_at(s, knots[:-1]) - self._cumhaz_at(s, np.array([from_tenure]))[0])
+        surv = np.exp(-H * np.exp(lp))
+        days = float(np.dot(surv, np.diff(knots)))
+        last = self._last_time(s)
+        extrap = horizon > last
+        note = (f"Past tenure {last:g} days (the last churn seen in this stratum) the baseline "
+                "hazard is taken as zero, so this is an upper bound." if extrap else "")
+        return RemainingLifetime(days, days / DAYS_PER_MONTH, float(from_tenure), float(horizon),
+                                 self.stratum_labels[s], last, bool(extrap), note)
+
+    # ---------------------------------------------------------------- residuals
+    def expected_events(self, table: StartStop | None = None) -> np.ndarray:
+        r"""Expected churns of each row: :math:`w_i e^{\eta_i}[\hat H_0(\text{stop}_i) -
+        \hat H_0(\text{start}_i)]` (cumulative hazard over the row's (start, stop]).
+
+        On the fitting table the total equals the observed (weighted) churns,
+        a property of the Breslow baseline. Weighted by row weight.
+        """
+        if table is None:
+            eta = self._Xc @ self.coef
+            if self._offset is not None:
+                eta = eta + self._offset
+            H = K.window_sum(self._index, self._dH0)
+            return self._weight * np.exp(eta) * H
+        X = self.design.rows_for_table(table) - self.design.means
+        eta = X @ self.coef
+        if self._offset is not None:
+            raise DataError(table.source, "the model has an offset; expected events for another "
+                            "table need it too", "refit without an offset or use the fitting table")
+        strata = self._strata_of(table)
+        H = np.zeros(table.n_rows)
+        for s in np.unique(strata):
+            m = strata == s
+            H[m] = self._cumhaz_at(int(s), table.stop[m]) - self._cumhaz_at(int(s), table.start[m])
+        return table.weight * np.exp(eta) * H
+
+    def martingale_residuals(self) -> np.ndarray:
+        """Per-row martingale residuals :math:`d_i - \\hat E_i` (per unit weight).
+
+        Sum them by customer for a customer-level residual; plot against a
+        numeric covariate to judge its functional form (Therneau, Grambsch &
+        Fleming 1990, Biometrika 77:147).
+        """
+        return self._churned - self.expected_events() / self._weight
+
+    def schoenfeld_residuals(self) -> pd.DataFrame:
+        """Schoenfeld residuals of the churn rows (row, time, one column per coefficient)."""
+        S = K.schoenfeld_residuals(self._index, self._Xc, self._weight, self.coef, self._offset,
+                                   self.ties == "efron")
+        ix = self._index
+        df = pd.DataFrame(S, columns=list(self.columns))
+        df.insert(0, "time", ix.times[ix.event_k])
+        df.insert(0, "row", ix.event_rows)
+        return df
+
+    def proportional_hazards_test(self, transform: str = "km") -> ProportionalHazardsTest:
+        r"""Grambsch & Therneau (1994, Biometrika 81:515) test on scaled Schoenfeld residuals.
+
+        With Schoenfeld residuals :math:`s_i` of the :math:`D` (weighted) churns,
+        :math:`V = \mathcal I^{-1}`, time transform :math:`g` centred
+        (:math:`\tilde g`), and :math:`u = D\,V\sum_i w_i \tilde g_i s_i`:
+        per column :math:`u_j^2 / (D V_{jj}\sum w\tilde g^2)` on 1 df; per term
+        (the columns of one covariate, set :math:`T`) and global
+        :math:`u_T^\top V_{TT}^{-1} u_T / (D \sum w\tilde g^2)` on :math:`|T|` df.
+        Scaled residuals :math:`s^*_i = D\,V s_i + \hat\beta`. Transforms: ``km``
+        (:math:`1 - \hat S(t-)`, Kaplan–Meier with the same delayed entry),
+        ``rank``, ``identity``, ``log``. Uses the model-based :math:`V`.
+        """
+        ix = self._index
+        S = K.schoenfeld_residuals(ix, self._Xc, self._weight, self.coef, self._offset,
+                                   self.ties == "efron")
+        t = ix.times[ix.event_k]
+        w = self._weight[ix.event_rows]
+        if transform == "km":
+            at_risk, _ = K.risk_sums(ix, self._weight)
+            km = np.ones(ix.times.shape[0])
+            for s in range(ix.n_strata):
+                a, b = ix.bounds[s], ix.bounds[s + 1]
+                surv = np.cumprod(1.0 - ix.deaths[a:b] / at_risk[a:b])
+                km[a:b] = np.concatenate(([1.0], surv[:-1]))
+            g = 1.0 - km[ix.event_k]
+        elif transform == "rank":
+            g = stats.rankdata(t)
+        elif transform == "identity":
+            g = t.astype(float)
+        elif transform == "log":
+            g = np.log(t)
+        else:
+            raise DataError("proportional_hazards_test", f"unknown transform {transform!r}",
+                            "choose km, rank, identity or log")
+        D = float(w.sum())
+        gc = g - np.dot(w, g) / D
+        V = self.cov_model
+        u = D * (V @ ((w * gc) @ S))
+        ss = float(np.dot(w, gc * gc))
+        rows = []
+        for j, lab in enumerate(self.labels):
+            stat = u[j] ** 2 / (D * V[j, j] * ss)
+            rows.append((lab, stat, 1, "column"))
+        for c, sl in self.design.terms.items():
+            if sl.stop - sl.start > 1:
+                uu = u[sl]
+                stat = float(uu @ np.linalg.solve(V[sl, sl], uu)) / (D * ss)
+                rows.append((c, stat, sl.stop - sl.start, "term"))
+        stat = float(u @ np.linalg.solve(V, u)) / (D * ss)
+        rows.append(("GLOBAL", stat, len(self.coef), "global"))
+        table = pd.DataFrame(rows, columns=["term", "chi2", "df", "level"])
+        table["p_value"] = stats.chi2.sf(table["chi2"], table["df"])
+        scaled = D * S @ V + self.coef
+        res = pd.DataFrame(scaled, columns=list(self.columns))
+        res.insert(0, "weight", w)
+        res.insert(0, "g", g)
+        res.insert(0, "time", t)
+        return ProportionalHazardsTest(transform, table, res, D)
+
+    def concordance(self) -> Concordance:
+        """Harrell's C on the fitting table (see :func:`retain.kernels.cox.concordance_counts`)."""
+        eta = self._Xc @ self.coef
+        if self._offset is not None:
+            eta = eta + self._offset
+        conc, disc, tied, comp = K.concordance_counts(self._index, np.round(eta, 12),
+                                                      self._churned, self._weight)
+        c = (conc + 0.5 * tied) / comp if comp > 0 else float("nan")
+        return Concordance(float(c), conc, disc, tied, comp)
+
+
+# --------------------------------------------------------------------------- fitting
+def _stratum_labels(table: StartStop, strata: Sequence[str]) -> list[str]:
+    parts = []
+    for s in strata:
+        col = table.column(s)
+        if isinstance(col, Categorical):
+            if (col.codes < 0).any():
+                raise DataError(table.source, f"stratum column {s!r} is missing on "
+                                f"{int((col.codes < 0).sum())} rows", "fill or drop those rows")
+            vals = np.array(col.levels, dtype=object)[col.codes]
+        else:
+            if (~np.isfinite(col)).any():
+                raise DataError(table.source, f"stratum column {s!r} is missing on "
+                                f"{int((~np.isfinite(col)).sum())} rows", "fill or drop those rows")
+            vals = np.array([f"{v:g}" for v in col], dtype=object)
+        parts.append(np.char.add(f"{s}=", vals.astype(str)))
+    out = parts[0]
+    for p in parts[1:]:
+        out = np.char.add(np.char.add(out, ", "), p)
+    return out.tolist()
+
+
+def _stratum_codes(table: StartStop, strata: Sequence[str]) -> tuple[np.ndarray, tuple[str, ...]]:
+    if not strata:
+        return np.zeros(table.n_rows, dtype=np.int64), ("all",)
+    codes = []
+    for s in strata:
+        col = table.column(s)
+        if isinstance(col, Categorical):
+            codes.append(col.codes.astype(np.int64))
+        else:
+            codes.append(np.unique(col, return_inverse=True)[1].astype(np.int64))
+    key = np.stack(codes, axis=1)
+    uniq, inv = np.unique(key, axis=0, return_inverse=True)
+    inv = inv.reshape(-1)
+    first = np.zeros(uniq.shape[0], dtype=np.int64)
+    first[inv[::-1]] = np.arange(table.n_rows)[::-1]
+    labels = _stratum_labels(table.take(first), strata)
+    order = np.argsort(labels)
+    relabel = np.empty_like(order)
+    relabel[order] = np.arange(order.shape[0])
+    return relabel[inv].astype(np.int64), tuple(labels[i] for i in order)
+
+
+def fit_cox(
+    table: StartStop,
+    covariates: Sequence[str],
+    *,
+    strata: str | Sequence[str] | None = None,
+    ties: str = "efron",
+    offset: str | np.ndarray | None = None,
+    penalty: float = 0.0,
+    reference: Mapping[str, str] | None = None,
+    robust: bool = True,
+    conf: float = 0.95,
+    max_iter: int = 50,
+) -> CoxFit:
+    r"""Fit a Cox proportional-hazards model to a start-stop table.
+
+    Parameters
+    ----------
+    table : StartStop
+        (start, stop] rows with delayed entry, weights and customers.
+    covariates : sequence of str
+        Covariate columns; categorical ones are coded against a reference level.
+    strata : str or sequence of str, optional
+        Columns whose combinations get separate baseline hazards.
+    ties : {"efron", "breslow"}
+    offset : str or array, optional
+        A numeric column (or array) added to the linear predictor with
+        coefficient 1.
+    penalty : float
+        L2 penalty :math:`\lambda`: maximises
+        :math:`\ell(\beta) - \tfrac{\lambda}{2}\lVert\beta\rVert^2` (on the
+        scale of the coded columns). Use it for near-separation. Model-based
+        variance is then :math:`(\mathcal I+\lambda I)^{-1}` and the tests use the
+        penalised log likelihood.
+    reference : mapping, optional
+        Reference level per categorical covariate (default: the most common).
+    robust : bool
+        Base z, p and intervals on the robust (sandwich) errors clustered by
+        customer (Lin & Wei 1989). Both kinds are always reported.
+    conf : float
+        Confidence level of the intervals.
+    max_iter : int
+        Newton–Raphson iterations allowed.
+
+    Raises
+    ------
+    DataError
+        Bad covariates (see :func:`retain.models.design.design_matrix`), bad strata or offset.
+    ModelError
+        No churns, a level or group with no churns (separation) without a penalty,
+        singular information.
+    ConvergenceError
+        No convergence within ``max_iter``; ``history`` holds the iterations.
+    """
+    where = f"Cox model on {table.source}"
+    if ties not in TIES:
+        raise ModelError(where, f"unknown tie method {ties!r}", "use 'efron' or 'breslow'")
+    if not 0 < conf < 1:
+        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}", "use e.g. 0.95")
+    if not (np.isfinite(penalty) and penalty >= 0):
+        raise ModelError(where, f"penalty must be >= 0, got {penalty!r}", "use 0 for no penalty")
+    strata_t: tuple[str, ...] = () if strata is None else \
+        ((strata,) if isinstance(strata, str) else tuple(strata))
+    covariates = [covariates] if isinstance(covariates, str) else list(covariates)
+    clash = [s for s in strata_t if s in covariates]
+    if clash:
+        raise DataError(where, f"{clash[0]!r} is both a covariate and a stratum",
+                        "a stratum gets its own baseline; drop it from the covariates")
+    for s in strata_t:
+        table.column(s)
+    if table.n_events <= 0:
+        raise ModelError(where, "the table has no churns", "a hazard model needs churn events")
+    design = design_matrix(table, covariates, reference=reference)
+    p = design.n_columns
+    if p == 0:
+        raise ModelError(where, "no covariates", "name at least one covariate")
+    off = None
+    if offset is not None:
+        off = table.numeric(offset) if isinstance(offset, str) else np.asarray(offset, float)
+        if off.shape != (table.n_rows,) or not np.all(np.isfinite(off)):
+            raise DataError(where, "the offset must be finite with one value per row",
+                            "check the offset column")
+    warn: list[str] = []
+    stratum, stratum_labels = _stratum_codes(table, strata_t)
+    w = table.weight
+    d = table.churned.astype(np.float64)
+    ev_by_stratum = np.bincount(stratum, weights=w * d, minlength=len(stratum_labels))
+    for s, e in enumerate(ev_by_stratum):
+        if e <= 0:
+            warn.append(f"stratum {stratum_labels[s]} has no churns: its rows do not inform the "
+                        "hazard ratios and it has no baseline")
+    _check_separation(where, table, design, w, d, penalty, warn)
+    epp = table.n_events / p
+    if epp < MIN_EVENTS_PER_PARAMETER:
+        warn.append(f"only {epp:.1f} churns per coefficient ({table.n_events:g} churns, {p} "
+                    f"coefficients); about {MIN_EVENTS_PER_PARAMETER:g} or more is common "
+                    "practice: estimates may be biased and intervals too narrow")
+    Xc = np.asfortranarray(design.X - design.means)
+    index = K.build_risk_index(table.start, table.stop, d, w, stratum, len(stratum_labels))
+    efron = ties == "efron"
+    res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter)
+    sd = np.sqrt(np.maximum(np.diag(K.weighted_cross(Xc, w)) / w.sum(), 0))
+    size = np.abs(res.beta) * sd
+    if not res.converged:
+        big = np.flatnonzero(size > SEPARATION_SIZE)
+        if big.size:
+            j = int(big[0])
+            raise ModelError(where, f"{design.labels[j]}: the coefficient grows without bound "
+                             "(perfect or quasi separation: churn is fully predicted along this "
+                             "covariate)", "merge sparse levels, drop the covariate, or set a "
+                             "penalty (e.g. penalty=1)")
+        raise ConvergenceError(where, f"Newton-Raphson did not converge in {res.iterations} "
+                               "iterations", "check the iteration history, rescale numeric "
+                               "covariates, or set a small penalty", history=res.history)
+    big = np.flatnonzero(size > SEPARATION_SIZE)
+    for j in big:
+        warn.append(f"{design.labels[j]}: very large coefficient ({res.beta[j]:.2f}); possible "
+                    "quasi separation -- merge levels or use a penalty")
+    try:
+        cov_model = np.linalg.inv(res.info)
+    except np.linalg.LinAlgError as exc:
+        raise ModelError(where, "the information matrix is singular", "drop collinear "
+                         "covariates or set a penalty") from exc
+    if table.has_customers:
+        cluster = table.cluster
+        clusters = "customer"
+    else:
+        cluster = np.arange(table.n_rows)
+        clusters = "row"
+        warn.append("the table has no customer_id (e.g. compressed): robust errors are by row, "
+                    "not clustered by customer")
+    cov_robust = _robust_cov(index, Xc, w, d, res.beta, off, efron, cluster, cov_model)
+    se_model = np.sqrt(np.diag(cov_model))
+    se_robust = np.sqrt(np.diag(cov_robust))
+    se = se_robust if robust else se_model
+    cov = cov_robust if robust else cov_model
+    zq = float(stats.norm.ppf(0.5 + conf / 2))
+    z = res.beta / se
+    pval = 2 * stats.norm.sf(np.abs(z))
+    lr = 2 * (res.loglik - res.loglik0)
+    try:
+        wald = float(res.beta @ np.linalg.solve(cov, res.beta))
+    except np.linalg.LinAlgError:
+        wald = float("nan")
+    try:
+        score = float(res.grad0 @ np.linalg.solve(res.info0, res.grad0))
+    except np.linalg.LinAlgError:
+        score = float("nan")
+    if penalty:
+        warn.append(f"L2 penalty {penalty:g}: coefficients are shrunk towards 0 and the tests use "
+                    "the penalised log likelihood")
+    dH0 = K.breslow_increments(index, Xc, w, res.beta, off)
+    return CoxFit(
+        covariates=tuple(covariates), columns=design.columns, labels=design.labels,
+        reference=dict(design.reference), coef=res.beta, se=se, se_model=se_model,
+        se_robust=se_robust, cov_model=cov_model, cov_robust=cov_robust, z=z, p_value=pval,
+        ci_low=res.beta - zq * se, ci_high=res.beta + zq * se, conf=float(conf), ties=ties,
+        strata=strata_t, stratum_labels=stratum_labels, penalty=float(penalty),
+        robust=bool(robust), robust_clusters=clusters, n_rows=table.n_rows,
+        n_customers=table.n_customers if table.has_customers else table.n_rows,
+        n_events=table.n_events, events_per_parameter=float(epp), loglik=res.loglik,
+        loglik_null=res.loglik0, lr_test=_chi2("likelihood ratio", lr, p),
+        wald_test=_chi2("Wald" + (" (robust)" if robust else ""), wald, p),
+        score_test=_chi2("score (log-rank)", score, p), aic=-2 * res.loglik + 2 * p,
+        iterations=res.iterations, history=tuple(tuple(h) for h in res.history),
+        warnings=tuple(warn), source=table.source, design=design, _index=index, _Xc=Xc,
+        _weight=w, _churned=d, _offset=off, _stratum=stratum, _dH0=dH0, _table=table,
+        _cluster=cluster,
+    )
+
+
+def _robust_cov(index: K.RiskIndex, Xc: np.ndarray, w: np.ndarray, d: np.ndarray,
+                beta: np.ndarray, off: np.ndarray | None, efron: bool, cluster: np.ndarray,
+                cov_model: np.ndarray) -> np.ndarray:
+    r"""Lin & Wei (1989) sandwich :math:`V\,(\sum_c U_cU_c^\top)\,V` with
+    :math:`U_c` the cluster sums of the weighted score residuals."""
+    L = K.score_residuals(index, Xc, w, d, beta, off, efron)
+    n_c = int(cluster.max()) + 1
+    U = np.empty((n_c, L.shape[1]))
+    for j in range(L.shape[1]):
+        U[:, j] = np.bincount(cluster, L[:, j], n_c)
+    B = U.T @ U
+    return cov_model @ B @ cov_model
+
+
+def _check_separation(where: str, table: StartStop, design: Design, w: np.ndarray,
+                      d: np.ndarray, penalty: float, warn: list[str]) -> None:
+    """A categorical level with no churns has hazard ratio 0 (quasi separation)."""
+    for c in design.covariates:
+        if not design.is_categorical(c):
+            continue
+        col = table.column(c)
+        assert isinstance(col, Categorical)
+        ev = np.bincount(col.codes, weights=w * d, minlength=len(col.levels))
+        for level in design.levels[c]:
+            if ev[col.levels.index(level)] <= 0:
+                msg = (f"{c} level {level!r} has no churns, so its hazard ratio is 0 and the "
+                       "fit cannot converge (quasi separation)")
+                fix = (f"merge {level!r} with another level of {c}, or set a penalty "
+                       "(e.g. penalty=1)")
+                if penalty > 0:
+                    warn.append(f"{msg}; the penalty keeps the estimate finite -- {fix}")
+                else:
+                    raise ModelError(where, msg, fix)
+
+
+__all__ = ["CoxFit", "Concordance", "ProportionalHazardsTest", "RemainingLifetime", "TestStat",
+           "fit_cox"]
