@@ -9,6 +9,7 @@ relative to the toml file.
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import re
 import sys
 from collections.abc import Mapping
@@ -294,6 +295,7 @@ class _Section:
                           'write it as "YYYY-MM-DD", e.g. "2026-11-30"')
 
 
+@functools.cache
 def _timezones() -> frozenset[str]:
     import duckdb
 

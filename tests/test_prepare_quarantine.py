@@ -1,0 +1,159 @@
+"""Quarantine reasons (one case each), the reconciliation identity, strict mode, and
+the three kinds of source (CSV, Parquet, a DuckDB table) giving the same table."""
+
+from __future__ import annotations
+
+import duckdb
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+import pytest
+from test_prepare_support import CORE, project, rows_of, run, toml_text, write_log
+
+from retain.data.config import load_config
+from retain.data.prepare import prepare, write_outputs
+from retain.errors import DataError
+
+S = ("search", "north", "standard")
+GOOD = [("a", "2024-01-01", "signup", None, "Seedling", "10", *S),
+        ("a", "2024-01-31", "cancel")]
+
+
+def signup(cid, when, price="10"):
+    return (cid, when, "signup", None, "Seedling", price, *S)
+
+
+CASES = [
+    ("missing id", [signup(None, "2024-01-05")]),
+    ("missing id", [signup("  ", "2024-01-05")]),
+    ("unparseable time", [signup("b", "31/12/2024 10:00")]),
+    ("unparseable time", [signup("b", None)]),
+    ("unparseable time", [signup("b", "2025-02-30")]),
+    ("unknown event", [("a", "2024-01-10", "teleport")]),
+    ("event before the customer's first start",
+     [("b", "2024-01-01", "payment_failed"), signup("b", "2024-01-02")]),
+    ("end without an open spell", [("a", "2024-02-10", "cancel")]),
+    ("exact duplicate", [("a", "2024-01-31", "cancel")]),
+    ("time after the as-of date", [("a", "2025-01-01", "plan_change", None, "Bloom")]),
+    ("non-numeric value in a numeric attribute", [("a", "2024-01-10", "price_change", None,
+                                                   None, "N/A")]),
+    ("non-numeric value in a numeric attribute", [("a", "2024-01-10", "price_change", None,
+                                                   None, "inf")]),
+    ("unknown churn reason", [signup("b", "2024-01-01"), ("b", "2024-01-05", "cancel", "bored")]),
+    ("start during an open spell", [signup("a", "2024-01-10")]),
+    ("event outside an open spell", [("a", "2024-02-10", "pause")]),
+]
+
+
+@pytest.mark.parametrize("reason,extra", CASES, ids=[f"{c[0]}-{i}" for i, c in enumerate(CASES)])
+def test_each_quarantine_reason(tmp_path, reason, extra):
+    p = run(tmp_path, GOOD + extra)
+    r = p.reconciliation
+    q = p.quarantine.to_pylist()
+    assert [row["quarantine_reason"] for row in q] == [reason]
+    # the quarantined row is the last one written (source rows count from 1, header excluded)
+    if reason not in ("event before the customer's first start", "unknown churn reason"):
+        assert q[0]["source_row"] == len(GOOD) + len(extra)
+    assert r.by_reason == {reason: 1}
+    assert r.rows_in == r.used + r.outside_window + r.ignored + r.quarantined
+    # the good customer's row is untouched
+    assert ("a", 1, 0.0, 30.0, 1, "voluntary") in rows_of(p, CORE)
+
+
+def test_quarantine_keeps_the_original_text(tmp_path):
+    p = run(tmp_path, GOOD + [("a", "2024-01-10", "price_change", None, None, " N/A ")])
+    q = p.quarantine.to_pylist()[0]
+    assert q == {"source_row": 3, "account": "a", "occurred_at": "2024-01-10",
+                 "kind": "price_change", "cancel_reason": None, "plan": None,
+                 "monthly_price": " N/A ", "channel": None, "region": None, "arm": None,
+                 "quarantine_reason": "non-numeric value in a numeric attribute"}
+
+
+def test_of_exact_duplicates_the_first_is_used(tmp_path):
+    p = run(tmp_path, [signup("a", "2024-01-01"), signup("a", "2024-01-01"),
+                       signup("a", "2024-01-01"), ("a", "2024-01-31", "cancel")])
+    assert [r["source_row"] for r in p.quarantine.to_pylist()] == [2, 3]
+    assert rows_of(p, CORE) == [("a", 1, 0.0, 30.0, 1, "voluntary")]
+
+
+def test_ignored_events_are_counted_not_quarantined(tmp_path):
+    p = run(tmp_path, GOOD + [("a", "2024-01-05", "email_opened"), (None, "x", "email_opened")])
+    r = p.reconciliation
+    assert (r.rows_in, r.used, r.ignored, r.quarantined) == (4, 2, 2, 0)
+
+
+def test_reconciliation_lines_add_up_and_are_written(tmp_path):
+    rows = GOOD + [signup(None, "2024-01-05"), ("a", "2024-01-10", "teleport"),
+                   ("a", "2024-01-11", "teleport"), ("q", "2024-01-11", "zap"),
+                   ("a", "2024-01-12", "email_opened")]
+    p = run(tmp_path, rows)
+    frame = p.reconciliation.to_frame()
+    assert frame.n_rows.iloc[0] == 7 and frame.n_rows.iloc[1:].sum() == 7
+    assert p.unknown_events == {"teleport": 2, "zap": 1}
+    paths = write_outputs(p, tmp_path / "out")
+    assert pq.read_table(paths["start_stop"]).num_rows == 1
+    assert pacsv.read_csv(paths["quarantine_csv"]).num_rows == 4
+    text = paths["reconciliation_json"].read_text()
+    assert '"teleport": 2' in text and '"rows_in": 7' in text
+
+
+def test_strict_events_raise_and_name_every_unknown_value(tmp_path):
+    with pytest.raises(DataError) as err:
+        run(tmp_path, GOOD + [("a", "2024-01-10", "teleport"), ("a", "2024-01-11", "zap"),
+                              ("a", "2024-01-12", "zap")], strict=True)
+    msg = err.value.message
+    assert "column 'kind': unknown event values: 'zap' (2 rows), 'teleport' (1 rows)" in msg
+    assert "map them in [events] map or list them in [events] ignore" in msg
+
+
+def test_strict_reasons_raise(tmp_path):
+    with pytest.raises(DataError, match=r"column 'cancel_reason': unknown churn reasons: 'bored'"):
+        run(tmp_path, [signup("b", "2024-01-01"), ("b", "2024-01-05", "cancel", "bored")],
+            reasons_strict=True)
+
+
+def test_a_missing_column_is_named(tmp_path):
+    write_log(tmp_path / "events.csv", [("a", "2024-01-01", "signup")],
+              header=("account", "occurred_at", "kind"))
+    (tmp_path / "retain.toml").write_text(toml_text(), encoding="utf-8")
+    with pytest.raises(DataError) as err:
+        prepare(load_config(tmp_path / "retain.toml"))
+    assert ("has no column 'cancel_reason' (named by [columns] reason in "
+            f"{tmp_path / 'retain.toml'}) -- columns found: account, occurred_at, kind"
+            ) in err.value.message
+
+
+def test_no_spell_left_is_an_error(tmp_path):
+    with pytest.raises(DataError, match="no spell of any customer lies in the window"):
+        run(tmp_path, [("a", "2024-01-31", "cancel")])
+
+
+def test_parquet_and_duckdb_sources_give_the_same_table(tmp_path):
+    rows = GOOD + [signup("b", "2024-03-01"), ("b", "2024-03-05", "pause"),
+                   ("b", "2024-04-05", "resume"), ("b", "2024-05-01", "bogus")]
+    base = run(tmp_path, rows)
+    table = pacsv.read_csv(tmp_path / "events.csv",
+                           convert_options=pacsv.ConvertOptions(strings_can_be_null=True))
+    pq.write_table(table, tmp_path / "events.parquet")
+    con = duckdb.connect(str(tmp_path / "wh.duckdb"))
+    con.execute("create table events as select * from read_parquet(?)",
+                [str(tmp_path / "events.parquet")])
+    con.close()
+    for source in ('path = "events.parquet"', 'duckdb = "wh.duckdb"\ntable = "events"'):
+        (tmp_path / "retain.toml").write_text(toml_text(source=source), encoding="utf-8")
+        other = prepare(load_config(tmp_path / "retain.toml"))
+        assert other.arrow.equals(base.arrow), source
+        assert other.reconciliation.by_reason == base.reconciliation.by_reason == {
+            "unknown event": 1}
+
+
+def test_engine_settings_reach_duckdb(tmp_path):
+    from retain.data.prepare import connect
+
+    cfg = project(tmp_path, GOOD)
+    con = connect(cfg)
+    try:
+        got = con.execute("select current_setting('threads'), current_setting('TimeZone')"
+                          ).fetchall()[0]
+    finally:
+        con.close()
+    assert got == (1, "UTC")
