@@ -40,6 +40,15 @@ from retain.data.sqlsteps import run_step
 from retain.data.table import CAUSES, StartStop
 from retain.errors import DataError, ModelError
 from retain.kernels.exposure import band_counts, band_exposure, piecewise_cumulative
+from retain.kernels.graduation import (
+    chi_square_test,
+    choose_smoothing,
+    gcv_score,
+    grouping_of_signs_test,
+    hat_trace,
+    signs_test,
+    whittaker_henderson,
+)
 from retain.models._segments import ALL, by_names, duckdb_input, segment_codes
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
@@ -410,3 +419,132 @@ def _finish(raw: pd.DataFrame, axis: str, level: float, cause_split: bool) -> pd
     if not cause_split:
         f = f.drop(columns=[c for c in f.columns if c.endswith(("_voluntary", "_involuntary"))])
     return f.reset_index(drop=True)
+
+
+# ---------------------------------------------------------------- graduation
+@dataclass(frozen=True)
+class Graduation(Result):
+    """Crude and Whittaker–Henderson graduated monthly probabilities q, with adherence tests.
+
+    ``frame``: per (segment, month) exposure, churns, q_crude, q_graduated,
+    m_graduated = −log(1 − q_graduated), expected = exposure · m_graduated,
+    deviation = churns − expected, z = deviation / sqrt(expected).
+
+    ``tests``: per segment the smoothing parameter h (given or chosen by GCV),
+    the GCV score, the effective number of parameters tr A(h), and the tests:
+    chi-square (X², degrees of freedom = months − tr A(h), p), signs (positive
+    deviations, months, two-sided p), grouping of signs (Stevens 1939: groups,
+    positives, negatives, one-sided p).
+    """
+
+    frame: pd.DataFrame
+    tests: pd.DataFrame
+    order: int
+    smoothing: float | None
+    weights: str = "exposure (customer-months), scaled to mean 1 over months with exposure"
+    method: str = "Whittaker-Henderson: minimise sum w (v - u)^2 + h sum (diff^order v)^2"
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.frame.copy()
+
+    def summary(self) -> str:
+        parts = []
+        for row in self.tests.itertuples():
+            verdict = "adheres" if min(row.chi_square_p, row.signs_p, row.groups_p) >= 0.05 \
+                else "check adherence"
+            parts.append(f"{row.segment}: h = {row.smoothing:.3g}, chi-square p = "
+                         f"{row.chi_square_p:.3f}, signs p = {row.signs_p:.3f}, "
+                         f"groups p = {row.groups_p:.3f} ({verdict})")
+        return (f"Whittaker-Henderson graduation of q, order {self.order}. " + "; ".join(parts)
+                + ".")
+
+
+def graduate(
+    decrements: DecrementTable,
+    *,
+    order: int = 2,
+    smoothing: float | None = None,
+) -> Graduation:
+    """Graduate the monthly probabilities q of a decrement table by Whittaker–Henderson.
+
+    Parameters
+    ----------
+    decrements : DecrementTable
+        Crude rates; each segment is graduated on its own.
+    order : 2 or 3
+        Difference order z of the smoothness term (z = 2 tends to a straight line
+        as h grows, z = 3 to a quadratic).
+    smoothing : float, optional
+        h ≥ 0; default chosen per segment by generalised cross-validation.
+
+    Notes
+    -----
+    Weights are the months' exposures (scaled to mean 1), so that months with
+    little exposure are smoothed more; months without exposure get weight 0 and
+    are interpolated. Whittaker (1923), Henderson (1924); GCV: Craven and Wahba
+    (1979); tests: e.g. Benjamin and Pollard (1980), ch. 13; Stevens (1939).
+    """
+    if not isinstance(decrements, DecrementTable):
+        raise DataError("graduate", f"needs a DecrementTable, not {type(decrements).__name__}",
+                        "build one with decrement_table()")
+    if order not in (2, 3):
+        raise DataError("graduate", f"order must be 2 or 3, not {order!r}",
+                        "2 smooths towards a line, 3 towards a quadratic")
+    if smoothing is not None and not (np.isfinite(smoothing) and smoothing >= 0):
+        raise DataError("graduate", f"smoothing must be a number >= 0, not {smoothing!r}",
+                        "or leave it out to choose it by cross-validation")
+    frames, tests, warnings = [], [], []
+    for label in decrements.segments:
+        seg = decrements.segment(label)
+        e = seg["exposure"].to_numpy(dtype=float)
+        u = seg["q"].to_numpy(dtype=float)
+        pos = e > 0
+        if int(pos.sum()) <= order:
+            warnings.append(f"segment {label!r}: {int(pos.sum())} months with exposure, more "
+                            f"than {order} needed; not graduated")
+            continue
+        w = np.where(pos, e / e[pos].mean(), 0.0)
+        u0 = np.where(pos, u, 0.0)
+        if smoothing is None:
+            h, gcv = choose_smoothing(u0, w, order)
+            if h <= 10.0 ** -3.9 or h >= 10.0 ** 9.9:
+                warnings.append(f"segment {label!r}: cross-validation chose h = {h:.3g} at the "
+                                "edge of its search (" + ("the crude rates are already "
+                                "precise; no smoothing" if h < 1 else "a polynomial of degree "
+                                f"{order - 1} fits as well as any smoother curve") + ")")
+        else:
+            h = float(smoothing)
+            gcv = gcv_score(u0, w, h, order)
+        v = whittaker_henderson(u0, w, h, order)
+        if h == 0:
+            v = np.where(pos, u0, np.nan)
+        if np.nanmin(v) < 0 or np.nanmax(v) >= 1:
+            warnings.append(f"segment {label!r}: graduated q outside [0, 1) set to the bound")
+            v = np.clip(v, 0.0, 1.0 - 1e-12)
+        m = -np.log1p(-v)
+        expected = e * m
+        d = seg["churns"].to_numpy(dtype=float)
+        dev = d - expected
+        with np.errstate(divide="ignore", invalid="ignore"):
+            z = np.where(expected > 0, dev / np.sqrt(expected), np.nan)
+        edf = hat_trace(w, h, order)
+        use = pos & (expected > 0)
+        x2, p_chi = chi_square_test(d[use], expected[use], float(use.sum()) - edf)
+        n_pos, n_sig, p_sig = signs_test(dev[use])
+        groups, n1, n2, p_grp = grouping_of_signs_test(dev[use])
+        frames.append(pd.DataFrame({
+            "segment": label, "month": seg["month"], "label": seg["label"], "exposure": e,
+            "churns": d, "q_crude": u, "q_graduated": v, "m_graduated": m,
+            "expected": expected, "deviation": dev, "z": z}))
+        tests.append({"segment": label, "smoothing": h, "gcv": gcv, "effective_parameters": edf,
+                      "months": int(use.sum()), "chi_square": x2,
+                      "chi_square_dof": float(use.sum()) - edf, "chi_square_p": p_chi,
+                      "signs_positive": n_pos, "signs_n": n_sig, "signs_p": p_sig,
+                      "groups": groups, "groups_positive": n1, "groups_negative": n2,
+                      "groups_p": p_grp})
+    if not frames:
+        raise ModelError("graduate", "no segment has enough months with exposure",
+                         "use more data or fewer segments")
+    return Graduation(frame=pd.concat(frames, ignore_index=True), tests=pd.DataFrame(tests),
+                      order=order, smoothing=smoothing, warnings=tuple(warnings))
