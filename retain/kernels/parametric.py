@@ -328,7 +328,7 @@ Objective = Callable[..., tuple[float, "np.ndarray | None", "np.ndarray | None"]
 
 
 def newton_maximize(fun: Objective, theta0: np.ndarray, *, max_iter: int = 100,
-                    tol: float = 1e-10, max_halvings: int = 40, max_step: float = 5.0
+                    tol: float = 1e-14, max_halvings: int = 40, max_step: float = 5.0
                     ) -> tuple[np.ndarray, float, np.ndarray, np.ndarray, list[dict], bool]:
     """Maximise a concave-near-the-optimum function with Newton's method.
 
