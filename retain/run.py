@@ -197,14 +197,55 @@ def run_table(table: StartStop, options: RunOptions, *, prepared: Any = None,
     return RunResults(options=options, table=table, outcomes=out, prepared=prepared)
 
 
+def options_from_config(config: Any) -> RunOptions:
+    """The parts of a loaded ``retain.toml`` that say what to run and show."""
+    src = config.source
+    name = src.path.name if getattr(src, "path", None) is not None else \
+        f"{getattr(src, 'duckdb', '')}:{getattr(src, 'table', '')}"
+    experiments = {e.name: dataclasses.asdict(e) for e in config.experiments}
+    return RunOptions(
+        title=f"Retention review: {name}", source=str(name),
+        as_of=config.window.as_of.isoformat(), segments=tuple(config.segments.by),
+        covariates=tuple(config.model.covariates), strata=tuple(config.model.strata),
+        reference=dict(config.model.reference), value=dataclasses.asdict(config.value),
+        experiments=experiments)
+
+
+def run_config(config: Any, *, progress: Callable[[str], None] | None = None) -> RunResults:
+    """Prepare the event log that ``config`` describes, then run every model on it.
+
+    A failure to prepare the data raises (there is nothing to publish without
+    a table); a model that fails is recorded in the bundle.
+    """
+    from retain.data.prepare import prepare
+
+    say = progress or (lambda _msg: None)
+    say("prepare")
+    prepared = prepare(config)
+    return run_table(prepared.table, options_from_config(config), prepared=prepared,
+                     progress=progress)
+
+
 def _model_steps(table: StartStop, options: RunOptions,
                  done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
-    from retain.models import curves
+    from retain.models import competing, curves, decrements, parametric
 
+    cov = list(options.covariates)
+    ref = dict(options.reference) or None
+    first_segment = options.segments[0] if options.segments else None
     steps: list[tuple[str, Callable[[], Any]]] = [
         ("km", lambda: curves.kaplan_meier(table)),
     ]
     for seg in options.segments:
         steps.append((f"curves:{seg}", lambda seg=seg: curves.curves_by(table, seg)))
-    steps.append(("cohorts", lambda: curves.cohort_retention(table, months=options.cohort_months)))
+    steps += [
+        ("cohorts", lambda: curves.cohort_retention(table, months=options.cohort_months)),
+        ("fit:exponential", lambda: parametric.fit_exponential(table)),
+        ("fit:weibull", lambda: parametric.fit_weibull(table)),
+        ("weibull", lambda: parametric.fit_weibull(table, cov, reference=ref)),
+        ("compare", lambda: parametric.compare_models(table, cov, reference=ref)),
+        ("loglog", lambda: parametric.loglog_diagnostic(table, first_segment)),
+        ("decrements", lambda: decrements.decrement_table(table)),
+        ("incidence", lambda: competing.cumulative_incidence(table)),
+    ]
     return steps

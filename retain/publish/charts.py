@@ -25,6 +25,7 @@ INK = "#1e2a31"
 SOFT = "#4a5a63"
 GRID = "#e6e3da"
 HEIGHT = 300
+FIXED_WIDTH = 520  # charts with long labels on the left get a fixed plot width
 SIGNIFICANT = 6
 
 
@@ -55,8 +56,22 @@ def values(frame: pd.DataFrame) -> list[dict[str, Any]]:
             for row in frame.itertuples(index=False, name=None)]
 
 
-def _data(frame: pd.DataFrame) -> alt.InlineData:
-    return alt.InlineData(values=values(frame))
+class _Datasets:
+    """Named datasets of one chart, attached to the spec after Altair has built it.
+
+    Passing the rows through Altair would validate and deep-copy every record;
+    named data keep the spec small to build and the names stable
+    (``<chart name>-0``, ``-1``, ...).
+    """
+
+    def __init__(self, name: str) -> None:
+        self.name = name
+        self.sets: dict[str, list[dict[str, Any]]] = {}
+
+    def __call__(self, frame: pd.DataFrame) -> alt.NamedData:
+        key = f"{self.name}-{len(self.sets)}"
+        self.sets[key] = values(frame)
+        return alt.NamedData(name=key)
 
 
 def _config() -> dict[str, Any]:
@@ -76,13 +91,15 @@ def _config() -> dict[str, Any]:
     }
 
 
-def finish(chart: alt.TopLevelMixin, name: str, *, width: Any = "container") -> dict[str, Any]:
+def finish(chart: alt.TopLevelMixin, name: str, data: _Datasets, *,
+           width: Any = "container") -> dict[str, Any]:
     """The chart as a Vega-Lite dict with a fixed name, our look, and no counters."""
     chart = chart.properties(name=name)
     if width is not None:
         chart = chart.properties(width=width)
     spec = chart.to_dict()
     spec["config"] = _config()
+    spec["datasets"] = {**spec.get("datasets", {}), **data.sets}
     spec["autosize"] = {"type": "fit-x", "contains": "padding"} if width == "container" \
         else {"type": "pad"}
     return spec
@@ -98,7 +115,8 @@ def survival_chart(frame: pd.DataFrame, name: str, *, x: str = "month", y: str =
                    y_title: str = "Still subscribed", y_zero: bool = True,
                    series_title: str | None = None) -> dict[str, Any]:
     """Step curves (right-continuous, as Kaplan–Meier is) with pointwise interval bands."""
-    base = alt.Chart(_data(frame))
+    data = _Datasets(name)
+    base = alt.Chart(data(frame))
     enc_x = alt.X(f"{x}:Q", title=x_title)
     scale_y = alt.Scale(domain=[0, 1]) if y_zero else alt.Scale(zero=False)
     enc_y = alt.Y(f"{y}:Q", title=y_title, scale=scale_y, axis=alt.Axis(format="%"))
@@ -118,27 +136,29 @@ def survival_chart(frame: pd.DataFrame, name: str, *, x: str = "month", y: str =
             x=enc_x, y=alt.Y(f"{lower}:Q", scale=scale_y), y2=f"{upper}:Q", color=band_color))
     layers.append(base.mark_line(interpolate="step-after").encode(
         x=enc_x, y=enc_y, color=line_color, tooltip=tip))
-    return finish(alt.layer(*layers).properties(height=HEIGHT), name)
+    return finish(alt.layer(*layers).properties(height=HEIGHT), name, data)
 
 
 def lines_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str,
                 x_title: str, y_title: str, dashed: dict[str, bool] | None = None,
                 y_format: str = "%", step: bool = False, lower: str | None = None,
                 upper: str | None = None, points: str | None = None,
-                y_domain: list[float] | None = None) -> dict[str, Any]:
+                y_domain: list[float] | None = None,
+                series_title: str | None = None) -> dict[str, Any]:
     """Several lines on shared axes; ``dashed`` marks model curves against data.
 
     ``points`` names a series drawn as dots instead of a line (e.g. crude rates
     under a graduated line).
     """
+    data = _Datasets(name)
     levels = list(dict.fromkeys(frame[series].astype(str)))
-    color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series)
+    color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title)
     scale_y = alt.Scale(domain=y_domain) if y_domain else alt.Scale(zero=False)
     enc_x = alt.X(f"{x}:Q", title=x_title)
     enc_y = alt.Y(f"{y}:Q", title=y_title, axis=alt.Axis(format=y_format), scale=scale_y)
     tip = [alt.Tooltip(f"{series}:N"), alt.Tooltip(f"{x}:Q", format=".1f"),
            alt.Tooltip(f"{y}:Q", format=".3~g" if y_format != "%" else ".2%")]
-    base = alt.Chart(_data(frame))
+    base = alt.Chart(data(frame))
     layers = []
     if lower and upper:
         layers.append(base.mark_area(opacity=0.16, interpolate="step-after" if step else "linear")
@@ -150,14 +170,15 @@ def lines_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str,
     stroke: Any = alt.Undefined
     if dashed:
         dash_levels = [lv for lv in levels if lv != points]
-        stroke = alt.StrokeDash(f"{series}:N", legend=None, scale=alt.Scale(
+        stroke = alt.StrokeDash(f"{series}:N", title=series_title, scale=alt.Scale(
             domain=dash_levels, range=[[6, 3] if dashed.get(lv) else [1, 0] for lv in dash_levels]))
-    layers.append(line_data.mark_line(interpolate="step-after" if step else "linear").encode(
-        x=enc_x, y=enc_y, color=color, strokeDash=stroke, tooltip=tip))
+    if any(lv != points for lv in levels):
+        layers.append(line_data.mark_line(interpolate="step-after" if step else "linear")
+                      .encode(x=enc_x, y=enc_y, color=color, strokeDash=stroke, tooltip=tip))
     if points:
         layers.append(base.transform_filter(alt.datum[series] == points).mark_point(
             filled=True, size=34).encode(x=enc_x, y=enc_y, color=color, tooltip=tip))
-    return finish(alt.layer(*layers).properties(height=HEIGHT), name)
+    return finish(alt.layer(*layers).properties(height=HEIGHT), name, data)
 
 
 def forest_chart(frame: pd.DataFrame, name: str, *, label: str = "term",
@@ -165,6 +186,7 @@ def forest_chart(frame: pd.DataFrame, name: str, *, label: str = "term",
                  x_title: str = "Hazard ratio (log scale; 1 = no difference)",
                  reference: float = 1.0, group: str | None = None) -> dict[str, Any]:
     """Point estimates with interval whiskers on a log axis, one row per term."""
+    data = _Datasets(name)
     order = list(dict.fromkeys(frame[label].astype(str)))
     lo = float(np.nanmin(frame[lower].to_numpy(dtype=float)))
     hi = float(np.nanmax(frame[upper].to_numpy(dtype=float)))
@@ -175,7 +197,7 @@ def forest_chart(frame: pd.DataFrame, name: str, *, label: str = "term",
     if group:
         levels = list(dict.fromkeys(frame[group].astype(str)))
         color = alt.Color(f"{group}:N", scale=_series_scale(levels), title=group)
-    base = alt.Chart(_data(frame))
+    base = alt.Chart(data(frame))
     tip = [alt.Tooltip(f"{label}:N"), alt.Tooltip(f"{estimate}:Q", format=".3f"),
            alt.Tooltip(f"{lower}:Q", format=".3f"), alt.Tooltip(f"{upper}:Q", format=".3f")]
     rule = base.mark_rule(strokeWidth=2).encode(
@@ -185,17 +207,19 @@ def forest_chart(frame: pd.DataFrame, name: str, *, label: str = "term",
     ref = alt.Chart(alt.InlineData(values=[{"ref": reference}])).mark_rule(
         color=SOFT, strokeDash=[4, 3]).encode(x=alt.X("ref:Q", scale=xs))
     height = max(80, 26 * len(order))
-    return finish(alt.layer(ref, rule, dot).properties(height=height), name)
+    return finish(alt.layer(ref, rule, dot).properties(height=height), name, data,
+                  width=FIXED_WIDTH)
 
 
 def interval_bars(frame: pd.DataFrame, name: str, *, label: str, estimate: str,
                   lower: str, upper: str, x_title: str, reference: float | None = None,
                   x_format: str = ",.0f", log: bool = False) -> dict[str, Any]:
     """Horizontal bars with interval whiskers (value by segment, A/E by segment)."""
+    data = _Datasets(name)
     order = list(dict.fromkeys(frame[label].astype(str)))
     xs = alt.Scale(type="log") if log else alt.Scale(zero=True)
     y = alt.Y(f"{label}:N", sort=order, title=None, axis=alt.Axis(labelLimit=340))
-    base = alt.Chart(_data(frame))
+    base = alt.Chart(data(frame))
     tip = [alt.Tooltip(f"{label}:N"), alt.Tooltip(f"{estimate}:Q", format=x_format),
            alt.Tooltip(f"{lower}:Q", format=x_format), alt.Tooltip(f"{upper}:Q", format=x_format)]
     layers = []
@@ -214,15 +238,16 @@ def interval_bars(frame: pd.DataFrame, name: str, *, label: str, estimate: str,
             color=PALETTE[5], strokeDash=[4, 3], strokeWidth=1.5).encode(
             x=alt.X("ref:Q", scale=xs)))
     height = max(80, 28 * len(order))
-    return finish(alt.layer(*layers).properties(height=height), name)
+    return finish(alt.layer(*layers).properties(height=height), name, data, width=FIXED_WIDTH)
 
 
 def heat_chart(frame: pd.DataFrame, name: str, *, row: str, column: str, value: str,
                row_title: str, column_title: str, value_title: str) -> dict[str, Any]:
     """A cohort x month grid coloured by retention; missing cells stay blank."""
+    data = _Datasets(name)
     rows = list(dict.fromkeys(frame[row].astype(str)))
     shown = frame[np.isfinite(frame[value].to_numpy(dtype=float))]
-    base = alt.Chart(_data(shown))
+    base = alt.Chart(data(shown))
     rect = base.mark_rect().encode(
         x=alt.X(f"{column}:O", title=column_title, axis=alt.Axis(labelAngle=0)),
         y=alt.Y(f"{row}:O", sort=rows, title=row_title or None),
@@ -232,14 +257,15 @@ def heat_chart(frame: pd.DataFrame, name: str, *, row: str, column: str, value: 
         tooltip=[alt.Tooltip(f"{row}:O"), alt.Tooltip(f"{column}:O"),
                  alt.Tooltip(f"{value}:Q", format=".1%")])
     height = max(120, 16 * len(rows))
-    return finish(rect.properties(height=height), name)
+    return finish(rect.properties(height=height), name, data)
 
 
 def bars_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str | None,
                x_title: str, y_title: str, y_format: str = ",.0f",
                stack: bool = True) -> dict[str, Any]:
     """Vertical bars by a quantitative or ordinal x (e.g. rows by reason)."""
-    base = alt.Chart(_data(frame))
+    data = _Datasets(name)
+    base = alt.Chart(data(frame))
     color: Any = alt.value(PALETTE[0])
     if series:
         levels = list(dict.fromkeys(frame[series].astype(str)))
@@ -250,4 +276,23 @@ def bars_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str | 
         x=alt.X(f"{y}:Q", title=y_title, axis=alt.Axis(format=y_format),
                 stack=True if stack else None),
         color=color, tooltip=[alt.Tooltip(f"{x}:N"), alt.Tooltip(f"{y}:Q", format=y_format)])
-    return finish(chart.properties(height=max(80, 26 * len(order))), name)
+    return finish(chart.properties(height=max(80, 26 * len(order))), name, data)
+
+
+def loglog_chart(points: pd.DataFrame, lines: pd.DataFrame, name: str, *,
+                 series: str = "segment") -> dict[str, Any]:
+    """log(−log S) against log tenure: Kaplan–Meier dots and fitted Weibull lines."""
+    data = _Datasets(name)
+    levels = list(dict.fromkeys(list(points[series].astype(str)) +
+                                list(lines[series].astype(str))))
+    color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=None)
+    x = alt.X("log_days:Q", title="log(tenure in days)", scale=alt.Scale(zero=False))
+    dots = alt.Chart(data(points)).mark_point(size=14, opacity=0.55, filled=True).encode(
+        x=x, y=alt.Y("log_minus_log_retention:Q", title="log(−log retention)",
+                     scale=alt.Scale(zero=False)), color=color,
+        tooltip=[alt.Tooltip(f"{series}:N"), alt.Tooltip("days:Q", format=".0f"),
+                 alt.Tooltip("retention:Q", format=".1%")])
+    fitted = alt.Chart(data(lines)).mark_line(strokeWidth=1.8).encode(
+        x=x, y=alt.Y("fitted_log_cumulative_hazard:Q"), color=color,
+        detail=f"{series}:N")
+    return finish(alt.layer(dots, fitted).properties(height=HEIGHT), name, data)

@@ -343,9 +343,314 @@ def _quarantine_section(quarantine: Any) -> Section:
         table=frame, show_rows=30),))
 
 
+# --------------------------------------------------------------------------- hazards
+def _term_frame(frame: pd.DataFrame, label: str = "label") -> pd.DataFrame:
+    out = frame.copy()
+    out.insert(0, "term", out.pop(label).astype(str))
+    return out
+
+
+def hazards_page(run: Any) -> Page:
+    sections: list[Section] = [_cox_section(run)]
+    w = run.get("weibull")
+    title = "Weibull model: shape and time ratios"
+    if not w.ok:
+        sections.append(failure_section(title, w))
+    else:
+        fit = w.value
+        shape = fit.shape_test
+        facts = (Fact("Weibull shape", f"{shape.shape:.3f}",
+                      f"95 % interval {shape.lower:.3f} to {shape.upper:.3f}", "weibull-shape",
+                      shape.shape),
+                 Fact("Test of constant risk", f"χ² {shape.statistic:.1f}",
+                      "p < 0.001" if shape.p_value < 0.001 else f"p = {shape.p_value:.3f}",
+                      "weibull-lr", shape.statistic))
+        tr = _term_frame(fit.time_ratios)[["term", "time_ratio", "lower", "upper",
+                                           "hazard_ratio"]]
+        figs = []
+        if len(tr):
+            figs.append(Figure(
+                key="hazards-weibull-time-ratios", title="Time ratios (Weibull)",
+                guide="A time ratio stretches (above 1) or shrinks (below 1) the whole "
+                      "lifetime of a customer with that attribute, against the reference "
+                      "group: 1.3 means customers stay 30 % longer. Whiskers are 95 % "
+                      "intervals; a whisker that crosses the dashed line at 1 is not a clear "
+                      "difference.",
+                chart=charts.forest_chart(tr, "hazards_weibull_time_ratios",
+                                          estimate="time_ratio",
+                                          x_title="Time ratio (log scale; 1 = no difference)"),
+                table=tr, csv=_term_frame(fit.to_frame())))
+        sections.append(Section(title, intro=shape.reading + " " + fit.relation + ".",
+                                facts=facts, figures=tuple(figs),
+                                bullets=tuple(fit.warnings)))
+    return Page("hazards", "Hazards", "What raises or lowers the risk of churn at any tenure, "
+                "from the proportional-hazards model and the Weibull model.", tuple(sections),
+                nav_label="Hazards")
+
+
+def _cox_section(run: Any) -> Section:
+    o = run.get("cox")
+    title = "Cox model: hazard ratios"
+    if not o.ok:
+        return failure_section(title, o)
+    return cox_section(run, o.value)
+
+
+def cox_section(run: Any, cox: Any) -> Section:  # replaced when the Cox result is read
+    frame = hazard_frame(cox)
+    return Section("Cox model: hazard ratios", figures=(Figure(
+        key="hazards-cox", title="Hazard ratios (Cox)",
+        guide="Each dot is how many times more likely (above 1) or less likely (below 1) "
+              "customers with that attribute are to churn at any given tenure than the "
+              "reference group, other attributes held fixed; whiskers are 95 % intervals.",
+        chart=charts.forest_chart(frame, "hazards_cox"), table=frame),))
+
+
+# --------------------------------------------------------------------------- model fit
+FIT_MONTHS_STEP = 0.5
+
+
+def fit_page(run: Any) -> Page:
+    sections: list[Section] = []
+    km = run.get("km")
+    curves_title = "Kaplan–Meier against the fitted curves"
+    if not km.ok:
+        sections.append(failure_section(curves_title, km))
+    else:
+        c = km.value
+        parts = [_curve_points(c).assign(curve="Kaplan–Meier (data)")
+                 [["curve", "month", "retention"]]]
+        top = float(c.follow_up)
+        grid = np.arange(0.0, top + 1e-9, FIT_MONTHS_STEP * DAYS_PER_MONTH)
+        notes = []
+        for name, label in (("fit:exponential", "exponential"), ("fit:weibull", "Weibull")):
+            o = run.get(name)
+            if not o.ok:
+                notes.append(f"{label}: {o.error}")
+                continue
+            f = o.value.predict_retention(None, grid)
+            parts.append(pd.DataFrame({"curve": label, "month": grid / DAYS_PER_MONTH,
+                                       "retention": f.retention}))
+        cox_curve = _cox_population_curve(run, grid)
+        if isinstance(cox_curve, str):
+            notes.append(f"Cox: {cox_curve}")
+        else:
+            parts.append(cox_curve)
+        frame = pd.concat(parts, ignore_index=True)
+        dashed = {lv: lv != "Kaplan–Meier (data)" for lv in frame["curve"].unique()}
+        wide = _fit_grid_table(frame)
+        sections.append(Section(curves_title, bullets=tuple(notes), figures=(Figure(
+            key="fit-curves", title="Observed retention and model curves",
+            guide="The solid step line is the Kaplan–Meier estimate from the data; dashed lines "
+                  "are the models (without covariates, so each describes the whole book). A "
+                  "model that follows the step line over the observed tenures is fit to use "
+                  "for projections; a gap shows where its shape is wrong.",
+            chart=charts.lines_chart(frame, "fit_curves", x="month", y="retention",
+                                     series="curve", x_title="Months since start",
+                                     y_title="Still subscribed", dashed=dashed,
+                                     y_domain=[0, 1]),
+            table=wide, csv=frame),)))
+    ll = run.get("loglog")
+    ll_title = "The log(−log) check of the Weibull shape"
+    if not ll.ok:
+        sections.append(failure_section(ll_title, ll))
+    else:
+        d = ll.value
+        sections.append(Section(ll_title, intro=d.summary() + ".", bullets=tuple(d.warnings),
+                                figures=(Figure(
+            key="fit-loglog", title="log(−log retention) against log tenure",
+            guide="Dots are the Kaplan–Meier estimates; lines are the Weibull model with one "
+                  "level per segment. Under a Weibull proportional-hazards model the dots of "
+                  "each segment lie on a straight line, and the lines are parallel. Curving "
+                  "dots mean the Weibull shape is wrong; crossing lines mean the hazards are "
+                  "not proportional.",
+            chart=charts.loglog_chart(d.points, d.lines, "fit_loglog"),
+            table=d.points, csv=d.points),)))
+    cm = run.get("compare")
+    cm_title = "Information criteria"
+    if not cm.ok:
+        sections.append(failure_section(cm_title, cm))
+    else:
+        comp = cm.value
+        frame = comp.to_frame()
+        best = comp.best_by_aic
+        sections.append(Section(cm_title, intro="The same covariates in each model; lower AIC or "
+                                "BIC is better, and a difference under about 2 is no real "
+                                "difference (common practice).",
+                                facts=(Fact("Lowest AIC", best, "", "best-aic", None),),
+                                figures=(Figure(
+            key="fit-criteria", title="Log-likelihood, AIC and BIC",
+            guide="One row per model. delta_aic and delta_bic are the distance to the best "
+                  "model; BIC counts the number of churns as the sample size.",
+            table=frame),)))
+    return Page("fit", "Model fit", "Do the fitted models describe the data? Each is set "
+                "against the Kaplan–Meier curve and compared by information criteria.",
+                tuple(sections), nav_label="Model fit")
+
+
+def _cox_population_curve(run: Any, grid: np.ndarray) -> pd.DataFrame | str:
+    o = run.get("cox:curve")
+    if not o.ok:
+        return o.error or "not run"
+    curve = o.value
+    return pd.DataFrame({"curve": "Cox (average over customers)",
+                         "month": np.asarray(curve.times) / DAYS_PER_MONTH,
+                         "retention": np.asarray(curve.retention)})
+
+
+def _fit_grid_table(frame: pd.DataFrame) -> pd.DataFrame:
+    """Each curve read at whole-year-ish tenures (step lookup on its own points)."""
+    rows = []
+    for m in (1, 3, 6, 12, 18, 24, 36):
+        row: dict[str, Any] = {"month": m}
+        for name, g in frame.groupby("curve", sort=False):
+            mm = g["month"].to_numpy(dtype=float)
+            if m > mm.max() + 1e-9:
+                row[str(name)] = math.nan
+                continue
+            k = np.searchsorted(mm, m, side="right") - 1
+            row[str(name)] = float(g["retention"].to_numpy(dtype=float)[max(k, 0)])
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+# --------------------------------------------------------------------------- actuarial
+ACTUARIAL_CAUTIONS = (
+    "Rates are estimates from the observed exposure and churns, with Poisson intervals; "
+    "months with little exposure carry wide intervals.",
+    "Reserving and pricing bases are for qualified actuaries to set under local standards; "
+    "these tables are evidence for that work, not a basis in themselves.",
+)
+
+
+def decrements_page(run: Any) -> Page:
+    o = run.get("decrements")
+    title = "Decrement table by tenure month"
+    if not o.ok:
+        return Page("decrements", "Decrement table", "Churn as decrements with exposure.",
+                    (failure_section(title, o),), cautions=ACTUARIAL_CAUTIONS,
+                    nav_label="Decrement table", group="actuarial")
+    dt = o.value
+    frame = dt.to_frame()
+    seg = frame[frame["segment"] == frame["segment"].iloc[0]]
+    grad = run.get("graduation")
+    chart_parts = [pd.DataFrame({"rate": "crude q", "month": seg["month"] + 1,
+                                 "q": seg["q"], "lower": seg["q_lower"], "upper": seg["q_upper"]})]
+    notes = []
+    if grad.ok:
+        g = grad.value.to_frame()
+        chart_parts.append(pd.DataFrame({"rate": "graduated q", "month": g["month"] + 1,
+                                         "q": g["graduated_q"], "lower": math.nan,
+                                         "upper": math.nan}))
+    elif grad.kind != "absent":
+        notes.append(f"graduation: {grad.error}")
+    chart_frame = pd.concat(chart_parts, ignore_index=True)
+    shown = seg[["label", "in_force", "exposure", "churns", "churns_voluntary",
+                 "churns_involuntary", "m", "q", "q_lower", "q_upper", "survivors"]]
+    if grad.ok:
+        shown = shown.assign(graduated_q=grad.value.to_frame()["graduated_q"].to_numpy()
+                             [:len(shown)])
+    overall = dt.n_events / dt.total_exposure if dt.total_exposure > 0 else math.nan
+    facts = (Fact("Exposure", f"{num(dt.total_exposure)} customer-months", "central exposure",
+                  "exposure", dt.total_exposure),
+             Fact("Churns", num(dt.n_events), "all causes", "decrement-churns", dt.n_events),
+             Fact("Central rate", f"{overall:.4f}", "churns per customer-month", "central-rate",
+                  overall))
+    fig = Figure(
+        key="decrements-q", title="Monthly churn probability q by tenure month",
+        guide="Dots are the crude q = 1 − exp(−m) of each tenure month with exact Poisson "
+              "95 % intervals (shaded); the line, where shown, is the graduated rate. Early "
+              "months often carry the highest churn; wide bands at long tenures reflect "
+              "little exposure.",
+        chart=charts.lines_chart(chart_frame, "decrements_q", x="month", y="q", series="rate",
+                                 x_title="Tenure month", y_title="q (monthly probability)",
+                                 lower="lower", upper="upper",
+                                 points="crude q", y_format=".1%"),
+        table=shown, csv=frame, show_rows=60)
+    return Page("decrements", "Decrement table", "Churn read as decrements: exposure in "
+                "customer-months, churns by cause, central rates m and monthly probabilities "
+                "q by month of tenure, with survivors per 10,000.",
+                (Section(title, intro=dt.summary(), facts=facts,
+                         bullets=tuple(notes) + tuple(dt.warnings), figures=(fig,)),),
+                cautions=ACTUARIAL_CAUTIONS, assumptions=tuple(dt.assumptions),
+                nav_label="Decrement table", group="actuarial")
+
+
+def expected_page(run: Any) -> Page:
+    o = run.get("ae")
+    title = "Actual against expected by segment"
+    if not o.ok:
+        return Page("expected", "Actual vs expected", "Observed churns against a basis.",
+                    (failure_section(title, o),), cautions=ACTUARIAL_CAUTIONS,
+                    nav_label="Actual vs expected", group="actuarial")
+    return ae_page(run, o.value)
+
+
+def ae_page(run: Any, ae: Any) -> Page:  # filled when the A/E result lands
+    frame = ae.to_frame()
+    return Page("expected", "Actual vs expected", "Observed churns against a basis.",
+                (Section("Actual against expected by segment", figures=(Figure(
+                    key="expected-segments", title="A/E by segment", guide="", table=frame),)),),
+                cautions=ACTUARIAL_CAUTIONS, nav_label="Actual vs expected", group="actuarial")
+
+
+def causes_page(run: Any) -> Page:
+    o = run.get("incidence")
+    title = "Cumulative incidence by cause"
+    if not o.ok:
+        return Page("causes", "Churn by cause", "Voluntary and involuntary churn apart.",
+                    (failure_section(title, o),), nav_label="Churn by cause", group="actuarial")
+    ci = o.value
+    frame = ci.to_frame()
+    seg = frame[frame["segment"] == frame["segment"].iloc[0]]
+    parts = []
+    for cause in ci.causes:
+        g = seg[seg["cause"] == cause]
+        t0 = pd.DataFrame({"month": [0.0], "cif": [0.0], "lower": [0.0], "upper": [0.0],
+                           "naive": [0.0]})
+        g = pd.concat([t0, g[["month", "cif", "lower", "upper", "naive"]]], ignore_index=True)
+        parts.append(pd.DataFrame({"curve": f"{cause} (Aalen–Johansen)", "month": g["month"],
+                                   "probability": g["cif"], "lower": g["lower"],
+                                   "upper": g["upper"]}))
+        parts.append(pd.DataFrame({"curve": f"{cause}, 1 − KM (overstates)",
+                                   "month": g["month"], "probability": g["naive"],
+                                   "lower": math.nan, "upper": math.nan}))
+    chart_frame = pd.concat(parts, ignore_index=True)
+    dashed = {lv: "1 − KM" in lv for lv in chart_frame["curve"].unique()}
+    over = ci.overstatement
+    facts = []
+    for cause in ci.causes:
+        rows = over[(over["cause"] == cause) & (over["month"] == 12.0)]
+        if len(rows):
+            r = rows.iloc[0]
+            facts.append(Fact(f"{cause.capitalize()} churn by 12 months", pct(float(r["cif"])),
+                              f"1 − KM says {pct(float(r['naive']))}: "
+                              f"{100 * float(r['difference']):.1f} points too high",
+                              f"cif-12m-{slug(cause)}", float(r["cif"])))
+    fig = Figure(
+        key="causes-incidence", title="Share churned by each cause, by tenure",
+        guide="Solid lines are the probability of having churned from each cause by a given "
+              "month, with 95 % bands (Aalen–Johansen: the causes add up to all churn). Dashed "
+              "lines are 1 − Kaplan–Meier with the other cause treated as censoring, which "
+              "answers 'what if the other cause did not exist' and so overstates each cause.",
+        chart=charts.lines_chart(chart_frame, "causes_incidence", x="month", y="probability",
+                                 series="curve", x_title="Months since start",
+                                 y_title="Churned from this cause", dashed=dashed, step=True,
+                                 lower="lower", upper="upper"),
+        table=over, csv=frame)
+    return Page("causes", "Churn by cause", "Voluntary churn (a customer chose to leave) and "
+                "involuntary churn (payment failed) have different causes and cures; here they "
+                "are kept apart as competing risks.",
+                (Section(title, intro=ci.summary(), facts=tuple(facts), bullets=ci.warnings,
+                         figures=(fig,)),),
+                assumptions=(f"method: {ci.method}", f"intervals: {ci.interval}"),
+                nav_label="Churn by cause", group="actuarial")
+
+
 # --------------------------------------------------------------------------- the site
 PAGE_BUILDERS: tuple[Callable[[Any], Page], ...] = (
-    overview_page, curves_page, cohorts_page, quality_page,
+    overview_page, curves_page, cohorts_page, hazards_page, fit_page, quality_page,
+    decrements_page, expected_page, causes_page,
 )
 
 
