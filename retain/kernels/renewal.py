@@ -141,5 +141,22 @@ def sbg_derl(alpha: float, beta: float, discount: float, renewals: np.ndarray | 
     """
     n = np.asarray(renewals, dtype=np.float64)
     x = 1.0 / (1.0 + discount)
-    return (beta + n) / (alpha + beta + n) * special.hyp2f1(1.0, beta + n + 1.0,
-                                                            alpha + beta + n + 1.0, x)
+    out = np.asarray((beta + n) / (alpha + beta + n)
+                     * special.hyp2f1(1.0, beta + n + 1.0, alpha + beta + n + 1.0, x))
+    bad = ~np.isfinite(out)
+    if bad.any():   # hyp2f1 fails for very large alpha, beta: sum the series instead
+        out = out.copy() if out.ndim else out.reshape(1).copy()
+        flat_n = np.atleast_1d(n)
+        for i in np.flatnonzero(np.atleast_1d(bad)):
+            out.flat[i] = _derl_series(alpha, beta, x, float(flat_n.flat[i]))
+        out = out.reshape(np.shape(n))
+    return out
+
+
+def _derl_series(alpha: float, beta: float, x: float, n: float) -> float:
+    """sum_k x**k prod_{j=1..k+1} r_{n+j}; each term is at most x times the previous."""
+    terms = max(64, int(np.ceil(np.log(1e-17) / np.log(x))) + 1)
+    j = np.arange(1, terms + 1, dtype=np.float64)
+    log_r = np.log(beta + n + j - 1.0) - np.log(alpha + beta + n + j - 1.0)
+    logs = np.cumsum(log_r) + np.log(x) * (j - 1.0)
+    return float(np.sum(np.exp(logs)))
