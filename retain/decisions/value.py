@@ -27,6 +27,7 @@ These are statistical estimates, not accounting figures: see :data:`CAUTION`.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from collections.abc import Callable, Mapping, Sequence
@@ -38,8 +39,13 @@ import numpy as np
 import pandas as pd
 
 from retain.data.table import Categorical, StartStop
-from retain.errors import ConfigError, DataError, ModelError
+from retain.errors import ConfigError, DataError, ModelError, RetainError
 from retain.kernels import discount as kd
+from retain.kernels.risksets import first_of_spell
+from retain.models.cox import fit_cox
+from retain.models.curves import kaplan_meier
+from retain.models.parametric import fit_exponential, fit_weibull
+from retain.models.renewal import fit_renewal
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
@@ -132,8 +138,7 @@ class StepCurve:
     delta-method variance of log S). Up to ``join_days`` the curve is the
     step function; past it ``S(t) = S_km(join) * T(t) / T(join)`` with ``T``
     the tail curve (conditional survival of the tail model). Without a tail
-    the curve stays flat past the last time (and value past the data is then
-    flagged as an extrapolation at the last observed level).
+    the curve is not defined (NaN) past ``join_days``.
     """
 
     times: np.ndarray
@@ -153,6 +158,8 @@ class StepCurve:
         days = np.asarray(days, dtype=np.float64)
         inside = np.minimum(days, self.join_days)
         s = self._step(steps, inside)
+        if tail is None and self.tail is None:
+            s = np.where(days > self.join_days, np.nan, s)
         if tail is not None:
             past = days > self.join_days
             if past.any():
@@ -193,52 +200,104 @@ def _profile_label(profile: Mapping[str, Any] | None) -> str:
     return " (" + ", ".join(f"{k}={v}" for k, v in profile.items()) + ")"
 
 
-def _model_draws(fit: Any, profile: Mapping[str, Any] | None, n: int, seed: int
-                 ) -> Sequence[DrawFn] | None:
-    """Draws from a fit that exposes ``with_params`` / ``params`` / ``covariance``."""
-    params = getattr(fit, "params", None)
-    cov = getattr(fit, "covariance", None)
-    if params is None or cov is None or not hasattr(fit, "with_params"):
-        return None
-    params = np.asarray(params, dtype=np.float64)
-    cov = np.asarray(cov, dtype=np.float64)
-    if not np.all(np.isfinite(cov)):
-        return None
-    rng = np.random.default_rng(seed)
-    thetas = rng.multivariate_normal(params, cov, size=n, method="eigh")
-    out = []
-    for th in thetas:
-        f = fit.with_params(th)
-        out.append(lambda d, f=f: _retention(f, profile, d))
-    return out
+def _as_array(prediction: Any) -> np.ndarray:
+    """Retention values out of a model's prediction (array or forecast result)."""
+    if isinstance(prediction, np.ndarray):
+        return prediction.astype(np.float64)
+    for name in ("retention", "survival"):
+        v = getattr(prediction, name, None)
+        if v is not None:
+            return np.asarray(v, dtype=np.float64)
+    return np.asarray(prediction, dtype=np.float64)
 
 
-def _retention(fit: Any, profile: Mapping[str, Any] | None, days: np.ndarray) -> np.ndarray:
+#: above this many distinct tenures a model curve is read off a half-day grid
+EXACT_POINTS = 4096
+
+
+def _evaluate(fit: Any, profile: Mapping[str, Any] | None, days: np.ndarray,
+              smooth: bool) -> np.ndarray:
+    """S(days) from ``fit.predict_retention(profile, times)``.
+
+    Up to :data:`EXACT_POINTS` distinct tenures are predicted exactly; more
+    are read off a half-day grid (linear in log S for a smooth parametric
+    curve, the step value for a step curve such as Cox-Breslow, whose jumps
+    fall on whole or half days), which keeps the cost of value intervals
+    independent of the size of the base.
+    """
     days = np.asarray(days, dtype=np.float64)
     flat = days.ravel()
     uniq, inv = np.unique(flat, return_inverse=True)
-    s = np.asarray(fit.predict_retention(profile, uniq), dtype=np.float64).ravel()
-    return s[inv].reshape(days.shape)
+    if uniq.shape[0] <= EXACT_POINTS:
+        s = _as_array(fit.predict_retention(profile, uniq)).ravel()
+        return s[inv].reshape(days.shape)
+    top = float(uniq[-1])
+    grid = np.arange(0.0, top + 1.0, 0.5)
+    sg = _as_array(fit.predict_retention(profile, grid)).ravel()
+    if smooth:
+        with np.errstate(divide="ignore"):
+            out = np.exp(np.interp(flat, grid, np.log(sg)))
+    else:
+        out = sg[np.clip(np.searchsorted(grid, flat, side="right") - 1, 0, None)]
+    return out.reshape(days.shape)
+
+
+def _draw_fits(fit: Any, n: int, seed: int) -> list[Any] | None:
+    """Copies of ``fit`` with parameters drawn from N(estimate, covariance)."""
+    cox_cov = "cov_robust" if getattr(fit, "robust", False) else "cov_model"
+    for pname, cname in (("params", "cov"), ("coef", cox_cov), ("coef", "cov_model")):
+        params = getattr(fit, pname, None)
+        cov = getattr(fit, cname, None)
+        if params is not None and cov is not None:
+            break
+    else:
+        return None
+    params = np.asarray(params, dtype=np.float64)
+    cov = np.asarray(cov, dtype=np.float64)
+    if params.size == 0 or cov.shape != (params.size, params.size) or \
+            not np.all(np.isfinite(cov)):
+        return None
+    rng = np.random.default_rng(seed)
+    thetas = rng.multivariate_normal(params, cov, size=n, method="eigh")
+    if hasattr(fit, "with_params"):
+        return [fit.with_params(th) for th in thetas]
+    if dataclasses.is_dataclass(fit):
+        return [dataclasses.replace(fit, **{pname: th}) for th in thetas]
+    return None
 
 
 @dataclass(frozen=True)
 class ModelCurve:
-    """A fitted model's predicted retention for one covariate profile."""
+    """A fitted model's predicted retention for one covariate profile.
+
+    Draws redraw the model's parameters from N(estimate, covariance) and
+    predict again (for Cox, the Breslow baseline is held at its estimate).
+    """
 
     fit: Any
     profile: Mapping[str, Any] | None
     label: str
     data_horizon_days: float = math.inf
+    smooth: bool = True
+    limit_days: float = math.inf
+
+    def _at(self, fit: Any, days: np.ndarray) -> np.ndarray:
+        days = np.asarray(days, dtype=np.float64)
+        s = _evaluate(fit, self.profile, np.minimum(days, self.limit_days), self.smooth)
+        return np.where(days > self.limit_days, np.nan, s)
 
     def survival(self, days: np.ndarray) -> np.ndarray:
-        return _retention(self.fit, self.profile, days)
+        return self._at(self.fit, days)
 
     def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None:
-        return _model_draws(self.fit, self.profile, n, seed)
+        fits = _draw_fits(self.fit, n, seed)
+        if fits is None:
+            return None
+        return [(lambda d, f=f: self._at(f, d)) for f in fits]
 
 
-def _data_horizon(fit: Any) -> float:
-    for name in ("max_time", "data_horizon_days", "max_stop", "last_time"):
+def _follow_up(fit: Any) -> float:
+    for name in ("follow_up", "data_horizon_days", "max_time"):
         v = getattr(fit, name, None)
         if v is not None:
             try:
@@ -249,18 +308,172 @@ def _data_horizon(fit: Any) -> float:
 
 
 def curve_from_model(fit: Any, profile: Mapping[str, Any] | None = None, *,
-                     label: str | None = None) -> ModelCurve:
+                     label: str | None = None, smooth: bool | None = None) -> ModelCurve:
     """Wrap a fitted model with ``predict_retention(profile, days)`` as a curve.
 
-    Works for the parametric (Weibull, exponential) and Cox fits. Draws come
-    from the fit's parameter covariance when it offers ``params``,
-    ``covariance`` and ``with_params``.
+    Works for the parametric fits (Weibull, exponential, piecewise) and the
+    Cox fit (``smooth=False``: a Breslow step curve). Draws come from the
+    fit's parameter covariance.
     """
     if not hasattr(fit, "predict_retention"):
         raise ModelError(type(fit).__name__, "the fit cannot predict retention",
-                         "pass a fitted Weibull, exponential, Cox or renewal model")
-    name = label or getattr(fit, "method", None) or type(fit).__name__
-    return ModelCurve(fit, profile, f"{name}{_profile_label(profile)}", _data_horizon(fit))
+                         "pass a fitted Weibull, exponential or Cox model")
+    kind = str(getattr(fit, "model", "") or type(fit).__name__)
+    if smooth is None:
+        smooth = kind in ("weibull", "exponential")
+    name = label or {"weibull": "Weibull", "exponential": "exponential",
+                     "piecewise": "piecewise-constant hazard", "CoxFit": "Cox"}.get(kind, kind)
+    horizon, limit = _follow_up(fit), math.inf
+    if hasattr(fit, "baseline") and hasattr(fit, "coef"):
+        # a Breslow curve is flat after the last churn: not an estimate there
+        times = np.asarray(fit.baseline()["time"], dtype=np.float64)
+        horizon = limit = float(times.max()) if times.size else 0.0
+    return ModelCurve(fit, dict(profile) if profile else None,
+                      f"{name}{_profile_label(profile)}", horizon, smooth, limit)
+
+
+@dataclass(frozen=True)
+class JoinedCurve:
+    """``head`` up to ``join_days``, then ``tail``'s conditional survival.
+
+    ``S(t) = S_head(t)`` for ``t <= join``, ``S_head(join) * S_tail(t) / S_tail(join)``
+    beyond. Draws pair the two curves' draws.
+    """
+
+    head: SurvivalCurve
+    tail: SurvivalCurve
+    join_days: float
+    label: str
+    data_horizon_days: float
+
+    def _join(self, h: DrawFn, t: DrawFn, days: np.ndarray) -> np.ndarray:
+        days = np.asarray(days, dtype=np.float64)
+        s = np.asarray(h(np.minimum(days, self.join_days)), dtype=np.float64)
+        past = days > self.join_days
+        if past.any():
+            t_join = np.asarray(t(np.array([self.join_days])), dtype=np.float64)
+            s = s.copy()
+            s[past] = s[past] * kd.conditional_survival(t_join, np.asarray(t(days[past])))
+        return s
+
+    def survival(self, days: np.ndarray) -> np.ndarray:
+        return self._join(self.head.survival, self.tail.survival, days)
+
+    def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None:
+        hd = self.head.draws(n, seed)
+        td = self.tail.draws(n, seed + 1)
+        if hd is None and td is None:
+            return None
+        hs = list(hd) if hd is not None else [self.head.survival] * n
+        ts = list(td) if td is not None else [self.tail.survival] * n
+        return [(lambda d, h=h, t=t: self._join(h, t, d)) for h, t in zip(hs, ts, strict=True)]
+
+
+def curve_from_cox(fit: Any, profile: Mapping[str, Any], tail: SurvivalCurve | None = None
+                   ) -> SurvivalCurve:
+    """A Cox-predicted curve for ``profile``; past the last churn, ``tail`` (if given).
+
+    The Breslow curve is flat after the last churn time, so without a tail
+    the curve is refused there (NaN); with a tail (e.g. a Weibull fit with
+    the same covariates and profile) it continues by the tail's conditional
+    survival.
+    """
+    head = curve_from_model(fit, profile, label="Cox", smooth=False)
+    if tail is None:
+        return head
+    join = head.data_horizon_days
+    return JoinedCurve(head, tail, join, f"{head.label} to {join / DAYS_PER_MONTH:.0f} "
+                       f"months, then {tail.label}", join)
+
+
+def curve_from_kaplan_meier(km: Any, tail: SurvivalCurve | None = None, *,
+                            min_at_risk: float = 30.0, label: str | None = None) -> StepCurve:
+    """A Kaplan-Meier curve (``retain.models.curves.RetentionCurve``) as a value curve.
+
+    Without ``tail`` the curve is defined up to the last observed tenure
+    (value past it is refused). With ``tail`` (e.g. a Weibull curve) the KM
+    curve is used up to the last tenure with at least ``min_at_risk``
+    customers at risk and the tail's conditional survival beyond it.
+    """
+    times = np.asarray(km.times, dtype=np.float64)
+    at_risk = np.asarray(km.at_risk, dtype=np.float64)
+    follow = float(km.follow_up)
+    if tail is None:
+        join = follow
+    else:
+        ok = np.flatnonzero(at_risk >= min_at_risk)
+        join = float(times[ok[-1]]) if ok.size else 0.0
+    base = label or f"Kaplan-Meier {km.label}"
+    name = base if tail is None else f"{base} to {join / DAYS_PER_MONTH:.0f} months, " \
+        f"then {tail.label}"
+    return StepCurve(times=times, survival_steps=np.asarray(km.survival, dtype=np.float64),
+                     greenwood=np.asarray(km.greenwood, dtype=np.float64), join_days=join,
+                     tail=tail, label=name, data_horizon_days=follow)
+
+
+@dataclass(frozen=True)
+class RenewalCurve:
+    """A shifted-beta-geometric fit (``retain.models.renewal.RenewalFit``) as a value curve.
+
+    ``S(t days) = S_sBG(floor(t / period_days))``: renewals survived by
+    tenure ``t``. Draws take (log alpha, log beta) from N(estimate, cov).
+    With monthly periods and no horizon cap, the residual value has the
+    closed form ``DERL(d, n) / (1 + d)`` per unit margin (Fader & Hardie
+    2010, Marketing Science 29(1), eq. 6), with ``n`` the renewals made.
+    """
+
+    fit: Any
+    label: str
+    data_horizon_days: float
+
+    @property
+    def period_days(self) -> float:
+        return float(self.fit.period_days or DAYS_PER_MONTH)
+
+    def _periods(self, days: np.ndarray) -> np.ndarray:
+        return np.floor(np.asarray(days, dtype=np.float64) / self.period_days + 1e-9)
+
+    def survival(self, days: np.ndarray) -> np.ndarray:
+        d = np.asarray(days, dtype=np.float64)
+        return np.asarray(self.fit.survival(self._periods(d).ravel()),
+                          dtype=np.float64).reshape(d.shape)
+
+    def draws(self, n: int, seed: int) -> Sequence[DrawFn] | None:
+        cov = np.asarray(self.fit.cov, dtype=np.float64)
+        if cov.shape != (2, 2) or not np.all(np.isfinite(cov)):
+            return None
+        rng = np.random.default_rng(seed)
+        mean = np.log([self.fit.alpha, self.fit.beta])
+        with np.errstate(over="ignore"):
+            th = np.exp(rng.multivariate_normal(mean, cov, size=n, method="eigh"))
+        # a nearly homogeneous base has huge alpha, beta and a flat likelihood: keep usable draws
+        th = th[np.all(np.isfinite(th) & (th > 0) & (th < 1e12), axis=1)]
+        if th.shape[0] < max(2, n // 2):
+            return None
+        out = []
+        for a, b in th:
+            f = dataclasses.replace(self.fit, alpha=float(a), beta=float(b))
+            out.append(lambda d, f=f: np.asarray(
+                f.survival(self._periods(d).ravel()), dtype=np.float64).reshape(np.shape(d)))
+        return out
+
+    def residual_months(self, tenure_days: np.ndarray, monthly_rate: float) -> np.ndarray | None:
+        """Closed-form ``sum_{k>=1} S(n + k) / S(n) v^k = DERL(d, n) / (1 + d)``; None if n/a."""
+        if abs(self.period_days - DAYS_PER_MONTH) > 1e-9 or monthly_rate <= 0:
+            return None
+        n = self._periods(tenure_days)
+        return np.asarray(self.fit.derl(monthly_rate, n), dtype=np.float64) / (1.0 + monthly_rate)
+
+
+def curve_from_renewal(fit: Any, *, label: str | None = None) -> RenewalCurve:
+    """Wrap a fitted renewal (sBG) model as a value curve."""
+    for name in ("alpha", "beta", "cov", "survival", "derl"):
+        if not hasattr(fit, name):
+            raise ModelError(type(fit).__name__, "not a fitted renewal model",
+                             "pass the result of fit_renewal")
+    period = float(fit.period_days or DAYS_PER_MONTH)
+    return RenewalCurve(fit, label or f"shifted-beta-geometric {fit.label}",
+                        float(fit.n_periods) * period)
 
 
 # ---------------------------------------------------------------- results
@@ -490,8 +703,10 @@ def lifetime_value(
     value = float(kd.discounted_value(s, margin_per_month, factors))
     warnings: list[str] = []
     if not np.all(np.isfinite(s)):
-        raise ModelError(f"lifetime value ({segment})", f"the {curve.label} curve gave a "
-                         "non-finite survival", "check the fit")
+        bad = int(np.flatnonzero(~np.isfinite(s))[0]) + 1
+        raise ModelError(f"lifetime value ({segment})", f"the {curve.label} curve is not "
+                         f"defined at month {bad} of the {h}-month horizon",
+                         "shorten horizon_months or add a parametric tail (km_weibull_tail)")
     fns = curve.draws(n_draws, seed)
     lower = upper = math.nan
     if fns:
@@ -597,21 +812,46 @@ def value_sensitivity(
 
 
 def segment_labels(table: StartStop, by: Sequence[str]) -> np.ndarray:
-    """One text label per row: the values of the ``by`` columns joined by " / "."""
+    """One text label per row: the ``by`` values at the start of the row's spell, joined by ", ".
+
+    A spell stays in the segment it started in (as for the curves by
+    segment), so a customer who moved plan is valued with the curve of the
+    plan they joined on. Missing values read "(missing)"; no ``by`` -> "all".
+    """
     if not by:
         return np.full(table.n_rows, "all", dtype=object)
+    head = first_of_spell(table.customer.codes, table.spell, table.start) \
+        if table.has_customers else np.arange(table.n_rows)
     parts = []
     for name in by:
         col = table.column(name)
         if isinstance(col, Categorical):
             vals = col.values()
-            parts.append(np.where(pd.isna(vals), "(missing)", vals).astype(object))
+            txt = np.array(["(missing)" if v is None else str(v) for v in vals], dtype=object)
         else:
-            parts.append(np.array([("(missing)" if not math.isfinite(x) else f"{x:g}")
-                                   for x in col], dtype=object))
-    out = parts[0].astype(str).astype(object)
+            txt = np.array([("(missing)" if not math.isfinite(x) else f"{x:g}")
+                            for x in col], dtype=object)
+        parts.append(txt[head])
+    out = parts[0]
     for p in parts[1:]:
-        out = out + " / " + p.astype(str)
+        out = out + ", " + p
+    return out
+
+
+def segment_profiles(table: StartStop, by: Sequence[str]) -> dict[str, dict[str, Any]]:
+    """Segment label -> {column: value} (the Cox profile of the segment)."""
+    labels = segment_labels(table, by)
+    out: dict[str, dict[str, Any]] = {}
+    for seg in sorted(set(labels)):
+        i = int(np.flatnonzero(labels == seg)[0])
+        head = first_of_spell(table.customer.codes, table.spell, table.start)[i] \
+            if table.has_customers else i
+        prof: dict[str, Any] = {}
+        for name in by:
+            col = table.column(name)
+            prof[name] = (col.values()[head] if isinstance(col, Categorical)
+                          else float(col[head]))
+        out[seg] = prof
     return out
 
 
@@ -717,12 +957,18 @@ def residual_value(
         grid = uniq[:, None] + months[None, :]
 
         closed = getattr(curve, "residual_months", None)
-        if horizon_months is None and closed is not None:
-            a = np.asarray(closed(uniq, d))
-            method = "closed form (DERL, Fader & Hardie 2010) / (1 + d)"
+        a_closed = closed(uniq, d) if horizon_months is None and closed is not None else None
+        if a_closed is not None:
+            a = np.asarray(a_closed, dtype=np.float64)
+            method = "closed form: DERL (Fader & Hardie 2010, eq. 6) / (1 + d)"
         else:
             a = _residual_per_tenure(curve.survival, uniq, grid, factors)
             method = "sum over months of S(t + k) / S(t) x margin x discount"
+        if not np.all(np.isfinite(a)):
+            raise ModelError(where, f"segment {seg!r}: the {curve.label} curve is not defined "
+                             f"out to {float(uniq.max() + months[-1]) / DAYS_PER_MONTH:.0f} "
+                             "months of tenure", "add a parametric tail (km_weibull_tail) or "
+                             "shorten horizon_months")
         total = float(wm @ a)
         n_cust = float(w_seg.sum())
         fns = curve.draws(n_draws, seed)
@@ -750,6 +996,168 @@ def residual_value(
         horizon_months=horizon_months, timing=TIMING, level=level,
         interval_method=_interval_method(n_draws, level, any_draws), n_draws=n_draws,
         as_of=as_of, warnings=tuple(warnings))
+
+
+# ---------------------------------------------------------------- by segment from the config
+
+CURVES = ("weibull", "exponential", "cox", "km_weibull_tail", "renewal")
+
+
+def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = "weibull", *,
+                   min_events: float = 5.0, conf: float = 0.95
+                   ) -> tuple[dict[str, SurvivalCurve], tuple[str, ...]]:
+    """One retention curve per segment (spells grouped by their starting values).
+
+    ``curve``: ``weibull`` / ``exponential`` (a fit per segment),
+    ``km_weibull_tail`` (Kaplan-Meier per segment to its last tenure with 30
+    at risk, then that segment's Weibull), ``renewal`` (an sBG fit per
+    segment, monthly periods) or ``cox`` (one Cox model with the ``by``
+    columns, read at spell start, as covariates; each segment's profile).
+    Segments with fewer than ``min_events`` churns, or whose fit fails, are
+    left out with a warning.
+    """
+    if curve not in CURVES:
+        raise ConfigError("[value] curve", f"unknown curve {curve!r}",
+                          f"allowed values: {', '.join(CURVES)}")
+    labels = segment_labels(table, by)
+    curves: dict[str, SurvivalCurve] = {}
+    warnings: list[str] = []
+    if curve == "cox":
+        if not by:
+            raise ConfigError("[value] curve", "the cox curve needs segments",
+                              "set [segments] by, or choose weibull")
+        head = first_of_spell(table.customer.codes, table.spell, table.start)
+        fixed = {name: (table.column(name).take(head) if table.is_categorical(name)
+                        else table.column(name)[head]) for name in by}
+        try:
+            fit = fit_cox(table.with_columns(**fixed), list(by), conf=conf)
+        except RetainError as exc:
+            raise ModelError("lifetime value (cox curve)", exc.rule, exc.fix) from exc
+        fixed_table = table.with_columns(**fixed)
+        try:
+            tail_fit = fit_weibull(fixed_table, list(by), conf=conf)
+        except RetainError as exc:
+            raise ModelError("lifetime value (cox curve)", f"the Weibull tail failed: {exc.rule}",
+                             exc.fix) from exc
+        warnings.extend(fit.warnings)
+        for seg, prof in segment_profiles(table, by).items():
+            curves[seg] = curve_from_cox(fit, prof, curve_from_model(tail_fit, prof))
+        return curves, tuple(warnings)
+    for seg in sorted(set(labels)):
+        sub = table.take(labels == seg)
+        if sub.n_events < min_events:
+            warnings.append(f"segment {seg!r}: {sub.n_events:g} churns, fewer than "
+                            f"{min_events:g}; not valued")
+            continue
+        try:
+            if curve == "weibull":
+                curves[seg] = curve_from_model(fit_weibull(sub, conf=conf))
+            elif curve == "exponential":
+                curves[seg] = curve_from_model(fit_exponential(sub, conf=conf))
+            elif curve == "km_weibull_tail":
+                km = kaplan_meier(sub, conf=conf, label=seg)
+                curves[seg] = curve_from_kaplan_meier(
+                    km, curve_from_model(fit_weibull(sub, conf=conf)))
+            else:
+                curves[seg] = curve_from_renewal(fit_renewal(sub, conf=conf, label=seg))
+        except RetainError as exc:
+            warnings.append(f"segment {seg!r}: not valued ({exc.message})")
+    if not curves:
+        raise ModelError("lifetime value", f"no segment could be fitted with the {curve} curve",
+                         "; ".join(warnings) or "check the table")
+    return curves, tuple(warnings)
+
+
+def _segment_margin(table: StartStop, mask: np.ndarray, spec: Any) -> tuple[float, str]:
+    per_month = _get(spec, "margin_per_month")
+    if per_month is not None:
+        return float(per_month), f"margin_per_month = {per_month:g}"
+    rate = _get(spec, "margin_rate")
+    price = _get(spec, "price") or "price"
+    if rate is None:
+        raise ConfigError("[value]", "neither margin_per_month nor margin_rate is set",
+                          "set margin_rate (share of the monthly price) or margin_per_month")
+    p = table.numeric(price)[mask]
+    span = (table.stop - table.start)[mask] * table.weight[mask]
+    ok = np.isfinite(p)
+    if not ok.any():
+        raise DataError(f"{table.source}: column {price!r}", "no price in this segment",
+                        "fill the price or set margin_per_month")
+    mean_price = float(np.average(p[ok], weights=span[ok]))
+    return float(rate) * mean_price, (f"margin_rate {rate:g} x {price} (time-weighted mean "
+                                      f"{mean_price:.2f} in the segment)")
+
+
+def value_by_segment(
+    table: StartStop,
+    spec: Any,
+    by: Sequence[str] = (),
+    *,
+    curves: Mapping[str, SurvivalCurve] | None = None,
+    as_of: str | None = None,
+    level: float = 0.95,
+    n_draws: int = DEFAULT_DRAWS,
+    seed: int = DEFAULT_SEED,
+) -> SegmentValues:
+    """Lifetime value of a new customer in each segment, from a ``[value]`` config.
+
+    ``spec`` is a :class:`~retain.data.config.ValueConfig` (or mapping with
+    its keys). Margin per month: ``margin_per_month``, or ``margin_rate`` x
+    the segment's mean monthly price weighted by time at risk (what a month
+    of a customer in the segment brings in). Curves: fitted by
+    :func:`segment_curves` with ``spec.curve`` unless given.
+    """
+    kind = str(_get(spec, "curve", "weibull"))
+    warnings: list[str] = []
+    if curves is None:
+        curves, w = segment_curves(table, by, kind)
+        warnings.extend(w)
+    labels = segment_labels(table, by)
+    head_mask = np.zeros(table.n_rows, dtype=bool)
+    if table.has_customers:
+        head_mask[np.unique(first_of_spell(table.customer.codes, table.spell, table.start))] = True
+    else:
+        head_mask[:] = True
+    values = []
+    for seg, curve in curves.items():
+        mask = labels == seg
+        margin, basis = _segment_margin(table, mask, spec)
+        values.append(lifetime_value(
+            curve, margin_per_month=margin,
+            annual_discount_rate=float(_get(spec, "annual_discount_rate", 0.10)),
+            horizon_months=_get(spec, "horizon_months", 60), segment=seg,
+            customers=int(round(float(table.weight[mask & head_mask].sum()))),
+            margin_basis=basis, level=level, n_draws=n_draws, seed=seed))
+    return SegmentValues(by=tuple(by), curve=kind, values=tuple(values), as_of=as_of,
+                         warnings=tuple(warnings))
+
+
+def base_value_by_segment(
+    table: StartStop,
+    spec: Any,
+    by: Sequence[str] = (),
+    *,
+    curves: Mapping[str, SurvivalCurve] | None = None,
+    as_of: str | None = None,
+    level: float = 0.95,
+    n_draws: int = DEFAULT_DRAWS,
+    seed: int = DEFAULT_SEED,
+) -> BaseValue:
+    """Residual value of the active base by segment, from a ``[value]`` config.
+
+    Each active customer's margin is ``margin_per_month``, or ``margin_rate``
+    x the price on their last row (their current price).
+    """
+    warnings: tuple[str, ...] = ()
+    if curves is None:
+        curves, warnings = segment_curves(table, by, str(_get(spec, "curve", "weibull")))
+    out = residual_value(
+        table, curves, by=by, margin_per_month=_get(spec, "margin_per_month"),
+        margin_rate=_get(spec, "margin_rate"), price=_get(spec, "price") or "price",
+        annual_discount_rate=float(_get(spec, "annual_discount_rate", 0.10)),
+        horizon_months=_get(spec, "horizon_months", 60), as_of=as_of, level=level,
+        n_draws=n_draws, seed=seed)
+    return dataclasses.replace(out, warnings=tuple(warnings) + out.warnings)
 
 
 # ---------------------------------------------------------------- finance export

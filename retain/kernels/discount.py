@@ -64,7 +64,8 @@ def conditional_survival(s_now: np.ndarray, s_later: np.ndarray) -> np.ndarray:
     s_now = np.asarray(s_now, dtype=np.float64)
     s_later = np.asarray(s_later, dtype=np.float64)
     with np.errstate(divide="ignore", invalid="ignore"):
-        out = np.where(s_now > 0, s_later / np.where(s_now > 0, s_now, 1.0), 0.0)
+        out = np.where(s_now > 0, s_later / np.where(s_now > 0, s_now, 1.0),
+                       np.where(s_now == 0, 0.0, np.nan))
     return np.clip(out, 0.0, 1.0)
 
 

@@ -1,0 +1,574 @@
+"""Verdicts on pricing experiments declared in retain.toml.
+
+From an :class:`~retain.data.config.ExperimentSpec` the experiment's
+customers are the spells that began in its cohorts (or signup date range)
+with an arm value of the control or a treatment arm, one spell per customer
+(the first that qualifies). Follow-up is cut at the planned horizon
+(``horizon_days``): rows past it are dropped and a spell still active there
+is censored at it. Arms are read from the first row of the spell (the arm is
+assigned at signup; pre-assignment covariates are likewise read there).
+
+The verdict holds, for each treatment arm against the control:
+
+* Kaplan-Meier retention per arm with pointwise intervals;
+* the log-rank test of equal retention (all arms);
+* the hazard ratio adjusted for the pre-assignment covariates (Cox);
+* the restricted-mean tenure difference to the horizon, with its interval;
+* revenue per assigned customer to the horizon (price x time at risk,
+  censoring handled as in :func:`retain.kernels.discount.revenue_to_horizon`),
+  with a bootstrap interval over customers;
+* a balance table of pre-assignment attributes (standardised differences);
+* warnings: unbalanced arms, too few events for the stated power, interim.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from retain.data.table import Categorical, StartStop
+from retain.errors import DataError, ModelError
+from retain.kernels import discount as kd
+from retain.kernels.risksets import first_of_spell
+from retain.models.cox import fit_cox
+from retain.models.curves import (
+    GroupTest,
+    RestrictedMeanDifference,
+    SegmentCurves,
+    compare_groups,
+    curves_by,
+    rmst_difference,
+)
+from retain.results import Result, to_jsonable
+from retain.units import DAYS_PER_MONTH
+
+#: |standardised difference| above this flags an unbalanced attribute (common practice;
+#: Austin 2009, Statistics in Medicine 28(25))
+BALANCE_LIMIT = 0.1
+DEFAULT_BOOT = 400
+DEFAULT_SEED = 20261202
+
+
+# ---------------------------------------------------------------- results
+
+
+@dataclass(frozen=True)
+class RevenueComparison:
+    """Revenue per assigned customer to the horizon: one treatment arm against the control."""
+
+    control: str
+    treatment: str
+    horizon_days: float
+    control_revenue: float
+    control_lower: float
+    control_upper: float
+    treatment_revenue: float
+    treatment_lower: float
+    treatment_upper: float
+    difference: float
+    lower: float
+    upper: float
+    se: float
+    conf: float
+    method: str
+
+
+@dataclass(frozen=True)
+class AdjustedHazardRatio:
+    """Cox hazard ratio of a treatment arm against the control, adjusted for covariates."""
+
+    treatment: str
+    hazard_ratio: float
+    lower: float
+    upper: float
+    p_value: float
+    covariates: tuple[str, ...]
+    label: str
+
+
+@dataclass(frozen=True, eq=False)
+class ExperimentVerdict(Result):
+    """Everything a pricing team needs to read one experiment.
+
+    ``comparisons`` (see :meth:`to_frame`) has one row per treatment arm.
+    ``interim`` is True when the as-of date comes before the planned horizon
+    has elapsed for every customer of the experiment: the figures are then
+    labelled interim and computed at ``analysis_horizon_days``.
+    """
+
+    name: str
+    arm: str
+    control: str
+    treatments: tuple[str, ...]
+    selection: str
+    as_of: str | None
+    planned_horizon_days: float
+    analysis_horizon_days: float
+    interim: bool
+    arms: pd.DataFrame
+    curves: SegmentCurves
+    logrank: GroupTest
+    adjusted: tuple[AdjustedHazardRatio, ...]
+    rmst: tuple[RestrictedMeanDifference, ...]
+    revenue: tuple[RevenueComparison, ...]
+    balance: pd.DataFrame
+    power: dict[str, Any]
+    conf: float
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        out = {k: to_jsonable(getattr(self, k)) for k in (
+            "name", "arm", "control", "treatments", "selection", "as_of",
+            "planned_horizon_days", "analysis_horizon_days", "interim", "arms", "adjusted",
+            "revenue", "balance", "power", "conf", "warnings")}
+        out["logrank"] = self.logrank.to_dict()
+        out["rmst"] = [to_jsonable({"treatment": r.other.label, "difference": r.difference,
+                                    "lower": r.lower, "upper": r.upper, "se": r.se,
+                                    "p_value": r.p_value, "horizon": r.horizon})
+                       for r in self.rmst]
+        out["comparisons"] = to_jsonable(self.to_frame())
+        return out
+
+    def to_frame(self) -> pd.DataFrame:
+        rows = []
+        for i, t in enumerate(self.treatments):
+            adj = next((a for a in self.adjusted if a.treatment == t), None)
+            rm = self.rmst[i] if i < len(self.rmst) else None
+            rv = self.revenue[i] if i < len(self.revenue) else None
+            rows.append({
+                "treatment": t, "control": self.control,
+                "status": "interim" if self.interim else "final",
+                "horizon_days": self.analysis_horizon_days,
+                "hazard_ratio": adj.hazard_ratio if adj else math.nan,
+                "hr_lower": adj.lower if adj else math.nan,
+                "hr_upper": adj.upper if adj else math.nan,
+                "hr_p_value": adj.p_value if adj else math.nan,
+                "logrank_p_value": self.logrank.p_value,
+                "rmst_difference_days": rm.difference if rm else math.nan,
+                "rmst_lower": rm.lower if rm else math.nan,
+                "rmst_upper": rm.upper if rm else math.nan,
+                "revenue_difference": rv.difference if rv else math.nan,
+                "revenue_lower": rv.lower if rv else math.nan,
+                "revenue_upper": rv.upper if rv else math.nan,
+            })
+        return pd.DataFrame(rows)
+
+    def summary(self) -> str:
+        status = "INTERIM" if self.interim else "final"
+        parts = [f"Experiment {self.name} ({status}, {self.analysis_horizon_days:g} days): "
+                 f"log-rank p = {self.logrank.p_value:.3g}"]
+        for i, t in enumerate(self.treatments):
+            bits = [f"{t} vs {self.control}:"]
+            adj = next((a for a in self.adjusted if a.treatment == t), None)
+            if adj:
+                bits.append(f"HR {adj.hazard_ratio:.2f} ({adj.lower:.2f} to {adj.upper:.2f})")
+            if i < len(self.rmst):
+                r = self.rmst[i]
+                bits.append(f"RMST {r.difference:+.1f} days ({r.lower:+.1f} to {r.upper:+.1f})")
+            if i < len(self.revenue):
+                v = self.revenue[i]
+                bits.append(f"revenue per customer {v.difference:+.2f} "
+                            f"({v.lower:+.2f} to {v.upper:+.2f})")
+            parts.append(" ".join(bits))
+        parts.extend(f"warning: {w}" for w in self.warnings)
+        return "\n".join(parts)
+
+
+# ---------------------------------------------------------------- selection
+
+
+def _spec(spec: Any, name: str, default: Any = None) -> Any:
+    return spec.get(name, default) if isinstance(spec, dict) else getattr(spec, name, default)
+
+
+def _cohort_of_rows(table: StartStop, where: str) -> np.ndarray:
+    """'YYYY-MM' of each row's spell start (from start_date, else the cohort column)."""
+    if table.start_date is not None:
+        return np.datetime_as_string(table.start_date, unit="M").astype(object)
+    if table.has("cohort") and table.is_categorical("cohort"):
+        return table.column("cohort").values()
+    raise DataError(where, "the table has neither start_date nor a cohort column",
+                    "use the start-stop table written by `retain prepare`")
+
+
+def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
+    """The experiment's spells, one per customer, with follow-up cut at the horizon.
+
+    Returns the sub-table and a sentence describing the selection.
+    """
+    name = _spec(spec, "name", "experiment")
+    where = f"experiment {name!r}"
+    arm = _spec(spec, "arm")
+    control = _spec(spec, "control")
+    horizon = float(_spec(spec, "horizon_days", 365))
+    col = table.column(arm)
+    if not isinstance(col, Categorical):
+        raise DataError(where, f"the arm column {arm!r} is numeric", "declare it categorical")
+    if control not in col.levels:
+        raise DataError(where, f"control arm {control!r} does not occur in column {arm!r}",
+                        f"arms found: {', '.join(col.levels) or '(none)'}")
+    treatment = _spec(spec, "treatment")
+    treatments = tuple(treatment) if treatment else tuple(lv for lv in col.levels
+                                                         if lv != control)
+    missing = [t for t in treatments if t not in col.levels]
+    if missing:
+        raise DataError(where, f"treatment arm(s) {', '.join(missing)} do not occur in {arm!r}",
+                        f"arms found: {', '.join(col.levels)}")
+    if not treatments:
+        raise DataError(where, f"column {arm!r} has no arm besides the control {control!r}",
+                        "check the arm attribute")
+    head = first_of_spell(table.customer.codes, table.spell, table.start)
+    arms_wanted = np.isin(np.asarray(col.levels, dtype=object), (control, *treatments))
+    arm_code = col.codes[head]
+    ok = (arm_code >= 0) & arms_wanted[np.clip(arm_code, 0, None)]
+    cohorts = _spec(spec, "cohorts")
+    lo, hi = _spec(spec, "signup_from"), _spec(spec, "signup_to")
+    if cohorts:
+        ok &= np.isin(_cohort_of_rows(table, where)[head], list(cohorts))
+        selection = f"spells started in cohort(s) {', '.join(cohorts)}"
+    elif lo is not None and hi is not None:
+        if table.start_date is None:
+            raise DataError(where, "signup_from/signup_to need the start_date column",
+                            "use the start-stop table written by `retain prepare`")
+        sd = table.start_date[head]
+        ok &= (sd >= np.datetime64(lo, "D")) & (sd <= np.datetime64(hi, "D"))
+        selection = f"spells started from {lo} to {hi}"
+    else:
+        raise DataError(where, "no cohorts and no signup_from/signup_to",
+                        'add cohorts = ["YYYY-MM"] to the experiment')
+    # the spell must be observed from its start (the arm is assigned at signup)
+    ok &= table.start[head] == 0.0
+    # one spell per customer: the first qualifying spell
+    idx = np.flatnonzero(ok)
+    if idx.size == 0:
+        raise DataError(where, f"no spell matches ({selection}, arms {control}, "
+                        f"{', '.join(treatments)})", "check cohorts, dates and arm values")
+    first_spell = np.full(len(table.customer.levels) + 1, np.iinfo(np.int64).max)
+    np.minimum.at(first_spell, table.customer.codes[idx], table.spell[idx])
+    ok &= table.spell == first_spell[table.customer.codes]
+    ok &= table.start < horizon
+    sub = table.take(ok)
+    over = sub.stop > horizon
+    if over.any():
+        stop = sub.stop.copy()
+        stop[over] = horizon
+        churned = sub.churned.copy()
+        churned[over] = 0
+        cause = Categorical(np.where(over, -1, sub.cause.codes).astype(np.int32), sub.cause.levels)
+        sub.stop = stop
+        sub.churned = churned
+        sub.cause = cause
+    n_arms = len({*treatments, control})
+    return sub, f"{selection}; arms {control} (control) and {', '.join(treatments)}; " \
+        f"{sub.n_customers} customers in {n_arms} arms, followed up to {horizon:g} days"
+
+
+# ---------------------------------------------------------------- pieces
+
+
+def _planned_end(spec: Any) -> dt.date | None:
+    horizon = int(_spec(spec, "horizon_days", 365))
+    cohorts = _spec(spec, "cohorts")
+    last: dt.date | None = None
+    if cohorts:
+        y, m = max(cohorts).split("-")
+        nxt = dt.date(int(y) + (int(m) == 12), int(m) % 12 + 1, 1)
+        last = nxt - dt.timedelta(days=1)
+    elif _spec(spec, "signup_to") is not None:
+        last = _spec(spec, "signup_to")
+    if last is None:
+        return None
+    return last + dt.timedelta(days=horizon)
+
+
+def _as_date(value: Any) -> dt.date | None:
+    if value is None:
+        return None
+    if isinstance(value, dt.datetime):
+        return value.date()
+    if isinstance(value, dt.date):
+        return value
+    return dt.date.fromisoformat(str(value))
+
+
+def balance_table(table: StartStop, arm: str, control: str, treatments: Sequence[str],
+                  covariates: Sequence[str]) -> pd.DataFrame:
+    """Pre-assignment attributes by arm, read on the first row of each spell.
+
+    One row per numeric attribute (means) or per level of a categorical one
+    (shares); ``std_difference`` is each treatment arm against the control
+    (Austin 2009). ``unbalanced`` flags ``|std_difference| > 0.1`` (common
+    practice).
+    """
+    head_idx = np.unique(first_of_spell(table.customer.codes, table.spell, table.start))
+    heads = table.take(head_idx)
+    acol = heads.column(arm)
+    assert isinstance(acol, Categorical)
+    arm_vals = acol.values()
+    w = heads.weight
+    rows: list[dict[str, Any]] = []
+    for name in covariates:
+        col = heads.column(name)
+        if isinstance(col, Categorical):
+            items = [(f"{name} = {lv}", (col.codes == k).astype(np.float64), True)
+                     for k, lv in enumerate(col.levels)]
+        else:
+            items = [(name, col, False)]
+        for label, x, binary in items:
+            cm = (arm_vals == control) & np.isfinite(x)
+            row: dict[str, Any] = {"attribute": label, "kind": "share" if binary else "mean",
+                                   control: float(np.average(x[cm], weights=w[cm]))
+                                   if cm.any() else math.nan}
+            for t in treatments:
+                tm = (arm_vals == t) & np.isfinite(x)
+                row[t] = float(np.average(x[tm], weights=w[tm])) if tm.any() else math.nan
+                sd = (kd.standardised_difference(x[tm], w[tm], x[cm], w[cm], binary=binary)
+                      if tm.any() and cm.any() else math.nan)
+                row[f"std_difference {t}"] = sd
+            sds = [row[f"std_difference {t}"] for t in treatments]
+            row["unbalanced"] = bool(any(abs(s) > BALANCE_LIMIT for s in sds
+                                         if math.isfinite(s)))
+            rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def _bootstrap_counts(codes: np.ndarray, n_boot: int, rng: np.random.Generator) -> np.ndarray:
+    """Multinomial resampling of the customers in ``codes``: (n_boot, n_rows) multipliers."""
+    uniq, inv = np.unique(codes, return_inverse=True)
+    k = uniq.shape[0]
+    counts = rng.multinomial(k, np.full(k, 1.0 / k), size=n_boot).astype(np.float64)
+    return counts[:, inv]
+
+
+def revenue_per_customer(table: StartStop, price: str, horizon_days: float, *,
+                         n_boot: int = DEFAULT_BOOT, seed: int = DEFAULT_SEED
+                         ) -> tuple[float, np.ndarray]:
+    """Expected revenue per customer to ``horizon_days`` and its bootstrap replicates.
+
+    Revenue of a row = monthly ``price`` x months at risk on the row within
+    the horizon; the estimate is :func:`retain.kernels.discount.revenue_to_horizon`
+    (equal to the plain mean over customers when nobody is censored before the
+    horizon). Replicates resample customers with replacement.
+    """
+    p = table.numeric(price)
+    bad = ~np.isfinite(p)
+    if bad.any():
+        raise DataError(f"{table.source}: column {price!r}", f"{int(bad.sum())} rows of the "
+                        "experiment have no price", "fill the price column")
+    per_day = p / DAYS_PER_MONTH
+    est = float(kd.revenue_to_horizon(table.start, table.stop, table.churned, per_day,
+                                      table.weight, horizon_days))
+    rng = np.random.default_rng(seed)
+    reps = kd.revenue_to_horizon(table.start, table.stop, table.churned, per_day, table.weight,
+                                 horizon_days,
+                                 replicate_weights=_bootstrap_counts(table.customer.codes,
+                                                                     n_boot, rng) * table.weight)
+    return est, reps
+
+
+def _percentile(x: np.ndarray, conf: float) -> tuple[float, float]:
+    a = (1.0 - conf) / 2.0
+    lo, hi = np.quantile(x, [a, 1.0 - a])
+    return float(lo), float(hi)
+
+
+def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
+                            treatments: Sequence[str], covariates: Sequence[str], conf: float
+                            ) -> tuple[tuple[AdjustedHazardRatio, ...], list[str]]:
+    head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
+    # pre-assignment covariates are read at the start of the spell
+    fixed = {name: (sub.column(name).take(head) if isinstance(sub.column(name), Categorical)
+                    else sub.column(name)[head]) for name in (arm, *covariates)}
+    table = sub.with_columns(**fixed)
+    try:
+        fit = fit_cox(table, [arm, *covariates], reference={arm: control}, conf=conf)
+    except ModelError as exc:
+        return (), [f"no adjusted hazard ratio: {exc.message}"]
+    frame = fit.hazard_ratios
+    out = []
+    for t in treatments:
+        label = f"{arm} {t} vs {control}"
+        hit = frame[frame["term"] == label]
+        if hit.empty:
+            continue
+        r = hit.iloc[0]
+        out.append(AdjustedHazardRatio(t, float(r["hazard_ratio"]), float(r["hr_low"]),
+                                       float(r["hr_high"]), float(r["p_value"]),
+                                       tuple(covariates), label))
+    return tuple(out), list(getattr(fit, "warnings", ()))
+
+
+# ---------------------------------------------------------------- verdict
+
+
+def experiment_verdict(
+    table: StartStop,
+    spec: Any,
+    *,
+    as_of: Any = None,
+    price: str = "price",
+    conf: float = 0.95,
+    target_hazard_ratio: float | None = None,
+    power: float = 0.8,
+    alpha: float = 0.05,
+    n_boot: int = DEFAULT_BOOT,
+    seed: int = DEFAULT_SEED,
+) -> ExperimentVerdict:
+    """Verdict on one pricing experiment (see the module docstring for what it holds).
+
+    Parameters
+    ----------
+    table : StartStop
+        The prepared start-stop table (with customer ids and spell start dates).
+    spec : ExperimentSpec
+        From retain.toml ``[experiments.<name>]``.
+    as_of : date or "YYYY-MM-DD"
+        The data's as-of date; before the planned end (last signup day of the
+        experiment + horizon) the verdict is interim.
+    price : str
+        Numeric column with the monthly price on each row.
+    target_hazard_ratio, power, alpha
+        The effect the experiment was sized for; with a target, a warning is
+        raised when the events observed are fewer than Schoenfeld's (1983)
+        number. The smallest hazard ratio detectable with the events observed
+        is always reported.
+    n_boot, seed
+        Bootstrap replicates (over customers) for the revenue interval.
+    """
+    name = _spec(spec, "name", "experiment")
+    where = f"experiment {name!r}"
+    if not table.has_customers:
+        raise DataError(where, "the table has no customer_id", "use the uncompressed table")
+    if not 0.5 <= conf < 1.0:
+        raise ModelError(where, f"conf must be in [0.5, 1), got {conf!r}", "use 0.95")
+    arm = _spec(spec, "arm")
+    control = _spec(spec, "control")
+    sub, selection = select_experiment(table, spec)
+    acol = sub.column(arm)
+    assert isinstance(acol, Categorical)
+    present = set(acol.take(np.unique(first_of_spell(sub.customer.codes, sub.spell,
+                                                     sub.start))).values())
+    treatment = _spec(spec, "treatment")
+    treatments = tuple(t for t in (treatment or sorted(present - {control})) if t != control)
+    warnings: list[str] = []
+    if control not in present:
+        raise DataError(where, f"no customer of the experiment is in the control arm {control!r}",
+                        "check the arm values and cohorts")
+    absent = [t for t in treatments if t not in present]
+    if absent:
+        warnings.append(f"arm(s) {', '.join(absent)} have no customer in the experiment")
+        treatments = tuple(t for t in treatments if t in present)
+    if not treatments:
+        raise DataError(where, "no treatment arm has customers", "check the arm values")
+
+    planned = float(_spec(spec, "horizon_days", 365))
+    as_of_d = _as_date(as_of)
+    end = _planned_end(spec)
+    interim = bool(as_of_d is not None and end is not None and as_of_d < end)
+    follow = float(sub.stop.max())
+    analysis = min(planned, follow)
+    if interim:
+        warnings.append(f"interim analysis: the planned {planned:g}-day horizon is reached on "
+                        f"{end}, after the as-of date {as_of_d}; every figure is provisional")
+    if analysis < planned:
+        warnings.append(f"follow-up reaches only {analysis:g} of the planned {planned:g} days; "
+                        "restricted means and revenue are computed to that shorter horizon")
+
+    curves = curves_by(sub, arm, conf=conf)
+    warnings.extend(curves.warnings)
+    logrank = compare_groups(sub, arm)
+    warnings.extend(logrank.warnings)
+    adjusted, cox_warn = _adjusted_hazard_ratios(sub, arm, control, treatments,
+                                                 tuple(_spec(spec, "covariates", ()) or ()), conf)
+    warnings.extend(cox_warn)
+
+    # per-arm tables
+    head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
+    arm_of_row = acol.values()[head]
+    rmst: list[RestrictedMeanDifference] = []
+    revenue: list[RevenueComparison] = []
+    per_arm: dict[str, tuple[float, np.ndarray]] = {}
+    for k, a in enumerate((control, *treatments)):
+        part = sub.take(arm_of_row == a)
+        per_arm[a] = revenue_per_customer(part, price, analysis, n_boot=n_boot, seed=seed + k)
+    rest = sub
+    for t in treatments:
+        pair = rest.take(np.isin(arm_of_row, (control, t)))
+        limit = min(curves[control].follow_up, curves[t].follow_up)
+        h = min(analysis, limit)
+        try:
+            rmst.append(rmst_difference(pair, arm, h, levels=(control, t), conf=conf))
+        except ModelError as exc:
+            warnings.append(f"no restricted-mean difference for {t}: {exc.message}")
+        c_est, c_rep = per_arm[control]
+        t_est, t_rep = per_arm[t]
+        diff_rep = t_rep - c_rep
+        lo, hi = _percentile(diff_rep, conf)
+        clo, chi = _percentile(c_rep, conf)
+        tlo, thi = _percentile(t_rep, conf)
+        revenue.append(RevenueComparison(
+            control=control, treatment=t, horizon_days=analysis, control_revenue=c_est,
+            control_lower=clo, control_upper=chi, treatment_revenue=t_est, treatment_lower=tlo,
+            treatment_upper=thi, difference=t_est - c_est, lower=lo, upper=hi,
+            se=float(np.std(diff_rep, ddof=1)), conf=conf,
+            method=(f"price x months at risk to {analysis:g} days, Kaplan-Meier weighted "
+                    f"(Lin et al. 1997); percentile interval over {n_boot} bootstrap "
+                    "resamples of customers within each arm")))
+
+    rows = []
+    for a in (control, *treatments):
+        c = curves[a]
+        s_h = float(c.at(analysis)[0]) if analysis <= c.follow_up else math.nan
+        lo_h, hi_h = (float(x[0]) for x in c.interval_at(analysis))
+        est, rep = per_arm[a]
+        rlo, rhi = _percentile(rep, conf)
+        rows.append({"arm": a, "role": "control" if a == control else "treatment",
+                     "customers": float(np.sum(sub.weight[(arm_of_row == a) &
+                                                          sub.last_of_spell])),
+                     "churns": float(np.sum(sub.weight * sub.churned * (arm_of_row == a))),
+                     "retained_at_horizon": s_h, "retained_lower": lo_h,
+                     "retained_upper": hi_h, "revenue_per_customer": est,
+                     "revenue_lower": rlo, "revenue_upper": rhi})
+    arms = pd.DataFrame(rows)
+
+    covariates = tuple(_spec(spec, "covariates", ()) or ())
+    balance = balance_table(sub, arm, control, treatments, covariates) if covariates else \
+        pd.DataFrame(columns=["attribute", "kind", control, *treatments, "unbalanced"])
+    if not balance.empty and balance["unbalanced"].any():
+        bad = ", ".join(balance.loc[balance["unbalanced"], "attribute"])
+        warnings.append(f"arms are not balanced on {bad} (|standardised difference| > "
+                        f"{BALANCE_LIMIT}); read the adjusted hazard ratio")
+
+    events = float(arms["churns"].sum())
+    n_ctrl = float(arms.loc[arms["arm"] == control, "customers"].iloc[0])
+    power_info: dict[str, Any] = {"events": events, "power": power, "alpha": alpha}
+    for t in treatments:
+        n_t = float(arms.loc[arms["arm"] == t, "customers"].iloc[0])
+        d_pair = float(arms.loc[arms["arm"].isin([control, t]), "churns"].sum())
+        frac = n_t / (n_t + n_ctrl)
+        info = {"events": d_pair, "treated_fraction": frac,
+                "detectable_hazard_ratio": kd.detectable_hazard_ratio(d_pair, power, alpha, frac)}
+        if target_hazard_ratio is not None:
+            need = kd.schoenfeld_events(target_hazard_ratio, power, alpha, frac)
+            info["target_hazard_ratio"] = target_hazard_ratio
+            info["events_needed"] = need
+            info["power_at_target"] = kd.schoenfeld_power(d_pair, target_hazard_ratio, alpha,
+                                                          frac)
+            if d_pair < need:
+                warnings.append(f"too few events for {t}: {d_pair:g} churns, {math.ceil(need)} "
+                                f"needed to detect a hazard ratio of {target_hazard_ratio:g} "
+                                f"with {power:.0%} power at {alpha:g} (Schoenfeld 1983)")
+        power_info[t] = info
+
+    return ExperimentVerdict(
+        name=name, arm=arm, control=control, treatments=treatments, selection=selection,
+        as_of=None if as_of_d is None else as_of_d.isoformat(), planned_horizon_days=planned,
+        analysis_horizon_days=analysis, interim=interim, arms=arms, curves=curves,
+        logrank=logrank, adjusted=adjusted, rmst=tuple(rmst), revenue=tuple(revenue),
+        balance=balance, power=power_info, conf=conf, warnings=tuple(warnings))
