@@ -16,13 +16,17 @@ ordered as (
     select
         source_row,
         event,
-        -- the most recent start or end strictly before this row
-        last_value(case when event in ('start', 'end') then event end ignore nulls) over (
-            partition by customer_id
-            order by day, event_rank, source_row
-            rows between unbounded preceding and 1 preceding
-        ) as previous_boundary
+        -- the most recent start or end strictly before this row, and whether
+        -- any start came before it
+        last_value(case when event in ('start', 'end') then event end ignore nulls)
+            over before_row as previous_boundary,
+        coalesce(bool_or(event = 'start') over before_row, false) as started_before
     from usable
+    window before_row as (
+        partition by customer_id
+        order by day, event_rank, source_row
+        rows between unbounded preceding and 1 preceding
+    )
 ),
 
 checked as (
@@ -30,7 +34,7 @@ checked as (
         source_row,
         case
             when event = 'start' and previous_boundary = 'start' then 'start during an open spell'
-            when event <> 'start' and previous_boundary is null
+            when event <> 'start' and not started_before
                 then 'event before the customer''s first start'
             when event = 'end' and previous_boundary = 'end' then 'end without an open spell'
             when event <> 'start' and previous_boundary = 'end' then 'event outside an open spell'

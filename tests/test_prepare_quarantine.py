@@ -157,3 +157,22 @@ def test_engine_settings_reach_duckdb(tmp_path):
     finally:
         con.close()
     assert got == (1, "UTC")
+
+
+def test_every_event_before_the_first_start_is_named_so_even_after_an_end(tmp_path):
+    """An end before any start does not make later events 'outside an open spell'."""
+    p = run(tmp_path, [("b", "2024-01-01", "cancel"), ("b", "2024-01-02", "pause"),
+                       ("b", "2024-01-03", "cancel"), signup("b", "2024-01-04")] + GOOD)
+    assert p.reconciliation.by_reason == {"event before the customer's first start": 3}
+
+
+def test_start_and_end_runs(tmp_path):
+    """In a run of starts only the first opens a spell; in a run of ends only the first
+    closes it (hand-worked: S S E E S E)."""
+    p = run(tmp_path, [signup("b", "2024-01-01"), signup("b", "2024-01-02"),
+                       ("b", "2024-01-11", "cancel"), ("b", "2024-01-12", "cancel"),
+                       signup("b", "2024-02-01"), ("b", "2024-02-11", "cancel")])
+    assert p.reconciliation.by_reason == {"start during an open spell": 1,
+                                          "end without an open spell": 1}
+    assert rows_of(p, CORE) == [("b", 1, 0.0, 10.0, 1, "voluntary"),
+                                ("b", 2, 0.0, 10.0, 1, "voluntary")]
