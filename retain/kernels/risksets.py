@@ -5,10 +5,9 @@ A row that enters at ``t`` (``start == t``) is *not* at risk at ``t``; a row tha
 stops at ``t`` is. Events at ``t`` are counted before censorings at ``t``: a row
 censored at ``t`` is still in the risk set of the events at ``t``.
 
-Nothing here sorts the full table. The distinct times are found once
-(``np.unique`` on the stop times that matter), every row's position among them
-is found with one ``searchsorted`` for its stop and one for its start, and the
-weighted at-risk counts follow from cumulative sums of ``bincount``:
+Nothing here sorts the full table. The distinct times are found once, every
+row's position among them is found once for its stop and once for its start,
+and the weighted at-risk counts follow from cumulative sums of ``bincount``:
 
 .. math::
 
@@ -16,6 +15,11 @@ weighted at-risk counts follow from cumulative sums of ``bincount``:
 
 (the second sum removes rows not yet entered; ``start < stop`` makes the
 difference exactly the rows with ``start < t_j <= stop``).
+
+Positions: tenure is whole days (0.5 for a churn on the start day), so times
+usually lie on a half-day grid and a cumulative count over that grid gives
+every position in O(n) (:func:`half_day_grid`); other times fall back to
+``np.unique`` and ``searchsorted`` (O(n log m)). Both give identical results.
 
 Pure numpy, no validation: callers pass arrays that already meet the
 start-stop contract (``retain.data.table.StartStop`` checks it).
@@ -100,12 +104,18 @@ def risk_table(
         if not ok.all():
             start, stop, weight, ev, cens, group = (
                 start[ok], stop[ok], weight[ok], ev[ok], cens[ok], group[ok])
+    grid = half_day_grid(start, stop)
     if times is None:
-        times = distinct_times(stop, ev | cens)
+        if grid is not None:
+            seen = np.zeros(grid[2] + 1, dtype=bool)
+            seen[grid[1][ev | cens]] = True
+            times = np.flatnonzero(seen) * 0.5
+        else:
+            times = distinct_times(stop, ev | cens)
     m = times.shape[0]
     # position of each stop / start among the times: rows count for t_j < pos
-    pos_stop = np.searchsorted(times, stop, side="right")
-    pos_start = np.searchsorted(times, start, side="right")
+    pos_stop, is_time = positions(times, stop, None if grid is None else grid[1], grid)
+    pos_start, _ = positions(times, start, None if grid is None else grid[0], grid)
     if group is None:
         width, off_stop, off_start = m + 1, pos_stop, pos_start
     else:
@@ -114,14 +124,11 @@ def risk_table(
         off_start = pos_start * n_groups + group
     flow = (np.bincount(off_stop, weights=weight, minlength=width)
             - np.bincount(off_start, weights=weight, minlength=width))
-    # a stop exactly at t_j sits at pos_stop - 1 == j
-    hit = np.zeros(stop.shape[0], dtype=bool)
-    inside = pos_stop > 0
-    hit[inside] = times[pos_stop[inside] - 1] == stop[inside]
+    # a row whose stop is one of the times stops at t_j with j = pos_stop - 1
     k = 1 if group is None else n_groups
     cell = off_stop - k  # (j * k + g) of the time the row stops at
-    ev_at = ev & hit
-    ce_at = cens & hit
+    ev_at = ev & is_time
+    ce_at = cens & is_time
     events = np.bincount(cell[ev_at], weights=weight[ev_at], minlength=m * k)
     censored = np.bincount(cell[ce_at], weights=weight[ce_at], minlength=m * k)
     if group is None:
@@ -133,6 +140,59 @@ def risk_table(
     # counts of whole rows may pick up rounding in the cumulative sums
     np.maximum(at_risk, 0.0, out=at_risk)
     return RiskTable(times, at_risk, events, censored)
+
+
+#: largest half-day grid index for the lookup-table path (keeps the table < 400 MB)
+GRID_LIMIT = 50_000_000
+
+
+def half_day_grid(start: np.ndarray, stop: np.ndarray) -> tuple[np.ndarray, np.ndarray, int] | None:
+    """Integer half-day indices ``2 * start``, ``2 * stop`` and their maximum, or None.
+
+    Tenure in ``retain`` is whole days (0.5 for a churn on the start day), so
+    the times usually lie on a half-day grid; then positions among the times
+    come from a lookup table in O(n) instead of a binary search. Any other
+    value (or a range too wide for the table) returns None: callers fall back
+    to ``searchsorted``.
+    """
+    g_stop = stop * 2.0
+    top = float(g_stop.max()) if g_stop.size else 0.0
+    if not (0.0 <= top <= GRID_LIMIT) or (start.size and float(start.min()) < 0):
+        return None
+    i_stop = g_stop.astype(np.int64)
+    if not np.array_equal(i_stop, g_stop):
+        return None
+    g_start = start * 2.0
+    i_start = g_start.astype(np.int64)
+    if not np.array_equal(i_start, g_start):
+        return None
+    return i_start, i_stop, int(top)
+
+
+def positions(times: np.ndarray, values: np.ndarray, grid_values: np.ndarray | None,
+              grid: tuple[np.ndarray, np.ndarray, int] | None) -> tuple[np.ndarray, np.ndarray]:
+    """Number of ``times`` <= each value, and whether the value is one of the times.
+
+    ``times`` sorted and distinct. With ``grid`` (from :func:`half_day_grid`)
+    and times on the same half-day grid, a cumulative count over the grid
+    answers both in O(n + grid); otherwise ``searchsorted``.
+    """
+    if grid is not None and grid_values is not None:
+        gt = times * 2.0
+        it = gt.astype(np.int64)
+        if np.array_equal(it, gt) and (it.size == 0 or it.min() >= 0):
+            top = grid[2]
+            inside = it <= top
+            mark = np.zeros(top + 1, dtype=np.int64)
+            mark[it[inside]] = 1
+            count = np.cumsum(mark)
+            # times beyond the grid are above every value: they never count
+            return count[grid_values], mark[grid_values].astype(bool)
+    pos = np.searchsorted(times, values, side="right")
+    hit = np.zeros(values.shape[0], dtype=bool)
+    inside = pos > 0
+    hit[inside] = times[pos[inside] - 1] == values[inside]
+    return pos, hit
 
 
 def at_risk_at(start: np.ndarray, stop: np.ndarray, weight: np.ndarray,
@@ -186,7 +246,7 @@ def continued_rows(customer: np.ndarray, spell: np.ndarray, start: np.ndarray,
     ordered = bool(np.all((customer[1:] > customer[:-1])
                           | ((customer[1:] == customer[:-1]) & (spell[1:] > spell[:-1]))
                           | (same & (start[1:] >= stop[:-1]))))
-    if ordered:
+    if ordered:  # no duplicates either: each row starts at or after the previous stop
         out[:-1] = same & (start[1:] == stop[:-1])
         return out
     # general case (any order, duplicate rows): merge the stops and starts of
@@ -207,9 +267,26 @@ def continued_rows(customer: np.ndarray, spell: np.ndarray, start: np.ndarray,
     return out
 
 
+def _ordered(customer: np.ndarray, spell: np.ndarray, start: np.ndarray) -> bool:
+    """Rows sorted by (customer, spell, start), strictly increasing start within a spell."""
+    c1, c0 = customer[1:], customer[:-1]
+    s1, s0 = spell[1:], spell[:-1]
+    return bool(np.all((c1 > c0) | ((c1 == c0) & ((s1 > s0) | ((s1 == s0)
+                                                              & (start[1:] > start[:-1]))))))
+
+
 def first_of_spell(customer: np.ndarray, spell: np.ndarray, start: np.ndarray) -> np.ndarray:
-    """For each row, the index of the first row (smallest start) of its (customer, spell)."""
+    """For each row, the index of the first row (smallest start) of its (customer, spell).
+
+    O(n) when rows are ordered by customer, spell and start (as ``prepare``
+    writes them); otherwise one ``lexsort``.
+    """
     n = start.shape[0]
+    if n and _ordered(customer, spell, start):
+        new = np.ones(n, dtype=bool)
+        new[1:] = (customer[1:] != customer[:-1]) | (spell[1:] != spell[:-1])
+        head = np.flatnonzero(new)
+        return head[np.cumsum(new) - 1]
     order = np.lexsort((start, spell, customer))
     c, s = customer[order], spell[order]
     new = np.ones(n, dtype=bool)

@@ -77,6 +77,13 @@ def _exits(table: StartStop) -> np.ndarray | None:
     return ~continued_rows(table.customer.codes, table.spell, table.start, table.stop)
 
 
+def _count_customers(table: StartStop) -> int:
+    """Distinct customers in O(n) (bincount of the integer codes)."""
+    codes = table.customer.codes
+    codes = codes[codes >= 0]
+    return int(np.count_nonzero(np.bincount(codes))) if codes.size else 0
+
+
 def _step_lookup(times: np.ndarray, values: np.ndarray, t: np.ndarray,
                  before: float) -> np.ndarray:
     """Right-continuous step function through (times, values), ``before`` left of times[0]."""
@@ -416,7 +423,8 @@ def _km(table: StartStop, z: float, conf: float, ci: str, label: str,
     return RetentionCurve(
         label=label, times=rt.times, at_risk=rt.at_risk, events=rt.events,
         censored=rt.censored, survival=surv, se=surv * np.sqrt(gw), lower=lower, upper=upper,
-        greenwood=gw, conf=conf, ci=ci, n_rows=table.n_rows, n_customers=table.n_customers,
+        greenwood=gw, conf=conf, ci=ci, n_rows=table.n_rows,
+        n_customers=_count_customers(table),
         n_events=n_events, follow_up=float(table.stop.max()),
         first_entry=float(table.start.min()), warnings=tuple(warnings),
     )
@@ -865,13 +873,15 @@ def compare_groups(table: StartStop, by: str, *, strata: str | None = None,
         m = ok & (s_codes == sc)
         if not m.any():
             continue
-        st, sp, ch, w = table.start[m], table.stop[m], table.churned[m], table.weight[m]
-        ev_times = np.unique(sp[ch == 1])
-        if ev_times.size == 0:
+        whole = bool(m.all())
+        st, sp, ch, w = ((table.start, table.stop, table.churned, table.weight) if whole else
+                         (table.start[m], table.stop[m], table.churned[m], table.weight[m]))
+        # times = the distinct churn times (no censoring times needed for the test)
+        rt = risk_table(st, sp, ch, w, exits=np.zeros(st.shape[0], dtype=bool),
+                        group=codes if whole else codes[m], n_groups=k)
+        if rt.times.size == 0:
             continue
         used_strata += 1
-        rt = risk_table(st, sp, ch, w, exits=None if exits is None else exits[m],
-                        times=ev_times, group=codes[m], n_groups=k)
         n_all = rt.at_risk.sum(axis=1)
         d_all = rt.events.sum(axis=1)
         tw = _time_weights(n_all, d_all, p, q)
