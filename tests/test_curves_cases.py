@@ -178,6 +178,12 @@ def test_cohort_cells_not_observable_are_empty_and_real_zeros_stay():
     assert t.churn_rate[1, 1] == 0 and np.isnan(t.churn_rate[1, 2:]).all()
     # month 1 of cohort 2026-10: 1 churn over (30 + 30.4375 + 30.4375) / 30.4375 months
     assert t.churn_rate[1, 0] == pytest.approx(1 / ((30 + 2 * DAYS_PER_MONTH) / DAYS_PER_MONTH))
+    # exact Poisson limits for 1 churn (Garwood 1936): 0.0253 and 5.5716 per unit exposure
+    # (chi-square quantiles / 2; the classical table values, from memory: 0.025, 5.57)
+    e = (30 + 2 * DAYS_PER_MONTH) / DAYS_PER_MONTH
+    assert t.churn_rate_lower[1, 0] * e == pytest.approx(0.0253, abs=5e-5)
+    assert t.churn_rate_upper[1, 0] * e == pytest.approx(5.5716, abs=5e-5)
+    assert t.churn_rate_lower[1, 1] == 0 and np.isnan(t.churn_rate_upper[1, 2])
     frame = t.to_frame()
     assert list(frame.columns[:3]) == ["cohort", "month", "days"]
     assert t.retention_frame().shape == (2, 6)

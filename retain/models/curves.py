@@ -522,7 +522,9 @@ class CohortTable(Result):
 
     ``churn_rate[c, k-1]`` is churns in month k (tenure in
     ((k-1)·DAYS_PER_MONTH, k·DAYS_PER_MONTH]) divided by the exposure in that
-    month in customer-months (``exposure`` holds the exposure).
+    month in customer-months (``exposure`` holds the exposure), with an exact
+    Poisson interval on the churn count (Garwood 1936; weighted counts are
+    treated as counts).
     """
 
     cohorts: tuple[str, ...]
@@ -535,6 +537,8 @@ class CohortTable(Result):
     churns: np.ndarray
     exposure: np.ndarray
     churn_rate: np.ndarray
+    churn_rate_lower: np.ndarray
+    churn_rate_upper: np.ndarray
     conf: float
     ci: str
     as_of_basis: str
@@ -552,6 +556,8 @@ class CohortTable(Result):
             "upper": self.upper.ravel(), "at_risk": self.at_risk.ravel(),
             "churns": self.churns.ravel(), "exposure_months": self.exposure.ravel(),
             "churn_rate": self.churn_rate.ravel(),
+            "churn_rate_lower": self.churn_rate_lower.ravel(),
+            "churn_rate_upper": self.churn_rate_upper.ravel(),
         })
 
     def retention_frame(self) -> pd.DataFrame:
@@ -677,6 +683,14 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
         out["exposure"][code] = np.where(open_, expo, np.nan)
         out["rate"][code] = np.where(open_, churns / np.where(expo > 0, expo, 1.0), np.nan)
     rows = np.array(keep_rows, dtype=np.int64)
+    alpha = 1.0 - float(conf)
+    d = out["churns"]
+    e = out["exposure"]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rate_lo = np.where(d > 0, stats.chi2.ppf(alpha / 2, 2 * d) / 2, 0.0) / e
+        rate_hi = stats.chi2.ppf(1 - alpha / 2, 2 * (d + 1)) / 2 / e
+    rate_lo[~np.isfinite(out["rate"])] = np.nan
+    rate_hi[~np.isfinite(out["rate"])] = np.nan
     missing = codes < 0
     if missing.any():
         warnings.append(f"{int(missing.sum())} rows have no cohort and are left out")
@@ -684,7 +698,8 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
         cohorts=tuple(levels[i] for i in rows), months=tuple(range(1, months + 1)),
         started=started[rows], retention=out["retention"][rows], lower=out["lower"][rows],
         upper=out["upper"][rows], at_risk=out["at_risk"][rows], churns=out["churns"][rows],
-        exposure=out["exposure"][rows], churn_rate=out["rate"][rows], conf=float(conf), ci=ci,
+        exposure=out["exposure"][rows], churn_rate=out["rate"][rows],
+        churn_rate_lower=rate_lo[rows], churn_rate_upper=rate_hi[rows], conf=float(conf), ci=ci,
         as_of_basis=basis, warnings=tuple(warnings),
     )
 
