@@ -30,10 +30,13 @@ def competing_rows(n: int = 400, seed: int = 0, *, delayed: bool = True, weights
         if delayed else np.zeros(n)
     entry = np.where(entry < stop, entry, 0.0)
     plan = rng.choice(["Seedling", "Sprout", "Orchard"], n)
+    channel = rng.choice(["search", "referral"], n)
+    score = np.round(rng.normal(0.0, 1.0, n), 3)
     w = rng.integers(1, 4, n).astype(float) if weights else np.ones(n)
     cid = np.array([f"c{i:05d}" for i in range(n)], dtype=object)
     start_date = np.datetime64("2024-01-01") + rng.integers(0, 700, n)
-    rows = {"start": [], "stop": [], "kind": [], "plan": [], "w": [], "cid": [], "sd": []}
+    rows = {"start": [], "stop": [], "kind": [], "plan": [], "w": [], "cid": [], "sd": [],
+            "channel": [], "score": []}
     for i in range(n):
         cut = np.floor(rng.uniform(entry[i], stop[i])) if split else entry[i]
         pieces = [(entry[i], stop[i], plan[i])]
@@ -48,13 +51,17 @@ def competing_rows(n: int = 400, seed: int = 0, *, delayed: bool = True, weights
             rows["w"].append(w[i])
             rows["cid"].append(cid[i])
             rows["sd"].append(start_date[i])
+            rows["channel"].append(channel[i])
+            rows["score"].append(score[i])
     kind_r = np.array(rows["kind"])
     return StartStop(np.array(rows["start"]), np.array(rows["stop"]), (kind_r > 0).astype(int),
                      weight=np.array(rows["w"]), customer_id=np.array(rows["cid"], dtype=object),
                      cause=CAUSE_NAMES[kind_r], start_date=np.array(rows["sd"]),
                      covariates={"plan": np.array(rows["plan"], dtype=object),
                                  "price": np.where(np.array(rows["plan"]) == "Orchard", 30.0,
-                                                   12.5)})
+                                                   12.5),
+                                 "channel": np.array(rows["channel"], dtype=object),
+                                 "score": np.array(rows["score"])})
 
 
 def kinds(table: StartStop) -> np.ndarray:

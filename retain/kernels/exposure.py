@@ -105,3 +105,27 @@ def piecewise_cumulative(edges: np.ndarray, rate: np.ndarray, x: np.ndarray) -> 
     xc = np.maximum(x, edges[0])
     band = np.clip(np.searchsorted(edges, xc, side="right") - 1, 0, k - 1)
     return at_edge[band] + rate[band] * (xc - edges[band])
+
+
+def split_at_edges(
+    lo: np.ndarray,
+    hi: np.ndarray,
+    edges: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Cut each interval (lo, hi] at the band edges it crosses.
+
+    ``edges`` must cover every interval (e_0 <= lo, hi <= e_K). Returns, per
+    piece, the source row, the piece's (lo, hi], its band k (e_k <= piece lo,
+    piece hi <= e_{k+1}) and whether it is the row's last piece. Pieces are
+    never empty; their lengths add up to hi − lo.
+    """
+    k = edges.shape[0] - 1
+    ka = np.clip(np.searchsorted(edges, lo, side="right") - 1, 0, k - 1)
+    kb = np.clip(np.searchsorted(edges, hi, side="left") - 1, 0, k - 1)
+    count = kb - ka + 1
+    row = np.repeat(np.arange(lo.shape[0]), count)
+    first = np.concatenate([[0], np.cumsum(count)[:-1]])
+    band = ka[row] + (np.arange(row.shape[0]) - first[row])
+    piece_lo = np.maximum(lo[row], edges[band])
+    piece_hi = np.minimum(hi[row], edges[band + 1])
+    return row, piece_lo, piece_hi, band, band == kb[row]

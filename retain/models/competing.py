@@ -207,3 +207,95 @@ def _loglog_interval(f: np.ndarray, se: np.ndarray, z: float) -> tuple[np.ndarra
         upper = np.where(ok, f ** np.exp(-z * s), f)
     return lower, upper
 
+
+
+# ---------------------------------------------------------------- cause-specific Cox
+@dataclass(frozen=True)
+class CauseSpecificCox(Result):
+    """One Cox model per churn cause, the other causes censored (Prentice et al., 1978).
+
+    ``fits`` maps cause -> :class:`retain.models.cox.CoxFit`; ``frame`` stacks their
+    hazard-ratio tables with a ``cause`` column. A hazard ratio here compares the
+    rate of churning *from that cause* among customers still subscribed; it is not a
+    ratio of cumulative incidences (see :func:`cumulative_incidence` for those).
+    """
+
+    fits: dict
+    frame: pd.DataFrame
+    causes: tuple[str, ...]
+    covariates: tuple[str, ...]
+    n_rows: int
+    events: dict
+    method: str = "cause-specific hazards: Cox PH per cause, other causes treated as censored"
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.frame.copy()
+
+    def summary(self) -> str:
+        parts = []
+        for cause in self.causes:
+            rows = self.frame[self.frame["cause"] == cause]
+            terms = "; ".join(f"{r.term} HR {r.hazard_ratio:.2f} ({r.hr_low:.2f} to "
+                              f"{r.hr_high:.2f})" for r in rows.itertuples())
+            parts.append(f"{cause} ({self.events[cause]:,.0f} churns): {terms}")
+        return "Cause-specific Cox models. " + " | ".join(parts)
+
+
+def cause_specific_cox(
+    table: StartStop,
+    covariates: Sequence[str],
+    *,
+    causes: Sequence[str] | None = None,
+    **options: object,
+) -> CauseSpecificCox:
+    """Fit a Cox model for each churn cause with the other causes censored.
+
+    Parameters
+    ----------
+    table : StartStop
+        Start-stop rows with ``cause`` on churn rows.
+    covariates : column names
+        The same covariates for every cause.
+    causes : optional
+        Which causes (default: every cause present).
+    **options
+        Passed to :func:`retain.models.cox.fit_cox` (strata, ties, reference,
+        penalty, robust, conf, ...).
+    """
+    from retain.models.cox import fit_cox
+
+    if not isinstance(table, StartStop):
+        raise DataError("cause_specific_cox", f"needs a StartStop, not {type(table).__name__}",
+                        "build one with StartStop.from_parquet / from_frame")
+    present = [c for c in CAUSES if c in table.cause.levels
+               and bool(np.any((table.cause.codes == table.cause.levels.index(c))
+                               & (table.churned == 1)))]
+    chosen = list(present if causes is None else causes)
+    for c in chosen:
+        if c not in CAUSES:
+            raise DataError("cause_specific_cox", f"unknown cause {c!r}",
+                            f"choose from: {', '.join(CAUSES)}")
+        if c not in present:
+            raise ModelError(table.source, f"there are no {c} churns",
+                             f"causes with churns: {', '.join(present) or '(none)'}")
+    if not chosen:
+        raise ModelError(table.source, "there are no churns with a cause",
+                         "cause-specific models need the cause column")
+    fits, frames, events, warnings = {}, [], {}, []
+    missing = int(np.sum((table.churned == 1) & (table.cause.codes < 0)))
+    if missing:
+        warnings.append(f"{missing} churn rows carry no cause; every cause's model treats them "
+                        "as censored")
+    for c in chosen:
+        sub = table.for_cause(c)
+        fit = fit_cox(sub, covariates, **options)
+        fits[c] = fit
+        events[c] = sub.n_events
+        hr = fit.hazard_ratios
+        hr.insert(0, "cause", c)
+        frames.append(hr)
+        warnings.extend(f"{c}: {w}" for w in fit.warnings)
+    return CauseSpecificCox(fits=fits, frame=pd.concat(frames, ignore_index=True),
+                            causes=tuple(chosen), covariates=tuple(covariates),
+                            n_rows=table.n_rows, events=events, warnings=tuple(warnings))
