@@ -31,6 +31,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from retain.data.table import Categorical, StartStop
 from retain.errors import DataError, ModelError
@@ -264,6 +265,9 @@ def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
         sub.stop = stop
         sub.churned = churned
         sub.cause = cause
+    # keep only the experiment's arms as levels (other arm values have no rows here)
+    sub = sub.with_columns(**{arm: Categorical.from_values(
+        pa.array(sub.column(arm).values().tolist(), type=pa.string()))})
     n_arms = len({*treatments, control})
     return sub, f"{selection}; arms {control} (control) and {', '.join(treatments)}; " \
         f"{sub.n_customers} customers in {n_arms} arms, followed up to {horizon:g} days"

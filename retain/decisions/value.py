@@ -57,7 +57,7 @@ CAUTION = (
 )
 TIMING = "margin received at the end of each month survived (month k discounted by (1+d)^-k)"
 NO_CAP_MONTHS = 1200  # "no horizon cap" sums 100 years of months
-DEFAULT_DRAWS = 400
+DEFAULT_DRAWS = 200
 DEFAULT_SEED = 20261202
 
 DrawFn = Callable[[np.ndarray], np.ndarray]
@@ -204,6 +204,8 @@ def _as_array(prediction: Any) -> np.ndarray:
     """Retention values out of a model's prediction (array or forecast result)."""
     if isinstance(prediction, np.ndarray):
         return prediction.astype(np.float64)
+    if isinstance(prediction, pd.DataFrame):
+        return prediction["retention"].to_numpy(dtype=np.float64)
     for name in ("retention", "survival"):
         v = getattr(prediction, name, None)
         if v is not None:
