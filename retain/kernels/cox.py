@@ -48,8 +48,9 @@ from __future__ import annotations
 from typing import NamedTuple
 
 import numpy as np
+from scipy import sparse
 
-CHUNK = 1 << 16
+CHUNK = 1 << 14
 
 
 class RiskIndex(NamedTuple):
@@ -61,13 +62,31 @@ class RiskIndex(NamedTuple):
     lo: np.ndarray            # (n,) first churn time index at which the row is at risk
     hi: np.ndarray            # (n,) one past the last
     event_rows: np.ndarray    # (E,) rows that churn
-    event_k: np.ndarray       # (E,) churn-time index of each of those rows
+    event_k: np.ndarray       # (E,) churn-time index of each of those rows (ascending)
+    event_starts: np.ndarray  # (K,) where each churn time's rows begin in event_rows
     deaths: np.ndarray        # (K,) weighted churns D_k
     units: np.ndarray         # (K,) Efron tie units m_k
     omega: np.ndarray         # (K,) D_k / m_k
     unit_k: np.ndarray        # (sum m_k,) owner time of each Efron unit
     unit_f: np.ndarray        # (sum m_k,) j / m_k of each Efron unit
     n_strata: int
+
+
+def positions_right(sorted_times: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """``np.searchsorted(sorted_times, values, side="right")``, faster for day counts.
+
+    When every value is a whole or half day (the start-stop contract's time
+    grid) a lookup table over the half-day grid replaces a binary search per
+    row; the result is identical.
+    """
+    if values.shape[0] > 4096:
+        v2 = values * 2.0
+        top = float(v2.max()) if v2.size else 0.0
+        if 0 <= float(v2.min()) and top < 5e7 and np.array_equal(v2, np.floor(v2)):
+            grid = np.arange(int(top) + 1) / 2.0
+            lut = np.searchsorted(sorted_times, grid, side="right")
+            return lut[v2.astype(np.int64)]
+    return np.searchsorted(sorted_times, values, side="right")
 
 
 def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
@@ -104,8 +123,8 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
     lo = np.empty(n, dtype=np.int64)
     hi = np.empty(n, dtype=np.int64)
     if n_strata == 1:
-        lo[:] = np.searchsorted(times, start, side="right")
-        hi[:] = np.searchsorted(times, stop, side="right")
+        lo[:] = positions_right(times, start)
+        hi[:] = positions_right(times, stop)
     else:
         by = np.argsort(stratum, kind="stable")
         cuts = np.searchsorted(stratum[by], np.arange(n_strata + 1), side="left")
@@ -114,8 +133,8 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
             if rows.size == 0:
                 continue
             ts = times[bounds[s]:bounds[s + 1]]
-            lo[rows] = bounds[s] + np.searchsorted(ts, start[rows], side="right")
-            hi[rows] = bounds[s] + np.searchsorted(ts, stop[rows], side="right")
+            lo[rows] = bounds[s] + positions_right(ts, start[rows])
+            hi[rows] = bounds[s] + positions_right(ts, stop[rows])
     K = times.shape[0]
     event_rows = ev[o]
     event_k = np.cumsum(new) - 1
@@ -131,8 +150,9 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
     unit_k = np.repeat(np.arange(K), units)
     first = np.cumsum(units) - units
     unit_f = (np.arange(unit_k.shape[0]) - first[unit_k]) / units[unit_k]
-    return RiskIndex(times, time_stratum, bounds, lo, hi, event_rows, event_k, deaths,
-                     units, omega, unit_k, unit_f, int(n_strata))
+    event_starts = np.flatnonzero(new)
+    return RiskIndex(times, time_stratum, bounds, lo, hi, event_rows, event_k, event_starts,
+                     deaths, units, omega, unit_k, unit_f, int(n_strata))
 
 
 def window_sum(index: RiskIndex, per_time: np.ndarray) -> np.ndarray:
@@ -181,18 +201,22 @@ class TimeStats(NamedTuple):
     log_term: float  # sum_k omega_k sum_j log a_j (on the shifted scale)
 
 
-def time_stats(index: RiskIndex, X: np.ndarray, r: np.ndarray, efron: bool) -> TimeStats:
-    """Risk-set sums and the Efron (or Breslow) scalars at each churn time."""
+def time_stats(index: RiskIndex, X: np.ndarray, r: np.ndarray, efron: bool,
+               X_ev: np.ndarray | None = None) -> TimeStats:
+    """Risk-set sums and the Efron (or Breslow) scalars at each churn time.
+
+    ``X_ev`` is ``X[index.event_rows]`` if the caller keeps it (saves a gather).
+    """
     K = index.times.shape[0]
-    p = X.shape[1]
     S0, S1 = risk_sums(index, r, X)
     assert S1 is not None
     er = index.event_rows
     rev = r[er]
-    T0 = np.bincount(index.event_k, rev, K)
-    T1 = np.empty((K, p))
-    for j in range(p):
-        T1[:, j] = np.bincount(index.event_k, rev * X[er, j], K)
+    if X_ev is None:
+        X_ev = X[er]
+    T0 = np.add.reduceat(rev, index.event_starts) if K else np.zeros(0)
+    T1 = np.add.reduceat(X_ev * rev[:, None], index.event_starts, axis=0) if K \
+        else np.zeros((0, X.shape[1]))
     if efron:
         uk = index.unit_k
         f = index.unit_f
@@ -218,18 +242,23 @@ def time_stats(index: RiskIndex, X: np.ndarray, r: np.ndarray, efron: bool) -> T
 
 
 def weighted_cross(X: np.ndarray, v: np.ndarray, chunk: int = CHUNK) -> np.ndarray:
-    """:math:`X^\\top \\mathrm{diag}(v) X` in row chunks (no n x p temporary)."""
+    """:math:`X^\\top \\mathrm{diag}(v) X` for ``v >= 0``, in row chunks (no n x p temporary).
+
+    Computed as :math:`Y^\\top Y` with :math:`Y = \\mathrm{diag}(\\sqrt v)X`, chunk by chunk.
+    """
     p = X.shape[1]
     H = np.zeros((p, p))
+    s = np.sqrt(np.maximum(v, 0.0))
     for a in range(0, X.shape[0], chunk):
-        Xb = X[a:a + chunk]
-        H += (Xb * v[a:a + chunk, None]).T @ Xb
+        Yb = X[a:a + chunk] * s[a:a + chunk, None]
+        H += Yb.T @ Yb
     return H
 
 
 def cox_derivatives(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
                     beta: np.ndarray, offset: np.ndarray | None = None, efron: bool = True,
-                    hessian: bool = True) -> tuple[float, np.ndarray, np.ndarray | None]:
+                    hessian: bool = True, X_ev: np.ndarray | None = None
+                    ) -> tuple[float, np.ndarray, np.ndarray | None]:
     """Log partial likelihood, score and information (negative Hessian) at ``beta``.
 
     See the module docstring for the formulas. ``X`` should be centred (the
@@ -240,7 +269,7 @@ def cox_derivatives(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
         eta = eta + offset
     shift = float(eta.max()) if eta.size else 0.0
     r = weight * np.exp(eta - shift)
-    st = time_stats(index, X, r, efron)
+    st = time_stats(index, X, r, efron, X_ev)
     dw = weight * churned
     D_total = float(index.deaths.sum())
     ll = float(np.dot(dw, eta)) - st.log_term - shift * D_total
@@ -275,12 +304,14 @@ def breslow_increments(index: RiskIndex, X: np.ndarray, weight: np.ndarray, beta
 
 
 def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
-                    beta: np.ndarray, offset: np.ndarray | None = None,
-                    efron: bool = True) -> np.ndarray:
-    r"""Per-row score residuals :math:`w_i L_i` (n, p); their column sums are the score.
+                    beta: np.ndarray, offset: np.ndarray | None = None, efron: bool = True,
+                    cluster: np.ndarray | None = None, n_clusters: int | None = None
+                    ) -> np.ndarray:
+    r"""Score residuals :math:`w_i L_i`, per row (n, p) or summed by cluster (C, p).
 
-    Start-stop form of the score residuals (Therneau & Grambsch 2000, sec. 4.6;
-    Lin & Wei 1989, JASA 84:1074 for their use in the robust variance):
+    Their column sums are the score. Start-stop form (Therneau & Grambsch
+    2000, sec. 4.6; Lin & Wei 1989, JASA 84:1074 for their use in the robust
+    variance):
 
     .. math::
 
@@ -292,6 +323,9 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     and the Efron mean :math:`\bar{\bar x}_k = (\alpha_k S_1 - \beta_k T_1)/D_k`.
     Under Breslow ties these reduce to the familiar
     :math:`d_i(x_i-\bar x_{k(i)}) - e^{\eta_i}\sum_{k} (x_i-\bar x_k)\,dH_0(t_k)`.
+
+    With ``cluster`` (int codes) the rows are summed by cluster through two
+    sparse products, so no (n, p) array is formed.
     """
     eta = X @ beta
     if offset is not None:
@@ -300,16 +334,51 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     r = weight * np.exp(eta - shift)
     st = time_stats(index, X, r, efron)
     Hk = st.S1 * st.gamma[:, None] - st.T1 * st.delta[:, None]
-    A = window_sum(index, st.alpha)
-    HH = window_sum(index, Hk)
-    out = HH * r[:, None]
-    out -= X * (r * A)[:, None]
+    CH = np.zeros((Hk.shape[0] + 1, Hk.shape[1]))
+    np.cumsum(Hk, axis=0, out=CH[1:])
+    rA = r * window_sum(index, st.alpha)
     er, ek = index.event_rows, index.event_k
     xbar = (st.S1 * st.alpha[:, None] - st.T1 * st.beta[:, None]) / index.deaths[:, None]
-    out[er] += weight[er, None] * (X[er] - xbar[ek])
-    if efron:
-        Hp = st.S1 * st.delta[:, None] - st.T1 * st.eps[:, None]
-        out[er] += r[er, None] * (X[er] * st.beta[ek, None] - Hp[ek])
+    Hp = st.S1 * st.delta[:, None] - st.T1 * st.eps[:, None]
+    p = X.shape[1]
+    n = X.shape[0]
+    if cluster is not None:
+        # U_c = sum_k Q[c, k] CH[k] - sum_i P[c, i] x_i + churn-row terms, with sparse Q, P
+        # built straight in CSR form from the rows grouped by cluster (no duplicate summing)
+        C = int(n_clusters or cluster.max() + 1)
+        o = np.argsort(cluster, kind="stable")
+        indptr = np.zeros(C + 1, dtype=np.int64)
+        np.cumsum(np.bincount(cluster, minlength=C), out=indptr[1:])
+        P = sparse.csr_matrix((rA[o], o, indptr), shape=(C, n))
+        ind = np.empty(2 * n, dtype=np.int64)
+        ind[0::2] = index.hi[o]
+        ind[1::2] = index.lo[o]
+        dat = np.empty(2 * n)
+        dat[0::2] = r[o]
+        dat[1::2] = -dat[0::2]
+        Q = sparse.csr_matrix((dat, ind, 2 * indptr), shape=(C, CH.shape[0]))
+        U = Q @ CH
+        for j in range(p):
+            U[:, j] -= P @ X[:, j]
+        Xe = X[er]
+        ev = weight[er, None] * (Xe - xbar[ek])
+        if efron:
+            ev += r[er, None] * (Xe * st.beta[ek, None] - Hp[ek])
+        ce = cluster[er]
+        for j in range(p):
+            U[:, j] += np.bincount(ce, ev[:, j], C)
+        return np.asarray(U)
+    out = np.empty((n, p))
+    for j in range(p):
+        ch = np.ascontiguousarray(CH[:, j])
+        xj = X[:, j]
+        col = r * (ch[index.hi] - ch[index.lo]) - xj * rA
+        xe = xj[er]
+        ev = weight[er] * (xe - xbar[ek, j])
+        if efron:
+            ev += r[er] * (xe * st.beta[ek] - Hp[ek, j])
+        col[er] += ev
+        out[:, j] = col
     return out
 
 
@@ -367,8 +436,10 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
     beta = np.zeros(p) if beta0 is None else np.array(beta0, dtype=float)
     history: list = []
 
+    X_ev = np.ascontiguousarray(X[index.event_rows])
+
     def objective(b: np.ndarray, hess: bool = True):
-        ll, g, H = cox_derivatives(index, X, weight, churned, b, offset, efron, hess)
+        ll, g, H = cox_derivatives(index, X, weight, churned, b, offset, efron, hess, X_ev)
         if penalty:
             ll = ll - 0.5 * penalty * float(b @ b)
             g = g - penalty * b
@@ -399,8 +470,10 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
         halvings = 0
         t = 1.0
         while True:
+            # the full step is nearly always taken, so evaluate everything at once
             cand = beta + t * step
-            ll_new, _, _ = objective(cand, hess=False)
+            with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+                ll_new, g_new, H_new = objective(cand, hess=halvings == 0)
             if np.isfinite(ll_new) and ll_new >= ll - 1e-12 * (1 + abs(ll)):
                 break
             halvings += 1
@@ -412,7 +485,10 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
             break
         beta = cand
         prev = ll
-        ll, g, H = objective(beta)
+        if halvings == 0:
+            ll, g, H = ll_new, g_new, H_new
+        else:
+            ll, g, H = objective(beta)
         if halvings == 0 and abs(ll - prev) < 1e-14 * (1 + abs(ll)) and size < 1e-4:
             history.append((it + 1, ll, float("nan"), 0))
             converged = True

@@ -21,6 +21,7 @@ figure that reaches past it is flagged as extrapolated.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -38,6 +39,20 @@ from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 TIES = ("efron", "breslow")
+
+
+def _single_blas_thread() -> contextlib.AbstractContextManager:
+    """Limit BLAS to one thread for the fit.
+
+    The products here are tall and thin (n x 10); on a busy machine a
+    multi-threaded BLAS spends far longer waking threads than computing.
+    """
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - threadpoolctl ships with scikit-learn
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
+
 #: events per parameter below which a warning is attached (common practice: ~10)
 MIN_EVENTS_PER_PARAMETER = 10.0
 #: |coefficient| x (column sd) above which a fit is flagged as (quasi-)separated
@@ -581,6 +596,16 @@ def fit_cox(
     ConvergenceError
         No convergence within ``max_iter``; ``history`` holds the iterations.
     """
+    with _single_blas_thread():
+        return _fit_cox(table, covariates, strata=strata, ties=ties, offset=offset,
+                        penalty=penalty, reference=reference, robust=robust, conf=conf,
+                        max_iter=max_iter)
+
+
+def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Sequence[str] | None,
+             ties: str, offset: str | np.ndarray | None, penalty: float,
+             reference: Mapping[str, str] | None, robust: bool, conf: float,
+             max_iter: int) -> CoxFit:
     where = f"Cox model on {table.source}"
     if ties not in TIES:
         raise ModelError(where, f"unknown tie method {ties!r}", "use 'efron' or 'breslow'")
@@ -597,7 +622,8 @@ def fit_cox(
                         "a stratum gets its own baseline; drop it from the covariates")
     for s in strata_t:
         table.column(s)
-    if table.n_events <= 0:
+    n_events = table.n_events
+    if n_events <= 0:
         raise ModelError(where, "the table has no churns", "a hazard model needs churn events")
     design = design_matrix(table, covariates, reference=reference)
     p = design.n_columns
@@ -619,12 +645,12 @@ def fit_cox(
             warn.append(f"stratum {stratum_labels[s]} has no churns: its rows do not inform the "
                         "hazard ratios and it has no baseline")
     _check_separation(where, table, design, w, d, penalty, warn)
-    epp = table.n_events / p
+    epp = n_events / p
     if epp < MIN_EVENTS_PER_PARAMETER:
-        warn.append(f"only {epp:.1f} churns per coefficient ({table.n_events:g} churns, {p} "
+        warn.append(f"only {epp:.1f} churns per coefficient ({n_events:g} churns, {p} "
                     f"coefficients); about {MIN_EVENTS_PER_PARAMETER:g} or more is common "
                     "practice: estimates may be biased and intervals too narrow")
-    Xc = np.asfortranarray(design.X - design.means)
+    Xc = np.subtract(design.X, design.means, order="F")
     index = K.build_risk_index(table.start, table.stop, d, w, stratum, len(stratum_labels))
     efron = ties == "efron"
     res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter)
@@ -686,8 +712,8 @@ def fit_cox(
         ci_low=res.beta - zq * se, ci_high=res.beta + zq * se, conf=float(conf), ties=ties,
         strata=strata_t, stratum_labels=stratum_labels, penalty=float(penalty),
         robust=bool(robust), robust_clusters=clusters, n_rows=table.n_rows,
-        n_customers=table.n_customers if table.has_customers else table.n_rows,
-        n_events=table.n_events, events_per_parameter=float(epp), loglik=res.loglik,
+        n_customers=int(np.count_nonzero(np.bincount(cluster))),
+        n_events=n_events, events_per_parameter=float(epp), loglik=res.loglik,
         loglik_null=res.loglik0, lr_test=_chi2("likelihood ratio", lr, p),
         wald_test=_chi2("Wald" + (" (robust)" if robust else ""), wald, p),
         score_test=_chi2("score (log-rank)", score, p), aic=-2 * res.loglik + 2 * p,
@@ -703,11 +729,7 @@ def _robust_cov(index: K.RiskIndex, Xc: np.ndarray, w: np.ndarray, d: np.ndarray
                 cov_model: np.ndarray) -> np.ndarray:
     r"""Lin & Wei (1989) sandwich :math:`V\,(\sum_c U_cU_c^\top)\,V` with
     :math:`U_c` the cluster sums of the weighted score residuals."""
-    L = K.score_residuals(index, Xc, w, d, beta, off, efron)
-    n_c = int(cluster.max()) + 1
-    U = np.empty((n_c, L.shape[1]))
-    for j in range(L.shape[1]):
-        U[:, j] = np.bincount(cluster, L[:, j], n_c)
+    U = K.score_residuals(index, Xc, w, d, beta, off, efron, cluster, int(cluster.max()) + 1)
     B = U.T @ U
     return cov_model @ B @ cov_model
 

@@ -38,7 +38,7 @@ class Design:
 
     Attributes
     ----------
-    X : ndarray (n, p) float64
+    X : ndarray (n, p) float64, Fortran order
         One row per table row, one column per coefficient (not centred).
     columns : tuple of str
         Short column names: ``"plan=Orchard"``, ``"price_ratio"``.
@@ -271,12 +271,10 @@ def design_matrix(
             others = [i for i in present if i != ref_code]
             refs[c] = ref
             levels[c] = (ref,) + tuple(col.levels[i] for i in others)
-            block = np.empty((table.n_rows, len(others)))
-            for k, i in enumerate(others):
-                block[:, k] = col.codes == i
+            for i in others:
+                blocks.append(col.codes == i)
                 columns.append(f"{c}={col.levels[i]}")
                 labels.append(f"{c} {col.levels[i]} vs {ref}")
-            blocks.append(block)
         else:
             if c in reference:
                 raise DataError(where, f"a reference level is given for numeric covariate {c!r}",
@@ -286,12 +284,14 @@ def design_matrix(
                 raise DataError(where, f"covariate {c!r} has no variation "
                                 f"(every row is {col[0]:g})",
                                 f"drop {c!r} from the covariates")
-            blocks.append(col.reshape(-1, 1))
+            blocks.append(col)
             columns.append(c)
             labels.append(f"{c} (per unit)")
         terms[c] = slice(start, len(columns))
-    X = np.hstack(blocks) if blocks else np.zeros((table.n_rows, 0))
-    X = np.ascontiguousarray(X, dtype=np.float64)
+    # Fortran order: kernels work one column at a time
+    X = np.empty((table.n_rows, len(blocks)), dtype=np.float64, order="F")
+    for j, block in enumerate(blocks):
+        X[:, j] = block
     wsum = float(w.sum())
     means = (w @ X) / wsum if X.shape[1] else np.zeros(0)
     design = Design(X=X, columns=tuple(columns), labels=tuple(labels),
