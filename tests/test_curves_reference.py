@@ -55,6 +55,17 @@ def _gehan() -> StartStop:
     return StartStop(np.zeros(len(t)), t, e, covariates={"arm": arm})
 
 
+def assert_matches_sksurv(curve, tab: StartStop, entry: bool) -> None:
+    """Curve and log-log limits equal scikit-survival's kaplan_meier_estimator at its times."""
+    t, s, ci = kaplan_meier_estimator(tab.churned.astype(bool), tab.stop,
+                                      time_enter=tab.start if entry else None,
+                                      conf_type="log-log")
+    np.testing.assert_allclose(curve.at(t), s, rtol=0, atol=TIGHT)
+    lo, hi = curve.interval_at(t)
+    np.testing.assert_allclose(lo, ci[0], rtol=0, atol=TIGHT)
+    np.testing.assert_allclose(hi, ci[1], rtol=0, atol=TIGHT)
+
+
 def test_gehan_km_matches_published_table():
     """6-MP arm: Klein & Moeschberger (2003) Table 4.1A (from memory), 3-4 decimals."""
     tab = _gehan()
@@ -86,12 +97,7 @@ def test_gehan_km_matches_statsmodels_and_sksurv():
         # statsmodels returns NaN SE where S = 0 (placebo's last time); retain returns 0
         fin = np.isfinite(sm.surv_prob_se)
         np.testing.assert_allclose(curve.se[ev][fin], sm.surv_prob_se[fin], rtol=0, atol=TIGHT)
-        t, s, ci = kaplan_meier_estimator(sub.churned.astype(bool), sub.stop,
-                                          conf_type="log-log")
-        np.testing.assert_allclose(curve.at(t), s, rtol=0, atol=TIGHT)
-        lo, hi = curve.interval_at(t)
-        np.testing.assert_allclose(lo, ci[0], rtol=0, atol=TIGHT)
-        np.testing.assert_allclose(hi, ci[1], rtol=0, atol=TIGHT)
+        assert_matches_sksurv(curve, sub, entry=False)
 
 
 def test_gehan_logrank():
@@ -144,12 +150,7 @@ def test_whas500_delayed_entry_km_matches_sksurv_and_statsmodels():
     entries_on_event_days = np.intersect1d(tab.start, tab.stop[tab.churned == 1]).size
     assert entries_on_event_days > 0  # the tie case is really exercised
     curve = kaplan_meier(tab)
-    t, s, ci = kaplan_meier_estimator(tab.churned.astype(bool), tab.stop, time_enter=tab.start,
-                                      conf_type="log-log")
-    np.testing.assert_allclose(curve.at(t), s, rtol=0, atol=TIGHT)
-    lo, hi = curve.interval_at(t)
-    np.testing.assert_allclose(lo, ci[0], rtol=0, atol=TIGHT)
-    np.testing.assert_allclose(hi, ci[1], rtol=0, atol=TIGHT)
+    assert_matches_sksurv(curve, tab, entry=True)
     sm = SurvfuncRight(tab.stop, tab.churned, entry=tab.start)
     ev = curve.events > 0
     np.testing.assert_allclose(curve.survival[ev], sm.surv_prob, rtol=0, atol=TIGHT)
@@ -215,13 +216,7 @@ def test_flchain_age_scale_km_matches_sksurv():
     """Delayed entry on the age scale, women only (about 4300 rows): sksurv time_enter."""
     tab, sex, _ = _flchain_age_scale()
     sub = tab.take(sex == "F")
-    curve = kaplan_meier(sub)
-    t, s, ci = kaplan_meier_estimator(sub.churned.astype(bool), sub.stop, time_enter=sub.start,
-                                      conf_type="log-log")
-    np.testing.assert_allclose(curve.at(t), s, rtol=0, atol=TIGHT)
-    lo, hi = curve.interval_at(t)
-    np.testing.assert_allclose(lo, ci[0], rtol=0, atol=TIGHT)
-    np.testing.assert_allclose(hi, ci[1], rtol=0, atol=TIGHT)
+    assert_matches_sksurv(kaplan_meier(sub), sub, entry=True)
 
 
 def test_flchain_logrank_by_sex():
