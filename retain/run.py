@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from retain.data.table import StartStop
-from retain.errors import RetainError
+from retain.errors import ModelError, RetainError
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
 
@@ -211,28 +211,57 @@ def options_from_config(config: Any) -> RunOptions:
         experiments=experiments)
 
 
-def run_config(config: Any, *, progress: Callable[[str], None] | None = None) -> RunResults:
+def run_config(config: Any, *, prepared: Any = None,
+               progress: Callable[[str], None] | None = None) -> RunResults:
     """Prepare the event log that ``config`` describes, then run every model on it.
 
     A failure to prepare the data raises (there is nothing to publish without
-    a table); a model that fails is recorded in the bundle.
+    a table); a model that fails is recorded in the bundle. Pass ``prepared``
+    (from :func:`retain.data.prepare.prepare`) to skip the preparation.
     """
-    from retain.data.prepare import prepare
+    if prepared is None:
+        from retain.data.prepare import prepare
 
-    say = progress or (lambda _msg: None)
-    say("prepare")
-    prepared = prepare(config)
+        (progress or (lambda _msg: None))("prepare")
+        prepared = prepare(config)
     return run_table(prepared.table, options_from_config(config), prepared=prepared,
                      progress=progress)
 
 
+def build_from_config(config: Any, out_dir: Any, *, prepared: Any = None,
+                      progress: Callable[[str], None] | None = None) -> tuple[Any, RunResults]:
+    """One run of the whole flow, published: returns (path of index.html, the run)."""
+    from retain.publish.pages import site_content
+    from retain.publish.site import build_site
+
+    run = run_config(config, prepared=prepared, progress=progress)
+    (progress or (lambda _msg: None))("site")
+    return build_site(site_content(run), out_dir), run
+
+
 def _model_steps(table: StartStop, options: RunOptions,
                  done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
-    from retain.models import competing, curves, decrements, parametric
+    from retain.models import competing, cox, curves, decrements, parametric
 
     cov = list(options.covariates)
     ref = dict(options.reference) or None
     first_segment = options.segments[0] if options.segments else None
+    grid = np.arange(0.0, float(table.stop.max()) + 1e-9, DAYS_PER_MONTH / 2)
+
+    def cox_fit() -> Any:
+        return cox.fit_cox(table, cov, strata=list(options.strata) or None, reference=ref)
+
+    def after(name: str, what: Callable[[Any], Any]) -> Callable[[], Any]:
+        def run() -> Any:
+            first = done[name]
+            if not first.ok:
+                raise ModelError(name, "the step this one needs failed", first.error or "")
+            return what(first.value)
+        return run
+
+    def from_cox(what: Callable[[Any], Any]) -> Callable[[], Any]:
+        return after("cox", what)
+
     steps: list[tuple[str, Callable[[], Any]]] = [
         ("km", lambda: curves.kaplan_meier(table)),
     ]
@@ -245,7 +274,47 @@ def _model_steps(table: StartStop, options: RunOptions,
         ("weibull", lambda: parametric.fit_weibull(table, cov, reference=ref)),
         ("compare", lambda: parametric.compare_models(table, cov, reference=ref)),
         ("loglog", lambda: parametric.loglog_diagnostic(table, first_segment)),
+        ("cox", cox_fit),
+        ("cox:ph", from_cox(lambda f: f.proportional_hazards_test())),
+        ("cox:concordance", from_cox(lambda f: f.concordance())),
+        ("cox:curve", from_cox(lambda f: f.segment_retention(table, grid))),
         ("decrements", lambda: decrements.decrement_table(table)),
+        ("graduation", after("decrements", lambda d: decrements.graduate(d))),
+        ("ae", after("decrements", lambda d: _actual_vs_expected(table, d, options))),
         ("incidence", lambda: competing.cumulative_incidence(table)),
     ]
+    steps += _decision_steps(table, options, done)
+    return steps
+
+
+def _actual_vs_expected(table: StartStop, basis: Any, options: RunOptions) -> Any:
+    """A/E of each segment (and calendar month) against the book's tenure-month rates."""
+    from retain.models import expected
+
+    by = [s for s in options.segments if table.has(s)]
+    if table.has("cohort"):
+        by.append("cohort")
+    by.append("calendar_month")
+    return expected.actual_vs_expected(table, basis, by=by, credibility=True)
+
+
+def _decision_steps(table: StartStop, options: RunOptions,
+                    done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
+    from retain.decisions import experiments, value
+
+    spec = dict(options.value)
+    by = tuple(options.segments[:1])
+    steps: list[tuple[str, Callable[[], Any]]] = []
+    if spec:
+        steps += [
+            ("value:all", lambda: value.value_by_segment(table, spec, (), as_of=options.as_of)),
+            ("value:segments", lambda: value.value_by_segment(table, spec, by,
+                                                              as_of=options.as_of)),
+            ("value:base", lambda: value.base_value_by_segment(table, spec, by,
+                                                               as_of=options.as_of)),
+        ]
+    price = str(spec.get("price") or "price")
+    for name, exp in options.experiments.items():
+        steps.append((f"experiment:{name}", lambda exp=exp: experiments.experiment_verdict(
+            table, exp, as_of=options.as_of, price=price)))
     return steps

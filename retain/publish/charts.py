@@ -296,3 +296,25 @@ def loglog_chart(points: pd.DataFrame, lines: pd.DataFrame, name: str, *,
         x=x, y=alt.Y("fitted_log_cumulative_hazard:Q"), color=color,
         detail=f"{series}:N")
     return finish(alt.layer(dots, fitted).properties(height=HEIGHT), name, data)
+
+
+def ratio_series_chart(frame: pd.DataFrame, name: str, *, x: str, estimate: str, lower: str,
+                       upper: str, x_title: str, y_title: str,
+                       reference: float = 1.0) -> dict[str, Any]:
+    """Ratios along an ordered axis (calendar month, cohort) with interval whiskers."""
+    data = _Datasets(name)
+    order = list(dict.fromkeys(frame[x].astype(str)))
+    step = max(1, len(order) // 12)
+    ex = alt.X(f"{x}:O", sort=order, title=x_title,
+               axis=alt.Axis(labelAngle=-45, values=order[::step]))
+    base = alt.Chart(data(frame))
+    tip = [alt.Tooltip(f"{x}:O"), alt.Tooltip(f"{estimate}:Q", format=".3f"),
+           alt.Tooltip(f"{lower}:Q", format=".3f"), alt.Tooltip(f"{upper}:Q", format=".3f")]
+    ys = alt.Scale(zero=False)
+    whisk = base.mark_rule(color=PALETTE[4], strokeWidth=2).encode(
+        x=ex, y=alt.Y(f"{lower}:Q", scale=ys, title=y_title), y2=f"{upper}:Q")
+    dots = base.mark_point(filled=True, size=30, color=PALETTE[0]).encode(
+        x=ex, y=alt.Y(f"{estimate}:Q", scale=ys), tooltip=tip)
+    ref = alt.Chart(alt.InlineData(values=[{"ref": reference}])).mark_rule(
+        color=PALETTE[5], strokeDash=[4, 3]).encode(y=alt.Y("ref:Q", scale=ys))
+    return finish(alt.layer(ref, whisk, dots).properties(height=HEIGHT), name, data)

@@ -187,17 +187,23 @@ def hazard_sentences(cox: Any, k: int) -> list[str]:  # filled when the Cox mode
     for i in order[:k]:
         r = frame.iloc[int(i)]
         hr = float(r["hazard_ratio"])
-        more = "higher" if hr > 1 else "lower"
-        size = abs(hr - 1.0) if hr > 1 else 1.0 - hr
-        out.append(f"{r['term']}: churn risk {pct(size, 0)} {more} at any tenure "
-                   f"(hazard ratio {hr:.2f}, 95 % interval {float(r['lower']):.2f} to "
-                   f"{float(r['upper']):.2f}).")
+        if hr >= 2:
+            what = f"{hr:.1f} times the churn risk"
+        elif hr >= 1:
+            what = f"a churn risk {100 * (hr - 1):.0f} % higher"
+        else:
+            what = f"a churn risk {100 * (1 - hr):.0f} % lower"
+        out.append(f"{r['term']}: {what} at any tenure (hazard ratio {hr:.2f}, 95 % interval "
+                   f"{float(r['lower']):.2f} to {float(r['upper']):.2f}).")
     return out
 
 
 def hazard_frame(cox: Any) -> pd.DataFrame:
-    """term, hazard_ratio, lower, upper, p_value from a Cox result (to_frame)."""
-    return cox.to_frame()
+    """term, hazard_ratio, lower, upper, p_value of a Cox fit, in the model's order."""
+    hr = cox.hazard_ratios
+    return pd.DataFrame({"term": hr["term"].astype(str), "hazard_ratio": hr["hazard_ratio"],
+                         "lower": hr["hr_low"], "upper": hr["hr_high"],
+                         "p_value": hr["p_value"]})
 
 
 def curves_page(run: Any) -> Page:
@@ -396,14 +402,47 @@ def _cox_section(run: Any) -> Section:
     return cox_section(run, o.value)
 
 
-def cox_section(run: Any, cox: Any) -> Section:  # replaced when the Cox result is read
+def cox_section(run: Any, cox: Any) -> Section:
     frame = hazard_frame(cox)
-    return Section("Cox model: hazard ratios", figures=(Figure(
+    facts: list[Fact] = []
+    conc = run.get("cox:concordance")
+    if conc.ok:
+        facts.append(Fact("Concordance (Harrell's C)", f"{conc.value.c_index:.3f}",
+                          "0.5 = no better than chance, 1 = perfect ranking", "concordance",
+                          conc.value.c_index))
+    ph = run.get("cox:ph")
+    bullets = list(cox.warnings)
+    figs = [Figure(
         key="hazards-cox", title="Hazard ratios (Cox)",
         guide="Each dot is how many times more likely (above 1) or less likely (below 1) "
               "customers with that attribute are to churn at any given tenure than the "
-              "reference group, other attributes held fixed; whiskers are 95 % intervals.",
-        chart=charts.forest_chart(frame, "hazards_cox"), table=frame),))
+              "reference group, other attributes held fixed; whiskers are 95 % intervals "
+              "(robust, clustered by customer). A numeric attribute is read per unit.",
+        chart=charts.forest_chart(frame, "hazards_cox"), table=frame,
+        csv=cox.hazard_ratios)]
+    if ph.ok:
+        t = ph.value.table
+        glob = t[t["term"] == "GLOBAL"].iloc[0]
+        p = float(glob["p_value"])
+        facts.append(Fact("Proportional-hazards test", f"χ² {float(glob['chi2']):.1f}",
+                          f"{int(glob['df'])} df, " + ("p < 0.001" if p < 0.001 else
+                                                       f"p = {p:.3f}"),
+                          "ph-global", float(glob["chi2"])))
+        figs.append(Figure(
+            key="hazards-ph-test", title="Proportional-hazards test by term",
+            guide="Grambsch–Therneau test on scaled Schoenfeld residuals: a small p-value "
+                  "says that attribute's hazard ratio changes with tenure, so the single "
+                  "ratio above is an average over tenure. With many customers small, "
+                  "harmless departures also reach small p-values.",
+            table=t[t["level"] != "column"] if (t["level"] == "term").any() else t,
+            csv=t))
+    else:
+        bullets.append(f"proportional-hazards test: {ph.error}")
+    return Section("Cox model: hazard ratios", intro=f"Cox proportional-hazards model "
+                   f"({cox.ties} ties) on {num(cox.n_rows)} rows, {num(cox.n_customers)} "
+                   f"customers and {num(cox.n_events)} churns; each attribute is compared with "
+                   "its reference level.", facts=tuple(facts), bullets=tuple(bullets),
+                   figures=tuple(figs))
 
 
 # --------------------------------------------------------------------------- model fit
@@ -494,8 +533,8 @@ def _cox_population_curve(run: Any, grid: np.ndarray) -> pd.DataFrame | str:
         return o.error or "not run"
     curve = o.value
     return pd.DataFrame({"curve": "Cox (average over customers)",
-                         "month": np.asarray(curve.times) / DAYS_PER_MONTH,
-                         "retention": np.asarray(curve.retention)})
+                         "month": curve["time"].to_numpy(dtype=float) / DAYS_PER_MONTH,
+                         "retention": curve["retention"].to_numpy(dtype=float)})
 
 
 def _fit_grid_table(frame: pd.DataFrame) -> pd.DataFrame:
@@ -540,7 +579,7 @@ def decrements_page(run: Any) -> Page:
     if grad.ok:
         g = grad.value.to_frame()
         chart_parts.append(pd.DataFrame({"rate": "graduated q", "month": g["month"] + 1,
-                                         "q": g["graduated_q"], "lower": math.nan,
+                                         "q": g["q_graduated"], "lower": math.nan,
                                          "upper": math.nan}))
     elif grad.kind != "absent":
         notes.append(f"graduation: {grad.error}")
@@ -548,8 +587,9 @@ def decrements_page(run: Any) -> Page:
     shown = seg[["label", "in_force", "exposure", "churns", "churns_voluntary",
                  "churns_involuntary", "m", "q", "q_lower", "q_upper", "survivors"]]
     if grad.ok:
-        shown = shown.assign(graduated_q=grad.value.to_frame()["graduated_q"].to_numpy()
-                             [:len(shown)])
+        g = grad.value.to_frame()
+        g = g[g["segment"] == seg["segment"].iloc[0]]
+        shown = shown.assign(q_graduated=g["q_graduated"].to_numpy()[:len(shown)])
     overall = dt.n_events / dt.total_exposure if dt.total_exposure > 0 else math.nan
     facts = (Fact("Exposure", f"{num(dt.total_exposure)} customer-months", "central exposure",
                   "exposure", dt.total_exposure),
@@ -586,12 +626,53 @@ def expected_page(run: Any) -> Page:
     return ae_page(run, o.value)
 
 
-def ae_page(run: Any, ae: Any) -> Page:  # filled when the A/E result lands
+def ae_page(run: Any, ae: Any) -> Page:
     frame = ae.to_frame()
-    return Page("expected", "Actual vs expected", "Observed churns against a basis.",
-                (Section("Actual against expected by segment", figures=(Figure(
-                    key="expected-segments", title="A/E by segment", guide="", table=frame),)),),
-                cautions=ACTUARIAL_CAUTIONS, nav_label="Actual vs expected", group="actuarial")
+    book = frame.iloc[0]
+    facts = (Fact("Actual churns", num(float(book["actual"])), "whole book", "ae-actual",
+                  float(book["actual"])),
+             Fact("Expected churns", num(float(book["expected"]), 1), ae.basis, "ae-expected",
+                  float(book["expected"])),
+             Fact("A/E, whole book", f"{float(book['ratio']):.3f}",
+                  interval_text(float(book["lower"]), float(book["upper"]),
+                                lambda v: f"{v:.3f}"), "ae-ratio", float(book["ratio"])))
+    sections = [Section("The basis", intro=f"Expected churns come from {ae.basis}: for every "
+                        "start-stop row the basis's hazard is integrated over the row's "
+                        "interval and summed by segment. A/E above 1 means more churn than the "
+                        "basis expects. Intervals: " + ae.interval + ".", facts=facts,
+                        bullets=tuple(ae.warnings))]
+    dims = [d for d in dict.fromkeys(frame["dimension"]) if d != "all"]
+    for dim in dims:
+        part = frame[frame["dimension"] == dim].reset_index(drop=True)
+        shown = part.drop(columns=["dimension"])
+        flagged = int((part["flag"] != "").sum())
+        label = dim.replace("_", " ")
+        chart = None
+        chart_name = f"expected_{slug(dim).replace('-', '_')}"
+        if dim in ("calendar_month", "cohort", "tenure_month"):
+            chart = charts.ratio_series_chart(part, chart_name, x="level", estimate="ratio",
+                                              lower="lower", upper="upper", x_title=label,
+                                              y_title="A/E (1 = as expected)")
+        else:
+            chart = charts.interval_bars(
+                part, chart_name, label="level",
+                estimate="ratio", lower="lower", upper="upper", x_title="A/E (1 = as expected)",
+                reference=1.0, x_format=".2f")
+        sections.append(Section(f"By {label}", intro=f"{flagged} of {len(part)} levels have an "
+                                "interval that excludes 1 (flagged above or below).",
+                                figures=(Figure(
+            key=f"expected-{slug(dim)}", title=f"A/E by {label}",
+            guide="Each bar (or point) is actual ÷ expected churns with its 95 % exact Poisson "
+                  "interval; the dashed line at 1 is 'as the basis expects'. Where the "
+                  "interval excludes 1 the level is flagged. The credibility column blends a "
+                  "small level's experience with the whole book (limited fluctuation, full "
+                  f"credibility at {ae.full_credibility:,.0f} expected churns; common practice).",
+            chart=chart, table=shown, csv=part, show_rows=60),)))
+    return Page("expected", "Actual vs expected", "Is churn what the basis expected? Observed "
+                "churns against the churns the basis predicts for the same exposure, by "
+                "segment, cohort and calendar month.", tuple(sections),
+                cautions=ACTUARIAL_CAUTIONS + (ae.caution,), nav_label="Actual vs expected",
+                group="actuarial")
 
 
 def causes_page(run: Any) -> Page:
@@ -647,10 +728,237 @@ def causes_page(run: Any) -> Page:
                 nav_label="Churn by cause", group="actuarial")
 
 
+# --------------------------------------------------------------------------- value
+def value_page(run: Any) -> Page:
+    spec = dict(run.options.value)
+    sections: list[Section] = []
+    assumptions: list[str] = []
+    if spec:
+        margin = (f"margin per month {spec['margin_per_month']:g}"
+                  if spec.get("margin_per_month") is not None else
+                  f"margin per month = {spec.get('margin_rate')} × the segment's mean monthly "
+                  f"{spec.get('price') or 'price'}")
+        rate = 100 * float(spec.get("annual_discount_rate", 0))
+        assumptions += [margin, f"annual discount rate {rate:g} %",
+                        f"horizon {spec.get('horizon_months')} months",
+                        f"retention curve: {spec.get('curve')} model fitted per segment"]
+    allv = run.get("value:all")
+    if allv.ok and allv.value.values:
+        v = allv.value.values[0]
+        assumptions += [v.timing, f"interval: {v.interval_method}"]
+        facts = (Fact("Value of a new customer", num(v.value, 2),
+                      interval_text(v.lower, v.upper, lambda x: num(x, 2)), "ltv-all", v.value),
+                 Fact("Expected months kept", num(v.expected_months, 1),
+                      f"within {v.horizon_months} months", "ltv-months", v.expected_months))
+        sections.append(Section("A new customer", facts=facts, bullets=tuple(v.warnings)))
+    else:
+        sections.append(failure_section("A new customer", allv))
+    seg = run.get("value:segments")
+    if seg.ok:
+        sv = seg.value
+        frame = sv.to_frame()
+        shown = frame[["segment", "customers", "margin_per_month", "value", "lower", "upper",
+                       "expected_months", "survival_at_horizon", "extrapolated_months"]]
+        by = ", ".join(sv.by) or "all"
+        sections.append(Section(f"By {by}", bullets=tuple(sv.warnings) + tuple(
+            f"{x.segment}: {w}" for x in sv.values for w in x.warnings), figures=(Figure(
+            key="value-segments", title=f"Lifetime value of a new customer by {by}",
+            guide="Bars are the expected discounted margin of one new customer over the "
+                  "horizon; whiskers are 95 % intervals from the model's parameter "
+                  "uncertainty only (not from future changes in price, cost or behaviour). "
+                  "Compare segments by whether their whiskers overlap.",
+            chart=charts.interval_bars(shown, "value_segments", label="segment",
+                                       estimate="value", lower="lower", upper="upper",
+                                       x_title="Value of a new customer", x_format=",.0f"),
+            table=shown, csv=frame),)))
+    else:
+        sections.append(failure_section("By segment", seg))
+    base = run.get("value:base")
+    if base.ok:
+        bv = base.value
+        frame = bv.to_frame()
+        shown = frame[["segment", "customers", "value_per_customer", "lower", "upper", "total",
+                       "total_lower", "total_upper", "extrapolated_months"]]
+        sections.append(Section("The active base", intro=bv.summary(),
+                                facts=(Fact("Residual value of the base", num(bv.total, 0),
+                                            f"{num(sum(x.customers for x in bv.segments))} "
+                                            "active customers", "base-total", bv.total),),
+                                bullets=tuple(bv.warnings), figures=(Figure(
+            key="value-base", title="Residual value of active customers",
+            guide="For each customer active on the as-of date: the expected discounted margin "
+                  "still to come, given the tenure already reached, summed by segment. "
+                  "Intervals cover model uncertainty only.",
+            table=shown, csv=frame),)))
+    else:
+        sections.append(failure_section("The active base", base))
+    fin = _finance_rows(run)
+    if fin is not None:
+        sections.append(Section("Finance file", intro="One row per figure and segment, with "
+                                "every assumption and the caution on each row, for finance "
+                                "systems.", figures=(Figure(
+            key="value-finance", title="Finance CSV",
+            guide="The same figures as above in one file: 'new customer' rows give the value "
+                  "of one new customer, 'active base' rows the residual value of the segment's "
+                  "active customers.", table=fin, show_rows=20),)))
+    from_caution = getattr(seg.value, "caution", "") if seg.ok else ""
+    cautions = MONEY_CAUTIONS + ((from_caution,) if from_caution else ())
+    return Page("value", "Value", "What a customer is worth in discounted margin, for new "
+                "customers by segment and for the active base.", tuple(sections),
+                cautions=cautions, assumptions=tuple(assumptions), nav_label="Value")
+
+
+FINANCE_COLUMNS = (
+    "figure", "segment", "customers", "value_per_customer", "lower", "upper", "total",
+    "total_lower", "total_upper", "interval_level", "interval_method", "curve",
+    "annual_discount_rate", "horizon_months", "margin_basis", "timing", "as_of", "caution",
+)
+
+
+def _finance_rows(run: Any) -> pd.DataFrame | None:
+    """The finance table: value of a new customer and of the active base, one row each."""
+    rows: list[dict[str, Any]] = []
+    seg, base = run.get("value:segments"), run.get("value:base")
+    caution = MONEY_CAUTIONS[1]
+    if seg.ok:
+        caution = getattr(seg.value, "caution", caution)
+        for v in seg.value.values:
+            rows.append({"figure": "new customer", "segment": v.segment,
+                         "customers": v.customers, "value_per_customer": v.value,
+                         "lower": v.lower, "upper": v.upper, "total": math.nan,
+                         "total_lower": math.nan, "total_upper": math.nan,
+                         "interval_level": v.level, "interval_method": v.interval_method,
+                         "curve": v.curve, "annual_discount_rate": v.annual_discount_rate,
+                         "horizon_months": v.horizon_months, "margin_basis": v.margin_basis,
+                         "timing": v.timing, "as_of": run.options.as_of})
+    if base.ok:
+        b = base.value
+        for x in b.segments:
+            rows.append({"figure": "active base", "segment": x.segment, "customers": x.customers,
+                         "value_per_customer": x.value_per_customer, "lower": x.lower,
+                         "upper": x.upper, "total": x.total, "total_lower": x.total_lower,
+                         "total_upper": x.total_upper, "interval_level": b.level,
+                         "interval_method": b.interval_method, "curve": x.curve,
+                         "annual_discount_rate": b.annual_discount_rate,
+                         "horizon_months": b.horizon_months, "margin_basis": b.margin_basis,
+                         "timing": b.timing, "as_of": run.options.as_of})
+    if not rows:
+        return None
+    for r in rows:
+        r["caution"] = caution
+    return pd.DataFrame(rows, columns=list(FINANCE_COLUMNS))
+
+
+# --------------------------------------------------------------------------- experiments
+def experiments_page(run: Any) -> Page:
+    sections: list[Section] = []
+    names = list(run.options.experiments)
+    if not names:
+        sections.append(Section("No experiments declared", intro="Declare a pricing or "
+                                "retention experiment in retain.toml under [experiments.NAME] "
+                                "to see its verdict here."))
+    for name in names:
+        o = run.get(f"experiment:{name}")
+        title = f"Experiment {name}"
+        if not o.ok:
+            sections.append(failure_section(title, o))
+            continue
+        sections.append(_experiment_section(name, o.value))
+    return Page("experiments", "Experiments", "One section per declared experiment: did the "
+                "treatment change retention and revenue against the control?", tuple(sections),
+                cautions=("Verdicts are statistical: an interval that excludes no effect is "
+                          "evidence, not proof, and an interim verdict can change as the "
+                          "experiment matures.", MONEY_CAUTIONS[1]),
+                nav_label="Experiments")
+
+
+def experiment_verdict_text(v: Any) -> str:
+    """One plain sentence per treatment arm: what happened, and how sure we are."""
+    parts = []
+    status = "Interim verdict" if v.interim else "Verdict"
+    for t in v.treatments:
+        adj = next((a for a in v.adjusted if a.treatment == t), None)
+        if adj is None:
+            parts.append(f"{t}: no adjusted hazard ratio could be computed")
+            continue
+        if adj.lower > 1:
+            what = (f"customers on {t} churned faster than on {v.control} (hazard ratio "
+                    f"{adj.hazard_ratio:.2f}, 95 % interval {adj.lower:.2f} to {adj.upper:.2f})")
+        elif adj.upper < 1:
+            what = (f"customers on {t} churned more slowly than on {v.control} (hazard ratio "
+                    f"{adj.hazard_ratio:.2f}, 95 % interval {adj.lower:.2f} to {adj.upper:.2f})")
+        else:
+            what = (f"no clear difference in churn between {t} and {v.control} (hazard ratio "
+                    f"{adj.hazard_ratio:.2f}, 95 % interval {adj.lower:.2f} to {adj.upper:.2f})")
+        rv = next((r for r in v.revenue if r.treatment == t), None)
+        if rv is not None:
+            sign = "more" if rv.difference > 0 else "less"
+            clear = "" if (rv.lower > 0 or rv.upper < 0) else ", not a clear difference"
+            what += (f"; revenue per assigned customer over {rv.horizon_days:g} days was "
+                     f"{num(abs(rv.difference), 2)} {sign} (95 % interval {num(rv.lower, 2)} to "
+                     f"{num(rv.upper, 2)}{clear})")
+        parts.append(what)
+    return f"{status} at {v.analysis_horizon_days:g} days: " + "; ".join(parts) + "."
+
+
+def _experiment_section(name: str, v: Any) -> Section:
+    key = slug(name)
+    curves = v.curves
+    pts = pd.concat([_curve_points(c, k) for k, c in curves.items()], ignore_index=True)
+    cmp_frame = v.to_frame()
+    facts = []
+    for a in v.adjusted:
+        facts.append(Fact(f"Hazard ratio, {a.treatment} vs {v.control}", f"{a.hazard_ratio:.2f}",
+                          f"95 % interval {a.lower:.2f} to {a.upper:.2f}; adjusted for "
+                          f"{', '.join(a.covariates) or 'nothing'}",
+                          f"experiment-{key}-hr-{slug(a.treatment)}", a.hazard_ratio))
+    for r in v.revenue:
+        facts.append(Fact(f"Revenue per customer, {r.treatment} − {r.control}",
+                          num(r.difference, 2), f"95 % interval {num(r.lower, 2)} to "
+                          f"{num(r.upper, 2)} over {r.horizon_days:g} days",
+                          f"experiment-{key}-revenue-{slug(r.treatment)}", r.difference))
+    facts.append(Fact("Log-rank test", "p < 0.001" if v.logrank.p_value < 0.001 else
+                      f"p = {v.logrank.p_value:.3f}", f"χ² {v.logrank.statistic:.1f} on "
+                      f"{v.logrank.df} df", f"experiment-{key}-logrank", v.logrank.p_value))
+    power = v.power if isinstance(v.power, dict) else {}
+    bullets = [f"Selection: {v.selection}."]
+    for t in v.treatments:
+        det = power.get(t, {}).get("detectable_hazard_ratio") if isinstance(
+            power.get(t), dict) else None
+        if det:
+            bullets.append(f"With the {num(power.get('events', math.nan))} churns observed, the "
+                           f"smallest hazard ratio this experiment could detect for {t} (80 % "
+                           f"power, 5 % two-sided) is about {det:.2f}.")
+    bullets += list(v.warnings)
+    figs = (
+        Figure(key=f"experiment-{key}-curves", title=f"Retention by arm ({name})",
+               guide="One line per arm, with 95 % bands, up to the analysis horizon. Lines "
+                     "that part early and stay apart show an effect on churn.",
+               chart=charts.survival_chart(pts, f"experiment_{key.replace('-', '_')}_curves",
+                                           series="segment", series_title=v.arm),
+               table=_at_risk_table(curves.items()),
+               csv=pd.concat([_curve_download(c, k) for k, c in curves.items()],
+                             ignore_index=True)),
+        Figure(key=f"experiment-{key}-comparison", title="Treatment against control",
+               guide="Per treatment arm: the adjusted hazard ratio, the difference in "
+                     "restricted mean tenure (days kept within the horizon) and in revenue "
+                     "per assigned customer, each with its 95 % interval.",
+               table=cmp_frame),
+        Figure(key=f"experiment-{key}-arms", title="Arms", guide="Customers, churns and revenue "
+               "per arm.", table=v.arms),
+        Figure(key=f"experiment-{key}-balance", title="Balance of pre-assignment attributes",
+               guide="Share of each attribute level per arm. Large differences (flagged) mean "
+                     "the arms were not comparable, and only the adjusted hazard ratio should "
+                     "be read.", table=v.balance),
+    )
+    return Section(f"Experiment {name}" + (" (interim)" if v.interim else ""),
+                   verdict=experiment_verdict_text(v), facts=tuple(facts), bullets=tuple(bullets),
+                   figures=figs, anchor=f"experiment-{key}")
+
+
 # --------------------------------------------------------------------------- the site
 PAGE_BUILDERS: tuple[Callable[[Any], Page], ...] = (
-    overview_page, curves_page, cohorts_page, hazards_page, fit_page, quality_page,
-    decrements_page, expected_page, causes_page,
+    overview_page, curves_page, cohorts_page, hazards_page, fit_page, value_page,
+    experiments_page, quality_page, decrements_page, expected_page, causes_page,
 )
 
 
