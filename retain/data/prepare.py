@@ -273,6 +273,30 @@ def _reconcile(con: duckdb.DuckDBPyConnection, config: Config, table: pa.Table) 
 
 
 # ---------------------------------------------------------------------- entry points
+def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
+              progress: Progress | None = None) -> _Timer:
+    """Run the preparation steps on ``con``, leaving their tables on it.
+
+    Tables: ``raw`` (the log as text), ``events`` (normalise),
+    ``sequence_problems``, ``spells`` and ``start_stop`` (intervals; columns
+    still carry the SQL steps' group prefixes). Used by :func:`prepare` and by
+    tests that inspect one step.
+    """
+    timer = _Timer(con, progress)
+    params = _params(config)
+    timer.run("import", lambda: _import(con, config), "raw")
+    _source_view(con, config)
+    timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
+              "events")
+    _strict_checks(con, config)
+    timer.run("sequence", lambda: run_step(con, "sequence", params,
+                                           create="sequence_problems"), "sequence_problems")
+    timer.run("spells", lambda: run_step(con, "spells", params, create="spells"), "spells")
+    timer.run("intervals", lambda: run_step(con, "intervals", params, create="start_stop"),
+              "start_stop")
+    return timer
+
+
 def prepare(config: Config, *, progress: Progress | None = None,
             compress: bool | None = None) -> Prepared:
     """Turn the event log that ``config`` describes into the start-stop table.
@@ -303,20 +327,8 @@ def prepare(config: Config, *, progress: Progress | None = None,
     compress = config.output.compress if compress is None else compress
     con = connect(config)
     try:
-        timer = _Timer(con, progress)
-        params = _params(config)
-        timer.run("import", lambda: _import(con, config), "raw")
-        _source_view(con, config)
-        timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
-                  "events")
-        _strict_checks(con, config)
-        timer.run("sequence", lambda: run_step(con, "sequence", params,
-                                               create="sequence_problems"), "sequence_problems")
-        timer.run("spells", lambda: run_step(con, "spells", params, create="spells"), "spells")
-        timer.run("intervals", lambda: run_step(con, "intervals", params, create="start_stop"),
-                  "start_stop")
-        raw_table = con.table("start_stop").to_arrow_table()
-        arrow = _public_names(raw_table)
+        timer = run_steps(con, config, progress=progress)
+        arrow = _public_names(con.table("start_stop").to_arrow_table())
         quarantine = timer.run("quarantine", lambda: run_step(con, "quarantine").to_arrow_table())
         unknown = {v: int(n) for v, n in run_step(con, "unknown_events").fetchall()}
         reconciliation = _reconcile(con, config, arrow)

@@ -1,0 +1,117 @@
+"""Each SQL step's output columns and types (DESCRIBE on a real DuckDB connection)."""
+
+from __future__ import annotations
+
+import pytest
+from test_prepare_support import project
+
+from retain.data.prepare import compress_table, connect, run_steps
+from retain.data.sqlsteps import run_step, step_parameters
+
+S = ("search", "north", "standard")
+LOG = [("a", "2024-01-01", "signup", None, "Seedling", "10", *S),
+       ("a", "2024-01-11", "price_change", None, None, "12"),
+       ("a", "2024-01-21", "cancel", "too_expensive"),
+       ("b", "2024-01-05", "pause"),
+       ("c", "2024-01-05", "teleport")]
+
+
+@pytest.fixture(scope="module")
+def con(tmp_path_factory):
+    cfg = project(tmp_path_factory.mktemp("sql"), LOG)
+    con = connect(cfg)
+    run_steps(con, cfg)
+    yield con
+    con.close()
+
+
+def schema(con, relation):
+    return [(r[0], r[1]) for r in con.execute(f"describe {relation}").fetchall()]
+
+
+ATTRS = [("vc__plan", "VARCHAR"), ("sc__channel", "VARCHAR"), ("sc__region", "VARCHAR"),
+         ("sc__arm", "VARCHAR"), ("sc__0", "VARCHAR"), ("vc__0", "VARCHAR")]
+NUMS = [("vr__price", "DOUBLE"), ("sn__0", "DOUBLE"), ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE")]
+
+
+def test_normalise_columns(con):
+    assert schema(con, "events") == [
+        ("source_row", "BIGINT"), ("customer_id", "VARCHAR"), ("day", "DATE"),
+        ("event_raw", "VARCHAR"), ("event", "VARCHAR"), ("event_rank", "INTEGER"),
+        ("cause_given", "VARCHAR"), ("ignored", "BOOLEAN"), ("reason", "VARCHAR"),
+        *ATTRS, *NUMS]
+
+
+def test_sequence_columns(con):
+    assert schema(con, "sequence_problems") == [("source_row", "BIGINT"), ("reason", "VARCHAR")]
+    assert con.execute("select * from sequence_problems").fetchall() == [
+        (4, "event before the customer's first start")]
+
+
+def test_spells_columns(con):
+    assert schema(con, "spells") == [
+        ("customer_id", "VARCHAR"), ("source_row", "BIGINT"), ("spell", "BIGINT"),
+        ("start_day", "DATE"), ("day", "DATE"), ("tenure", "INTEGER"), ("event", "VARCHAR"),
+        ("cause", "VARCHAR"), ("last_of_day", "BOOLEAN"), ("outside_window", "BOOLEAN"),
+        ("paused", "INTEGER"), ("in_recovery", "INTEGER"),
+        ("vc__plan", "VARCHAR"), ("vc__0", "VARCHAR"), ("vr__price", "DOUBLE"),
+        ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE"), ("sc__channel", "VARCHAR"),
+        ("sc__region", "VARCHAR"), ("sc__arm", "VARCHAR"), ("sc__0", "VARCHAR"),
+        ("sn__0", "DOUBLE")]
+
+
+CORE = [("customer_id", "VARCHAR"), ("spell", "BIGINT"), ("start", "DOUBLE"), ("stop", "DOUBLE"),
+        ("churned", "INTEGER"), ("cause", "VARCHAR"), ("weight", "DOUBLE"),
+        ("start_date", "DATE"), ("cohort", "VARCHAR")]
+TAIL = [("sc__channel", "VARCHAR"), ("sc__region", "VARCHAR"), ("sc__arm", "VARCHAR"),
+        ("sc__0", "VARCHAR"), ("sn__0", "DOUBLE"), ("vc__plan", "VARCHAR"), ("vc__0", "VARCHAR"),
+        ("vr__price", "DOUBLE"), ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE"),
+        ("ratio__vr__price", "DOUBLE"), ("ratio__vr__0", "DOUBLE"), ("in_recovery", "DOUBLE"),
+        ("paused", "DOUBLE"), ("prior_spells", "DOUBLE")]
+
+
+def test_intervals_columns(con):
+    assert schema(con, "start_stop") == CORE + TAIL
+
+
+def test_quarantine_reconcile_and_unknown_event_columns(con):
+    q = run_step(con, "quarantine")
+    assert list(zip(q.columns, map(str, q.types), strict=True)) == [
+        ("source_row", "BIGINT"), ("account", "VARCHAR"), ("occurred_at", "VARCHAR"),
+        ("kind", "VARCHAR"), ("cancel_reason", "VARCHAR"), ("plan", "VARCHAR"),
+        ("monthly_price", "VARCHAR"), ("channel", "VARCHAR"), ("region", "VARCHAR"),
+        ("arm", "VARCHAR"), ("quarantine_reason", "VARCHAR")]
+    r = run_step(con, "reconcile")
+    assert list(zip(r.columns, map(str, r.types), strict=True)) == [
+        ("outcome", "VARCHAR"), ("reason", "VARCHAR"), ("n_rows", "BIGINT")]
+    assert r.fetchall() == [("ignored", "", 0),
+                            ("quarantined", "event before the customer's first start", 1),
+                            ("quarantined", "unknown event", 1), ("used", "", 3)]
+    u = run_step(con, "unknown_events")
+    assert list(zip(u.columns, map(str, u.types), strict=True)) == [
+        ("value", "VARCHAR"), ("n_rows", "BIGINT")]
+    assert u.fetchall() == [("teleport", 1)]
+
+
+def test_compress_columns(con):
+    c = run_step(con, "compress")
+    assert list(zip(c.columns, map(str, c.types), strict=True)) == [
+        ("start", "DOUBLE"), ("stop", "DOUBLE"), ("churned", "INTEGER"), ("cause", "VARCHAR"),
+        ("weight", "DOUBLE"), ("cohort", "VARCHAR"), *TAIL]
+
+
+def test_compress_table_on_any_arrow_start_stop_table(con):
+    arrow = con.table("start_stop").to_arrow_table()
+    out = compress_table(arrow)
+    assert out.num_rows == 2 and sum(out.column("weight").to_pylist()) == 2.0
+
+
+@pytest.mark.parametrize("step,params", [
+    ("normalise", {"timezone", "as_of", "event_from", "event_to", "event_ignore", "reason_from",
+                   "reason_to", "reason_ignore"}),
+    ("sequence", set()), ("spells", {"window_start"}), ("intervals", {"as_of", "window_start"}),
+    ("compress", set()), ("quarantine", set()), ("reconcile", set()),
+    ("import_csv", {"path"}), ("import_parquet", {"path"}), ("import_table", set()),
+])
+def test_each_step_binds_exactly_its_parameters(step, params):
+    assert step_parameters(step) == params
