@@ -213,7 +213,7 @@ def _as_array(prediction: Any) -> np.ndarray:
     return np.asarray(prediction, dtype=np.float64)
 
 
-#: above this many distinct tenures a model curve is read off a half-day grid
+#: above this many distinct tenures a model curve is read off a grid
 EXACT_POINTS = 4096
 
 
@@ -222,9 +222,10 @@ def _evaluate(fit: Any, profile: Mapping[str, Any] | None, days: np.ndarray,
     """S(days) from ``fit.predict_retention(profile, times)``.
 
     Up to :data:`EXACT_POINTS` distinct tenures are predicted exactly; more
-    are read off a half-day grid (linear in log S for a smooth parametric
-    curve, the step value for a step curve such as Cox-Breslow, whose jumps
-    fall on whole or half days), which keeps the cost of value intervals
+    are read off a grid: for a smooth parametric curve, log H linear in log t
+    on a geometric grid (exact for Weibull and exponential); for a step
+    curve such as Cox-Breslow, whose jumps fall on whole or half days, the
+    step value on a half-day grid. This keeps the cost of value intervals
     independent of the size of the base.
     """
     days = np.asarray(days, dtype=np.float64)
@@ -234,12 +235,18 @@ def _evaluate(fit: Any, profile: Mapping[str, Any] | None, days: np.ndarray,
         s = _as_array(fit.predict_retention(profile, uniq)).ravel()
         return s[inv].reshape(days.shape)
     top = float(uniq[-1])
-    grid = np.arange(0.0, top + 1.0, 0.5)
-    sg = _as_array(fit.predict_retention(profile, grid)).ravel()
     if smooth:
+        # log H is linear in log t for Weibull and exponential curves: interpolate there
+        pos = uniq[uniq > 0]
+        grid = np.geomspace(float(pos[0]), top, EXACT_POINTS)
+        hg = -np.log(_as_array(fit.predict_retention(profile, grid)).ravel())
         with np.errstate(divide="ignore"):
-            out = np.exp(np.interp(flat, grid, np.log(sg)))
+            lh = np.interp(np.log(np.maximum(flat, pos[0])), np.log(grid),
+                           np.log(np.maximum(hg, 1e-300)))
+        out = np.where(flat > 0, np.exp(-np.exp(lh)), 1.0)
     else:
+        grid = np.arange(0.0, top + 1.0, 0.5)
+        sg = _as_array(fit.predict_retention(profile, grid)).ravel()
         out = sg[np.clip(np.searchsorted(grid, flat, side="right") - 1, 0, None)]
     return out.reshape(days.shape)
 
