@@ -221,3 +221,18 @@ def test_segment_by_value_at_spell_start():
     anon = StartStop([0, 5, 0], [5, 9, 7], [0, 1, 1],
                      covariates={"plan": np.array(["A", "B", "B"], dtype=object)})
     assert curves_by(anon, "plan").basis == "row value"
+
+
+def test_cohort_before_the_window_is_conditional_and_early_cells_empty():
+    """Spells that began before the window enter at tenure 100: months 1-3 (30.4, 60.9,
+    91.3 days) were never observed for that cohort and stay empty; month 4 is KM
+    conditional on being active at day 100 (here 3 of 4 at risk survive: 3/4)."""
+    tab = StartStop([100, 100, 100, 100], [110, 200, 200, 200], [1, 0, 0, 0],
+                    customer_id=list("abcd"),
+                    covariates={"cohort": np.array(["2023-06"] * 4, dtype=object)})
+    t = cohort_retention(tab, months=6)
+    assert np.isnan(t.retention[0, :3]).all()
+    assert t.retention[0, 3] == pytest.approx(3 / 4)
+    assert t.entered_at[0] == 100
+    assert t.warnings == ("cohort 2023-06 entered observation at tenure 100 days: its cells "
+                          "are retention conditional on being active then",)

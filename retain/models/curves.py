@@ -24,6 +24,7 @@ Entry points validate and return frozen results; the arithmetic lives in
 
 from __future__ import annotations
 
+import copy
 import math
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
@@ -75,6 +76,13 @@ def _exits(table: StartStop) -> np.ndarray | None:
     if not table.has_customers:
         return None
     return ~continued_rows(table.customer.codes, table.spell, table.start, table.stop)
+
+
+def _without_covariates(table: StartStop) -> StartStop:
+    """A view of the table without covariates, so per-group slices copy only the core."""
+    lean = copy.copy(table)
+    lean.covariates = {}
+    return lean
 
 
 def _count_customers(table: StartStop) -> int:
@@ -491,11 +499,12 @@ def curves_by(table: StartStop, by: str, *, conf: float = 0.95,
     exits = _exits(table)
     curves: dict[str, RetentionCurve] = {}
     warnings: list[str] = []
+    lean = _without_covariates(table)
     for code, level in enumerate(levels):
         mask = codes == code
         if not mask.any():
             continue
-        sub = table.take(mask)
+        sub = lean.take(mask)
         c = _km(sub, z, float(conf), ci, f"{by} = {level}",
                 None if exits is None else exits[mask])
         curves[level] = c
@@ -520,6 +529,12 @@ class CohortTable(Result):
     cohort's oldest spell has not reached that tenure by the last day in the
     data, or nobody of the cohort was under observation then) is NaN, never 0.
 
+    Delayed entry: a cohort whose spells all began before the observation
+    window enters at tenure ``entered_at`` (days, > 0). Its cells before that
+    tenure are NaN and its later cells are retention *conditional on being
+    active at* ``entered_at`` (Kaplan–Meier under left truncation estimates
+    S(t) / S(entered_at)); ``warnings`` names such cohorts.
+
     ``churn_rate[c, k-1]`` is churns in month k (tenure in
     ((k-1)·DAYS_PER_MONTH, k·DAYS_PER_MONTH]) divided by the exposure in that
     month in customer-months (``exposure`` holds the exposure), with an exact
@@ -530,6 +545,7 @@ class CohortTable(Result):
     cohorts: tuple[str, ...]
     months: tuple[int, ...]
     started: np.ndarray
+    entered_at: np.ndarray
     retention: np.ndarray
     lower: np.ndarray
     upper: np.ndarray
@@ -552,6 +568,7 @@ class CohortTable(Result):
             "month": np.tile(np.array(self.months), nc),
             "days": np.tile(np.array(self.months) * DAYS_PER_MONTH, nc),
             "started": np.repeat(self.started, nm),
+            "entered_at": np.repeat(self.entered_at, nm),
             "retention": self.retention.ravel(), "lower": self.lower.ravel(),
             "upper": self.upper.ravel(), "at_risk": self.at_risk.ravel(),
             "churns": self.churns.ravel(), "exposure_months": self.exposure.ravel(),
@@ -648,14 +665,16 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
     out = {k: np.full(shape, np.nan) for k in
            ("retention", "lower", "upper", "at_risk", "churns", "exposure", "rate")}
     started = np.zeros(len(levels))
+    entered = np.zeros(len(levels))
     keep_rows: list[int] = []
+    lean = _without_covariates(table)
     warnings: list[str] = []
     for code in range(len(levels)):
         mask = codes == code
         if not mask.any():
             continue
         keep_rows.append(code)
-        sub = table.take(mask)
+        sub = lean.take(mask)
         ex = None if exits is None else exits[mask]
         started[code] = float(sub.weight[ex].sum()) if ex is not None else float(sub.weight.sum())
         if start_day is not None:
@@ -667,7 +686,14 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
         lo = _step_lookup(c.times, c.lower, grid, 1.0)
         hi = _step_lookup(c.times, c.upper, grid, 1.0)
         n_at = at_risk_at(sub.start, sub.stop, sub.weight, grid)
-        seen = (grid <= reach + 1e-9) & ((n_at > 0) | (s <= 0) | (grid <= c.follow_up))
+        entered[code] = c.first_entry
+        if c.first_entry > 0:
+            warnings.append(f"cohort {levels[code]} entered observation at tenure "
+                            f"{c.first_entry:g} days: its cells are retention conditional on "
+                            "being active then")
+        # observable: reachable by the last day, after entry, someone at risk (or all gone)
+        seen = ((grid <= reach + 1e-9) & (grid > c.first_entry)
+                & ((n_at > 0) | (s <= 0)))
         out["retention"][code] = np.where(seen, s, np.nan)
         out["lower"][code] = np.where(seen, lo, np.nan)
         out["upper"][code] = np.where(seen, hi, np.nan)
@@ -696,9 +722,9 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
         warnings.append(f"{int(missing.sum())} rows have no cohort and are left out")
     return CohortTable(
         cohorts=tuple(levels[i] for i in rows), months=tuple(range(1, months + 1)),
-        started=started[rows], retention=out["retention"][rows], lower=out["lower"][rows],
-        upper=out["upper"][rows], at_risk=out["at_risk"][rows], churns=out["churns"][rows],
-        exposure=out["exposure"][rows], churn_rate=out["rate"][rows],
+        started=started[rows], entered_at=entered[rows], retention=out["retention"][rows],
+        lower=out["lower"][rows], upper=out["upper"][rows], at_risk=out["at_risk"][rows],
+        churns=out["churns"][rows], exposure=out["exposure"][rows], churn_rate=out["rate"][rows],
         churn_rate_lower=rate_lo[rows], churn_rate_upper=rate_hi[rows], conf=float(conf), ci=ci,
         as_of_basis=basis, warnings=tuple(warnings),
     )
