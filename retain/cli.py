@@ -130,6 +130,40 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     prepared = _prepare(args, demo_config_path())
     print_reconciliation(prepared)
     _write(prepared, args.out)
+    index = _build_site(args, prepared, Path(args.out) / "site")
+    print(index)
+    return 0
+
+
+def _build_site(args: argparse.Namespace, prepared, out: Path) -> Path:  # noqa: ANN001
+    """Run every model on the prepared table and write the site; return index.html's path."""
+    from retain.run import build_from_config
+
+    quiet = getattr(args, "quiet", False)
+
+    def show(step: str) -> None:
+        if not quiet:
+            print(f"  {step}", file=sys.stderr, flush=True)
+
+    index, run = build_from_config(prepared.config, out, prepared=prepared, progress=show)
+    for name, outcome in run.outcomes.items():
+        if not outcome.ok:
+            print(f"retain: warning: {name} failed and its page says why: {outcome.error}",
+                  file=sys.stderr)
+    return index
+
+
+def _args_build(parser: argparse.ArgumentParser) -> None:
+    _args_config(parser)
+    parser.add_argument("--out", type=Path, default=None,
+                        help="folder for the site (default: [output] dir in retain.toml, "
+                             "then site/)")
+
+
+def _cmd_build(args: argparse.Namespace) -> int:
+    prepared = _prepare(args, args.config)
+    out = args.out or Path(prepared.config.output.dir) / "site"
+    print(_build_site(args, prepared, out))
     return 0
 
 
@@ -137,7 +171,10 @@ register("check", "validate retain.toml and the event log; print the reconciliat
          _args_config, _cmd_check)
 register("prepare", "write the start-stop table, quarantine and reconciliation",
          _args_prepare, _cmd_prepare)
-register("demo", "run on the invented demo business (Quillfern)", _args_demo, _cmd_demo)
+register("build", "run every model and write the static site; print the path of index.html",
+         _args_build, _cmd_build)
+register("demo", "run on the invented demo business (Quillfern) and build its site",
+         _args_demo, _cmd_demo)
 
 
 # ---------------------------------------------------------------------- main

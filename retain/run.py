@@ -162,7 +162,8 @@ def book_summary(table: StartStop, window_days: float = DAYS_PER_YEAR) -> BookSu
         overlap = np.clip(np.minimum(b, end) - np.maximum(a, lo), 0.0, None)
         w_exp = float(np.dot(w, overlap)) / DAYS_PER_MONTH
         w_ch = float(w[(table.churned == 1) & (b > lo)].sum())
-        basis = f"last {window_days:g} days of calendar time"
+        basis = ("last 12 months" if window_days == DAYS_PER_YEAR
+                 else f"last {window_days:g} days")
     else:
         w_exp, w_ch = exposure, table.n_events
         window_days = math.nan

@@ -125,7 +125,7 @@ def survival_chart(frame: pd.DataFrame, name: str, *, x: str = "month", y: str =
     if series:
         levels = list(dict.fromkeys(frame[series].astype(str)))
         line_color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title)
-        band_color = alt.Color(f"{series}:N", scale=_series_scale(levels), legend=None)
+        band_color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title)
     tip = [alt.Tooltip(f"{x}:Q", format=".1f")]
     if series:
         tip.insert(0, alt.Tooltip(f"{series}:N"))
@@ -152,7 +152,8 @@ def lines_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str,
     """
     data = _Datasets(name)
     levels = list(dict.fromkeys(frame[series].astype(str)))
-    color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title)
+    color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title,
+                      legend=alt.Legend(columns=2))
     scale_y = alt.Scale(domain=y_domain) if y_domain else alt.Scale(zero=False)
     enc_x = alt.X(f"{x}:Q", title=x_title)
     enc_y = alt.Y(f"{y}:Q", title=y_title, axis=alt.Axis(format=y_format), scale=scale_y)

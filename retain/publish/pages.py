@@ -303,7 +303,7 @@ def quality_page(run: Any) -> Page:
                                 "reconciliation to show."))
     quarantine = getattr(prepared, "quarantine", None) if prepared is not None else None
     if quarantine is not None:
-        sections.append(_quarantine_section(quarantine))
+        sections.append(_quarantine_section(quarantine, getattr(prepared, "unknown_events", None)))
     cause_counts = t.cause.counts(t.weight * t.churned)
     facts = (Fact("Start-stop rows", num(t.n_rows), "", "table-rows", float(t.n_rows)),
              Fact("Customers", num(t.n_customers), "", "table-customers", float(t.n_customers)),
@@ -340,13 +340,27 @@ def _reconciliation_section(rec: Any) -> Section:
                                    table=frame, show_rows=len(frame)),))
 
 
-def _quarantine_section(quarantine: Any) -> Section:
+QUARANTINE_SAMPLE = 5
+
+
+def _quarantine_section(quarantine: Any, unknown: Any = None) -> Section:
     frame = _as_frame(quarantine)
-    return Section("Quarantined rows (sample)", figures=(Figure(
+    reason = next((c for c in frame.columns if "reason" in str(c) and "quarantine" in str(c)),
+                  None)
+    if reason is not None:
+        frame = frame[[reason] + [c for c in frame.columns if c != reason]]
+        frame = frame.sort_values([reason] + [c for c in frame.columns[1:2]], kind="stable")
+        sample = frame.groupby(reason, sort=True).head(QUARANTINE_SAMPLE)
+    else:
+        sample = frame
+    bullets = tuple(f"unknown event value {k!r}: {num(float(v))} rows — map it in [events] map "
+                    "or list it in [events] ignore" for k, v in sorted(dict(unknown or {}).items()))
+    return Section("Quarantined rows (sample)", bullets=bullets, figures=(Figure(
         key="quality-quarantine", title="Rows set aside",
-        guide="Rows that could not be used, with their original values and the reason. "
-              "Fix the source or the mapping in retain.toml and run again.",
-        table=frame, show_rows=30),))
+        guide=f"Up to {QUARANTINE_SAMPLE} rows per reason, with their original values; the CSV "
+              "holds every quarantined row. Fix the source or the mapping in retain.toml and "
+              "run again.",
+        table=sample.reset_index(drop=True), csv=frame, show_rows=len(sample)),))
 
 
 # --------------------------------------------------------------------------- hazards
@@ -591,7 +605,7 @@ def decrements_page(run: Any) -> Page:
         g = g[g["segment"] == seg["segment"].iloc[0]]
         shown = shown.assign(q_graduated=g["q_graduated"].to_numpy()[:len(shown)])
     overall = dt.n_events / dt.total_exposure if dt.total_exposure > 0 else math.nan
-    facts = (Fact("Exposure", f"{num(dt.total_exposure)} customer-months", "central exposure",
+    facts = (Fact("Exposure", num(dt.total_exposure), "customer-months (central exposure)",
                   "exposure", dt.total_exposure),
              Fact("Churns", num(dt.n_events), "all causes", "decrement-churns", dt.n_events),
              Fact("Central rate", f"{overall:.4f}", "churns per customer-month", "central-rate",
@@ -607,11 +621,21 @@ def decrements_page(run: Any) -> Page:
                                  lower="lower", upper="upper",
                                  points="crude q", y_format=".1%"),
         table=shown, csv=frame, show_rows=60)
+    figs = [fig]
+    if grad.ok:
+        gr = grad.value
+        figs.append(Figure(
+            key="decrements-graduation", title="Graduation and its adherence tests",
+            guide="Whittaker–Henderson graduation with the smoothing chosen by generalised "
+                  "cross-validation. The chi-square, signs and grouping-of-signs tests ask "
+                  "whether the crude rates stray from the graduated ones more than chance "
+                  "allows; p-values under 0.05 call for a second look.",
+            table=gr.tests, note=gr.summary()))
     return Page("decrements", "Decrement table", "Churn read as decrements: exposure in "
                 "customer-months, churns by cause, central rates m and monthly probabilities "
                 "q by month of tenure, with survivors per 10,000.",
                 (Section(title, intro=dt.summary(), facts=facts,
-                         bullets=tuple(notes) + tuple(dt.warnings), figures=(fig,)),),
+                         bullets=tuple(notes) + tuple(dt.warnings), figures=tuple(figs)),),
                 cautions=ACTUARIAL_CAUTIONS, assumptions=tuple(dt.assumptions),
                 nav_label="Decrement table", group="actuarial")
 
@@ -724,6 +748,7 @@ def causes_page(run: Any) -> Page:
                 "are kept apart as competing risks.",
                 (Section(title, intro=ci.summary(), facts=tuple(facts), bullets=ci.warnings,
                          figures=(fig,)),),
+                cautions=ACTUARIAL_CAUTIONS[:1],
                 assumptions=(f"method: {ci.method}", f"intervals: {ci.interval}"),
                 nav_label="Churn by cause", group="actuarial")
 
@@ -799,7 +824,11 @@ def value_page(run: Any) -> Page:
             key="value-finance", title="Finance CSV",
             guide="The same figures as above in one file: 'new customer' rows give the value "
                   "of one new customer, 'active base' rows the residual value of the segment's "
-                  "active customers.", table=fin, show_rows=20),)))
+                  "active customers. The CSV also carries the interval method, margin basis, "
+                  "timing and the caution on every row.",
+            table=fin[["figure", "segment", "customers", "value_per_customer", "lower", "upper",
+                       "total", "curve", "annual_discount_rate", "horizon_months", "as_of"]],
+            csv=fin, show_rows=20),)))
     from_caution = getattr(seg.value, "caution", "") if seg.ok else ""
     cautions = MONEY_CAUTIONS + ((from_caution,) if from_caution else ())
     return Page("value", "Value", "What a customer is worth in discounted margin, for new "

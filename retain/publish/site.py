@@ -108,11 +108,18 @@ def format_cell(value: Any) -> str:
     return str(value)
 
 
-def table_rows(frame: pd.DataFrame, limit: int | None = None) -> tuple[list[str], list[list[str]]]:
-    """Header and formatted rows of a frame (at most ``limit`` rows)."""
+def _is_number(value: Any) -> bool:
+    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(
+        value, (bool, np.bool_))
+
+
+def table_rows(frame: pd.DataFrame, limit: int | None = None
+               ) -> tuple[list[str], list[list[tuple[str, bool]]]]:
+    """Header and rows of a frame (at most ``limit``): each cell is (text, is a number)."""
     head = [str(c) for c in frame.columns]
     body = frame if limit is None else frame.head(limit)
-    rows = [[format_cell(v) for v in rec] for rec in body.itertuples(index=False, name=None)]
+    rows = [[(format_cell(v), _is_number(v)) for v in rec]
+            for rec in body.itertuples(index=False, name=None)]
     return head, rows
 
 
