@@ -59,11 +59,19 @@ class SurvivalRows:
     d, w : (n,) float arrays
         Event indicator (0/1) and case weight.
     log_t1, log_t2 : (n,) float arrays
-        log t1 (0 where t1 == 0, masked by ``entered``) and log t2.
-    entered : (n,) float array
-        1.0 where t1 > 0 (delayed entry or a later row of a spell), else 0.
+        log t1 (0 where t1 == 0) and log t2.
+    entered : (n,) int array
+        Indices of rows with t1 > 0 (delayed entry or a later row of a spell).
     wd : (n,) float array
         w * d.
+    unit_weight : bool
+        Every weight is 1 (the multiplications by w are skipped).
+    sum_wd, wd_log_t2 : float
+        sum(w d) and sum(w d log t2): constants of the likelihood.
+    wd_X : (p,) float array
+        X'(w d), the constant part of the covariate score.
+    w_exposure : (n,) float array
+        w (t2 - t1), the exponential model's exposure.
     """
 
     X: np.ndarray
@@ -75,43 +83,70 @@ class SurvivalRows:
     log_t2: np.ndarray
     entered: np.ndarray
     wd: np.ndarray
+    unit_weight: bool
+    sum_wd: float
+    wd_log_t2: float
+    wd_X: np.ndarray
+    w_exposure: np.ndarray
 
     @classmethod
     def build(cls, X: np.ndarray, t1: np.ndarray, t2: np.ndarray, d: np.ndarray,
               w: np.ndarray) -> SurvivalRows:
         t1 = np.asarray(t1, dtype=np.float64)
         t2 = np.asarray(t2, dtype=np.float64)
-        entered = (t1 > 0).astype(np.float64)
-        log_t1 = np.log(np.where(t1 > 0, t1, 1.0))
+        pos = t1 > 0
+        log_t1 = np.log(np.where(pos, t1, 1.0))
         d = np.asarray(d, dtype=np.float64)
         w = np.asarray(w, dtype=np.float64)
-        X = np.asarray(X, dtype=np.float64).reshape(t1.shape[0], -1)
-        return cls(X, t1, t2, d, w, log_t1, np.log(t2), entered, w * d)
+        X = np.ascontiguousarray(np.asarray(X, dtype=np.float64).reshape(t1.shape[0], -1))
+        wd = w * d
+        log_t2 = np.log(t2)
+        wd_X = wd @ X if X.shape[1] else np.zeros(0)
+        return cls(X, t1, t2, d, w, log_t1, log_t2, np.flatnonzero(pos), wd,
+                   bool(np.all(w == 1.0)), float(wd.sum()), float(wd @ log_t2), wd_X,
+                   w * (t2 - t1))
+
+    @property
+    def all_entered(self) -> bool:
+        return self.entered.shape[0] == self.t1.shape[0]
+
+
+_CHUNK = 65_536
 
 
 def _eta(theta_b0: float, beta: np.ndarray, X: np.ndarray) -> np.ndarray:
     if X.shape[1] == 0:
         return np.full(X.shape[0], theta_b0)
-    return X @ beta + theta_b0
+    eta = X @ beta
+    eta += theta_b0
+    return eta
+
+
+def _weighted_gram(X: np.ndarray, curv: np.ndarray) -> np.ndarray:
+    """X' diag(curv) X for curv >= 0, as (X sqrt(curv))'(X sqrt(curv)) in row chunks.
+
+    The product of a matrix with its own transpose goes to BLAS syrk (half the
+    work of a general product) and each chunk's temporary stays in cache.
+    """
+    p = X.shape[1]
+    out = np.zeros((p, p))
+    root = np.sqrt(curv)
+    for lo in range(0, X.shape[0], _CHUNK):
+        xs = X[lo:lo + _CHUNK] * root[lo:lo + _CHUNK, None]
+        out += xs.T @ xs
+    return out
 
 
 def _linear_blocks(X: np.ndarray, first: np.ndarray, second: np.ndarray | None,
                    curv: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """X' first, X' second and X' diag(curv) X without an (n, p) temporary per call."""
+    """X' first, X' second and X' diag(curv) X (curv >= 0)."""
     p = X.shape[1]
     if p == 0:
         z = np.zeros(0)
         return z, z, np.zeros((0, 0))
     gx = first @ X
     sx = second @ X if second is not None else np.zeros(p)
-    # X' diag(curv) X in chunks keeps the temporary small on big tables
-    hxx = np.zeros((p, p))
-    n = X.shape[0]
-    step = 262_144
-    for lo in range(0, n, step):
-        xs = X[lo:lo + step]
-        hxx += xs.T @ (xs * curv[lo:lo + step, None])
-    return gx, sx, hxx
+    return gx, sx, _weighted_gram(X, curv)
 
 
 def exponential_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bool = True
@@ -125,7 +160,8 @@ def exponential_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bo
 
     so  dl/deta_i = w_i d_i - m_i  and  d2l/deta_i^2 = -m_i  with
     m_i = w_i exp(eta_i) (t2_i - t1_i). This is the Poisson log-likelihood
-    with log-exposure offset up to a constant (Holford 1980).
+    with log-exposure offset up to a constant (Holford 1980). The sums
+    sum(w d eta) = b0 sum(w d) + (X' w d)'b use constants precomputed once.
 
     Returns
     -------
@@ -133,26 +169,28 @@ def exponential_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bo
     ``derivatives`` is False.
     """
     X = rows.X
+    p = X.shape[1]
     b0 = float(theta[0])
     beta = np.asarray(theta[1:], dtype=np.float64)
-    eta = _eta(b0, beta, X)
-    m = rows.w * np.exp(eta) * (rows.t2 - rows.t1)
-    ll = float(rows.wd @ eta - m.sum())
+    m = _eta(b0, beta, X)
+    np.exp(m, out=m)
+    m *= rows.w_exposure
+    sum_m = float(m.sum())
+    lin_d = b0 * rows.sum_wd + (float(rows.wd_X @ beta) if p else 0.0)
+    ll = lin_d - sum_m
     if not derivatives:
         return ll, None, None
-    r = rows.wd - m
-    gx, _, hxx = _linear_blocks(X, r, None, m)
-    k = 1 + X.shape[1]
+    k = 1 + p
     grad = np.empty(k)
-    grad[0] = r.sum()
-    grad[1:] = gx
+    grad[0] = rows.sum_wd - sum_m
     hess = np.empty((k, k))
-    hess[0, 0] = -m.sum()
-    if k > 1:
+    hess[0, 0] = -sum_m
+    if p:
         mx = m @ X
+        grad[1:] = rows.wd_X - mx
         hess[0, 1:] = -mx
         hess[1:, 0] = -mx
-        hess[1:, 1:] = -hxx
+        hess[1:, 1:] = -_weighted_gram(X, m)
     return ll, grad, hess
 
 
@@ -176,47 +214,66 @@ def weibull_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bool =
         d2l/deta2 = -m A,             d2l/deta dg = -m B,
         d2l/dg2 = w d alpha L2 - m (B + C),        m = w exp(eta).
 
+    The event part, sum w d (eta + g + (alpha - 1) L2), is a combination of
+    constants computed once (sum w d, sum w d L2, X' w d); only the
+    cumulative-hazard part needs a pass over the rows.
+
     Returns
     -------
     (loglik, gradient (p+2,), hessian (p+2, p+2)) in the order (b0, g, b);
     gradient and Hessian are None when ``derivatives`` is False.
     """
     X = rows.X
+    p = X.shape[1]
     b0 = float(theta[0])
     g = float(theta[1])
     alpha = float(np.exp(g))
     beta = np.asarray(theta[2:], dtype=np.float64)
-    eta = _eta(b0, beta, X)
+    m = _eta(b0, beta, X)
+    np.exp(m, out=m)
+    if not rows.unit_weight:
+        m *= rows.w
     e2 = np.exp(alpha * rows.log_t2)
-    e1 = np.exp(alpha * rows.log_t1) * rows.entered
+    if rows.all_entered:
+        e1 = np.exp(alpha * rows.log_t1)
+    else:
+        e1 = np.zeros_like(e2)
+        idx = rows.entered
+        e1[idx] = np.exp(alpha * rows.log_t1[idx])
     A = e2 - e1
-    m = rows.w * np.exp(eta)
     mA = m * A
-    ll = float(rows.wd @ (eta + g + (alpha - 1.0) * rows.log_t2) - mA.sum())
+    sum_mA = float(mA.sum())
+    lin_d = b0 * rows.sum_wd + (float(rows.wd_X @ beta) if p else 0.0)
+    ll = lin_d + g * rows.sum_wd + (alpha - 1.0) * rows.wd_log_t2 - sum_mA
     if not derivatives:
         return ll, None, None
-    e2L = e2 * rows.log_t2
-    e1L = e1 * rows.log_t1
-    B = alpha * (e2L - e1L)
-    C = alpha * alpha * (e2L * rows.log_t2 - e1L * rows.log_t1)
+    e2 *= rows.log_t2            # e2 L2
+    e1 *= rows.log_t1            # e1 L1
+    B = e2 - e1
+    B *= alpha
     mB = m * B
-    r = rows.wd - mA
-    gx, sx, hxx = _linear_blocks(X, r, mB, mA)
-    p = X.shape[1]
+    sum_mB = float(mB.sum())
+    e2 *= rows.log_t2            # e2 L2^2
+    e1 *= rows.log_t1            # e1 L1^2
+    e2 -= e1
+    sum_mC = alpha * alpha * float(m @ e2)
     k = 2 + p
     grad = np.empty(k)
-    grad[0] = r.sum()
-    grad[1] = rows.wd.sum() + alpha * float(rows.wd @ rows.log_t2) - mB.sum()
-    grad[2:] = gx
+    grad[0] = rows.sum_wd - sum_mA
+    grad[1] = rows.sum_wd + alpha * rows.wd_log_t2 - sum_mB
     hess = np.empty((k, k))
-    hess[0, 0] = -mA.sum()
-    hess[0, 1] = hess[1, 0] = -mB.sum()
-    hess[1, 1] = alpha * float(rows.wd @ rows.log_t2) - float(m @ (B + C))
+    hess[0, 0] = -sum_mA
+    hess[0, 1] = hess[1, 0] = -sum_mB
+    hess[1, 1] = alpha * rows.wd_log_t2 - sum_mB - sum_mC
     if p:
-        mAx = mA @ X
-        hess[0, 2:] = hess[2:, 0] = -mAx
-        hess[1, 2:] = hess[2:, 1] = -sx
-        hess[2:, 2:] = -hxx
+        both = np.empty((X.shape[0], 2))
+        both[:, 0] = mA
+        both[:, 1] = mB
+        xs = X.T @ both              # one pass over X for both scores
+        grad[2:] = rows.wd_X - xs[:, 0]
+        hess[0, 2:] = hess[2:, 0] = -xs[:, 0]
+        hess[1, 2:] = hess[2:, 1] = -xs[:, 1]
+        hess[2:, 2:] = -_weighted_gram(X, mA)
     return ll, grad, hess
 
 
@@ -324,6 +381,10 @@ def piecewise_loglik(theta: np.ndarray, rows: PiecewiseRows, *, derivatives: boo
 
 
 # --------------------------------------------------------------------- Newton
+def _accept(ll_new: float, ll_old: float) -> bool:
+    return bool(np.isfinite(ll_new) and ll_new >= ll_old - 1e-12 * (1.0 + abs(ll_old)))
+
+
 Objective = Callable[..., tuple[float, "np.ndarray | None", "np.ndarray | None"]]
 
 
@@ -382,19 +443,28 @@ def newton_maximize(fun: Objective, theta0: np.ndarray, *, max_iter: int = 100,
         if decrement < tol and ridge == 0.0:
             converged = True
             break
+        # the full step is evaluated with derivatives (usually accepted: one pass);
+        # shorter steps are tried on the value alone
         t = 1.0
+        cand = theta + step
+        ll_c, grad_c, hess_c = fun(cand)
+        ok = _accept(ll_c, ll)
         for _ in range(max_halvings):
-            cand = theta + t * step
-            ll_c, _, _ = fun(cand, derivatives=False)
-            if np.isfinite(ll_c) and ll_c >= ll - 1e-12 * (1.0 + abs(ll)):
+            if ok:
                 break
             t *= 0.5
-        else:
+            cand = theta + t * step
+            ll_c, _, _ = fun(cand, derivatives=False)
+            ok = _accept(ll_c, ll)
+        if not ok:
             history[-1]["note"] = "step halving failed"
             break
         history[-1]["step_length"] = t
         theta = cand
-        ll, grad, hess = fun(theta)
+        if t == 1.0:
+            ll, grad, hess = ll_c, grad_c, hess_c
+        else:
+            ll, grad, hess = fun(theta)
     return theta, ll, grad, hess, history, converged
 
 

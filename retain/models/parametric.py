@@ -39,6 +39,7 @@ Conventions
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import math
 from collections.abc import Mapping, Sequence
@@ -636,8 +637,24 @@ def _prepare(table: StartStop, covariates: Sequence[str], reference: Mapping[str
     return _Prepared(design, Xc, scale, where)
 
 
+def _one_blas_thread() -> Any:
+    """Limit BLAS to one thread while a fit runs.
+
+    The products here are tall and thin (n x p with p ~ 10) and memory-bound;
+    on a shared machine, multi-threaded BLAS spins waiting for busy cores and
+    was measured 5-7x slower than one thread (bench/results/parametric.md).
+    """
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
+
+
 def _newton(fun: Any, theta0: np.ndarray, where: str, max_iter: int) -> tuple:
-    theta, ll, grad, hess, history, converged = K.newton_maximize(fun, theta0, max_iter=max_iter)
+    with _one_blas_thread():
+        theta, ll, grad, hess, history, converged = K.newton_maximize(fun, theta0,
+                                                                      max_iter=max_iter)
     if not converged:
         raise ConvergenceError(where, f"Newton's method did not converge in {len(history)} "
                                "iterations", "check for covariate levels with no churns or very "
@@ -645,19 +662,29 @@ def _newton(fun: Any, theta0: np.ndarray, where: str, max_iter: int) -> tuple:
     return theta, ll, hess, history
 
 
+def _n_customers(table: StartStop) -> int:
+    codes = table.customer.codes
+    if codes.size and codes.min() >= 0:
+        return int(np.count_nonzero(np.bincount(codes)))
+    return table.n_customers
+
+
 def _facts(table: StartStop) -> dict[str, Any]:
-    return dict(n_rows=table.n_rows, n_customers=table.n_customers, n_events=table.n_events,
+    return dict(n_rows=table.n_rows, n_customers=_n_customers(table), n_events=table.n_events,
                 exposure_days=float(table.weight @ (table.stop - table.start)),
                 follow_up=float(table.stop.max()))
 
 
-def _fit_exponential_core(table: StartStop, prep: _Prepared, max_iter: int
+def _survival_rows(table: StartStop, prep: _Prepared) -> K.SurvivalRows:
+    s = prep.scale
+    return K.SurvivalRows.build(prep.Xc, table.start / s, table.stop / s, table.churned,
+                                table.weight)
+
+
+def _fit_exponential_core(rows: K.SurvivalRows, prep: _Prepared, max_iter: int
                           ) -> tuple[np.ndarray, float, np.ndarray, list]:
     """Fit on the internal scale; returns (theta_internal, ll, hess, history)."""
-    s = prep.scale
-    rows = K.SurvivalRows.build(prep.Xc, table.start / s, table.stop / s, table.churned,
-                                table.weight)
-    rate = table.n_events / float(table.weight @ (rows.t2 - rows.t1))
+    rate = rows.sum_wd / float(rows.w_exposure.sum())
     theta0 = np.zeros(1 + prep.Xc.shape[1])
     theta0[0] = math.log(rate)
 
@@ -694,7 +721,8 @@ def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
     where = "exponential model"
     _z(conf, where)
     prep = _prepare(table, covariates, reference, where)
-    theta_i, ll_i, hess_i, history = _fit_exponential_core(table, prep, max_iter)
+    theta_i, ll_i, hess_i, history = _fit_exponential_core(_survival_rows(table, prep), prep,
+                                                           max_iter)
     return _finish("exponential", table, prep, theta_i, ll_i, hess_i, history, conf,
                    fixed_shape=None, exp_ll=None, cuts=())
 
@@ -733,9 +761,8 @@ def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
     prep = _prepare(table, covariates, reference, where)
     s = prep.scale
     # the exponential fit: starting values and the null model of the shape test
-    th_e, ll_e, _, _ = _fit_exponential_core(table, prep, max_iter)
-    rows = K.SurvivalRows.build(prep.Xc, table.start / s, table.stop / s, table.churned,
-                                table.weight)
+    rows = _survival_rows(table, prep)
+    th_e, ll_e, _, _ = _fit_exponential_core(rows, prep, max_iter)
     p = prep.Xc.shape[1]
     if shape is None:
         theta0 = np.concatenate(([th_e[0], 0.0], th_e[1:]))
@@ -760,7 +787,7 @@ def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
         hess_i = hess_f
     # log-likelihoods in days: each churn's log h picks up -log(s); the
     # exponential's too -- so the LR statistic is unchanged by the rescaling
-    exp_ll_days = ll_e - table.n_events * math.log(s)
+    exp_ll_days = ll_e - rows.sum_wd * math.log(s)
     return _finish("weibull", table, prep, theta_i, ll_i, hess_i, history, conf,
                    fixed_shape=shape, exp_ll=exp_ll_days, cuts=())
 
