@@ -39,7 +39,12 @@ at_first as (
         first_band as band,
         sum(weight * (least(stop_in, (first_band + 1) * $days_per_month) - start))
             as exposure_days,
-        sum(case when last_band > first_band then weight else 0 end) as full_from_next
+        sum(case when last_band > first_band then weight else 0 end) as full_from_next,
+        -- in force from the first band edge >= start: this band (start on an edge) or
+        -- the next one (start inside the band), if the row reaches it
+        sum(case when entry_band = first_band then weight else 0 end) as entering_here,
+        sum(case when entry_band > first_band and entry_band <= last_band
+                 then weight else 0 end) as entering_next
     from banded
     group by segment, first_band
 ),
@@ -62,23 +67,13 @@ at_last as (
     group by segment, last_band
 ),
 
-at_entry as (
-    select
-        segment,
-        entry_band as band,
-        sum(weight) as entering
-    from banded
-    where entry_band <= last_band
-    group by segment, entry_band
-),
-
 -- every change, keyed by the band it applies to
 deltas as (
-    select segment, band, exposure_days, 0.0 as full_delta, 0.0 as force_delta,
+    select segment, band, exposure_days, 0.0 as full_delta, entering_here as force_delta,
            0.0 as churns, 0.0 as churns_voluntary, 0.0 as churns_involuntary
     from at_first
     union all
-    select segment, band + 1, 0.0, full_from_next, 0.0, 0.0, 0.0, 0.0
+    select segment, band + 1, 0.0, full_from_next, entering_next, 0.0, 0.0, 0.0
     from at_first
     union all
     select segment, band, exposure_days, -full_until, 0.0,
@@ -87,9 +82,6 @@ deltas as (
     union all
     select segment, band + 1, 0.0, 0.0, -leaving_after, 0.0, 0.0, 0.0
     from at_last
-    union all
-    select segment, band, 0.0, 0.0, entering, 0.0, 0.0, 0.0
-    from at_entry
 ),
 
 summed as (

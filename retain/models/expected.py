@@ -332,45 +332,48 @@ def _duckdb_blocks(source: Any, basis: DecrementTable, dims: tuple[str, ...],
                    warnings: list[str]) -> tuple[list[pd.DataFrame], int]:
     """A and E against tenure-month rates from the exposure aggregation in DuckDB:
     with rates constant within each month, E = Σ_k exposure_k · m_k exactly
-    (months past the basis continue at its last rate)."""
+    (months past the basis continue at its last rate). One aggregation per
+    column dimension; the whole book and the tenure months are sums over the
+    first one's segments."""
     rates = basis.monthly_rates(ALL)
     own = con is None
     if own:
         con = duckdb.connect()
-    blocks: list[pd.DataFrame] = []
+    columns = [d for d in dims if d != TENURE_MONTH]
+    per_dim: dict[str | None, pd.DataFrame] = {}
     n_rows = 0
     try:
-        columns = [d for d in dims if d != TENURE_MONTH]
-        for dim in (None, *columns):
+        for i, dim in enumerate(columns or [None]):
             where = duckdb_input(con, source, dim)
-            facts = check_input(con, where)
-            n_rows = int(facts[0])
+            if i == 0:
+                n_rows = int(check_input(con, where)[0])
             raw = run_step(con, "exposure_tenure", {"days_per_month": DAYS_PER_MONTH,
                                                     "n_bands": 10**9}).df()
             band = raw["band"].to_numpy()
-            m = rates[np.minimum(band, rates.shape[0] - 1)]
-            raw["expected"] = raw["exposure_days"] / DAYS_PER_MONTH * m
-            if dim is None:
-                blocks.append(pd.DataFrame({"dimension": [ALL], "level": [ALL],
-                                            "actual": [raw["churns"].sum()],
-                                            "expected": [raw["expected"].sum()]}))
-                if TENURE_MONTH in dims:
-                    tenure = pd.DataFrame({"dimension": TENURE_MONTH,
-                                           "level": [f"month {k + 1}" for k in band],
-                                           "actual": raw["churns"].to_numpy(),
-                                           "expected": raw["expected"].to_numpy()})
-                continue
-            agg = raw.groupby("segment", sort=True)[["churns", "expected"]].sum()
-            blocks.append(pd.DataFrame({"dimension": dim, "level": agg.index.astype(str),
-                                        "actual": agg["churns"].to_numpy(),
-                                        "expected": agg["expected"].to_numpy()}))
+            raw["expected"] = (raw["exposure_days"] / DAYS_PER_MONTH
+                               * rates[np.minimum(band, rates.shape[0] - 1)])
+            per_dim[dim] = raw
     finally:
         if own:
             con.close()
-    if TENURE_MONTH in dims:
-        blocks.insert(1 + dims.index(TENURE_MONTH), tenure)
-    if band.shape[0] > rates.shape[0]:
-        warnings.append(f"the experience runs to tenure month {band.shape[0]}, the basis to "
+    first = per_dim[columns[0] if columns else None]
+    months = first.groupby("band", sort=True)[["churns", "expected"]].sum()
+    blocks = [pd.DataFrame({"dimension": [ALL], "level": [ALL],
+                            "actual": [first["churns"].sum()],
+                            "expected": [first["expected"].sum()]})]
+    for dim in dims:
+        if dim == TENURE_MONTH:
+            blocks.append(pd.DataFrame({"dimension": TENURE_MONTH,
+                                        "level": [f"month {k + 1}" for k in months.index],
+                                        "actual": months["churns"].to_numpy(),
+                                        "expected": months["expected"].to_numpy()}))
+            continue
+        agg = per_dim[dim].groupby("segment", sort=True)[["churns", "expected"]].sum()
+        blocks.append(pd.DataFrame({"dimension": dim, "level": agg.index.astype(str),
+                                    "actual": agg["churns"].to_numpy(),
+                                    "expected": agg["expected"].to_numpy()}))
+    if months.shape[0] > rates.shape[0]:
+        warnings.append(f"the experience runs to tenure month {months.shape[0]}, the basis to "
                         f"month {rates.shape[0]}; later months use the basis's last rate")
     return blocks, n_rows
 
