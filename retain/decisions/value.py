@@ -230,7 +230,10 @@ def _evaluate(fit: Any, profile: Mapping[str, Any] | None, days: np.ndarray,
     """
     days = np.asarray(days, dtype=np.float64)
     flat = days.ravel()
-    uniq, inv = np.unique(flat, return_inverse=True)
+    if flat.shape[0] > 1 and np.all(flat[1:] > flat[:-1]):  # already sorted and distinct
+        uniq, inv = flat, np.arange(flat.shape[0])
+    else:
+        uniq, inv = np.unique(flat, return_inverse=True)
     if uniq.shape[0] <= EXACT_POINTS:
         s = _as_array(fit.predict_retention(profile, uniq)).ravel()
         return s[inv].reshape(days.shape)
@@ -890,11 +893,16 @@ def _get(spec: Any, name: str, default: Any = None) -> Any:
     return getattr(spec, name, default)
 
 
-def _residual_per_tenure(fn: DrawFn, tenure: np.ndarray, grid: np.ndarray,
-                         factors: np.ndarray) -> np.ndarray:
-    """``sum_k S(t + k) / S(t) v^k`` for each tenure (per unit margin)."""
-    s_now = np.asarray(fn(tenure))[:, None]
-    return kd.discounted_value(kd.conditional_survival(s_now, np.asarray(fn(grid))), 1.0, factors)
+def _residual_per_tenure(fn: DrawFn, points: np.ndarray, inverse: np.ndarray,
+                         shape: tuple[int, int], factors: np.ndarray) -> np.ndarray:
+    """``sum_k S(t + k) / S(t) v^k`` for each tenure (per unit margin).
+
+    ``points`` are the distinct tenures needed (sorted), ``inverse`` maps the
+    (tenure, t + 1..H months) table of ``shape`` onto them: one curve
+    evaluation per draw.
+    """
+    s = np.asarray(fn(points), dtype=np.float64)[inverse].reshape(shape)
+    return kd.discounted_value(kd.conditional_survival(s[:, :1], s[:, 1:]), 1.0, factors)
 
 
 def residual_value(
@@ -963,7 +971,9 @@ def residual_value(
         t_seg, w_seg, m_seg = tenure[mask], weight[mask], margins[mask]
         uniq, inv = np.unique(t_seg, return_inverse=True)
         wm = np.bincount(inv, w_seg * m_seg, uniq.shape[0])  # margin mass at each tenure
-        grid = uniq[:, None] + months[None, :]
+        table_days = np.concatenate((uniq[:, None], uniq[:, None] + months[None, :]), axis=1)
+        points, inverse = np.unique(table_days.ravel(), return_inverse=True)
+        shape = table_days.shape
 
         closed = getattr(curve, "residual_months", None)
         a_closed = closed(uniq, d) if horizon_months is None and closed is not None else None
@@ -971,7 +981,7 @@ def residual_value(
             a = np.asarray(a_closed, dtype=np.float64)
             method = "closed form: DERL (Fader & Hardie 2010, eq. 6) / (1 + d)"
         else:
-            a = _residual_per_tenure(curve.survival, uniq, grid, factors)
+            a = _residual_per_tenure(curve.survival, points, inverse, shape, factors)
             method = "sum over months of S(t + k) / S(t) x margin x discount"
         if not np.all(np.isfinite(a)):
             raise ModelError(where, f"segment {seg!r}: the {curve.label} curve is not defined "
@@ -984,7 +994,8 @@ def residual_value(
         lo = hi = tlo = thi = math.nan
         if fns:
             any_draws = True
-            tot_d = np.array([wm @ _residual_per_tenure(f, uniq, grid, factors) for f in fns])
+            tot_d = np.array([wm @ _residual_per_tenure(f, points, inverse, shape, factors)
+                              for f in fns])
             tlo, thi = _interval(tot_d, level)
             lo, hi = tlo / n_cust, thi / n_cust
         else:
