@@ -25,6 +25,8 @@ from retain.errors import ModelError, RetainError
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
 
+BASE_VALUE_DRAWS = 200  # parameter draws for the base's interval (the residual sum is the cost)
+
 
 @dataclass(frozen=True)
 class Outcome:
@@ -272,8 +274,9 @@ def _model_steps(table: StartStop, options: RunOptions,
         ("cohorts", lambda: curves.cohort_retention(table, months=options.cohort_months)),
         ("fit:exponential", lambda: parametric.fit_exponential(table)),
         ("fit:weibull", lambda: parametric.fit_weibull(table)),
-        ("weibull", lambda: parametric.fit_weibull(table, cov, reference=ref)),
         ("compare", lambda: parametric.compare_models(table, cov, reference=ref)),
+        ("weibull", lambda: done["compare"].value.fits["weibull"] if done["compare"].ok
+         else parametric.fit_weibull(table, cov, reference=ref)),
         ("loglog", lambda: parametric.loglog_diagnostic(table, first_segment)),
         ("cox", cox_fit),
         ("cox:ph", from_cox(lambda f: f.proportional_hazards_test())),
@@ -311,8 +314,8 @@ def _decision_steps(table: StartStop, options: RunOptions,
             ("value:all", lambda: value.value_by_segment(table, spec, (), as_of=options.as_of)),
             ("value:segments", lambda: value.value_by_segment(table, spec, by,
                                                               as_of=options.as_of)),
-            ("value:base", lambda: value.base_value_by_segment(table, spec, by,
-                                                               as_of=options.as_of)),
+            ("value:base", lambda: value.base_value_by_segment(
+                table, spec, by, as_of=options.as_of, n_draws=BASE_VALUE_DRAWS)),
         ]
     price = str(spec.get("price") or "price")
     for name, exp in options.experiments.items():

@@ -75,7 +75,9 @@ class _Datasets:
 
 
 def _config() -> dict[str, Any]:
-    font = "Source Sans 3, Segoe UI, Helvetica Neue, Arial, sans-serif"
+    # every family name a plain token: Vega measures labels with a canvas font string,
+    # and a name like "Source Sans 3" there would make the string invalid (labels clipped)
+    font = "Arial, Helvetica, sans-serif"
     return {
         "font": font,
         "background": "#ffffff",
@@ -224,14 +226,13 @@ def interval_bars(frame: pd.DataFrame, name: str, *, label: str, estimate: str,
     tip = [alt.Tooltip(f"{label}:N"), alt.Tooltip(f"{estimate}:Q", format=x_format),
            alt.Tooltip(f"{lower}:Q", format=x_format), alt.Tooltip(f"{upper}:Q", format=x_format)]
     layers = []
+    axis = alt.Axis(format=x_format, tickCount=6)
     if log:
         layers.append(base.mark_point(filled=True, size=70, color=PALETTE[0]).encode(
-            x=alt.X(f"{estimate}:Q", scale=xs, title=x_title, axis=alt.Axis(format=x_format)),
-            y=y, tooltip=tip))
+            x=alt.X(f"{estimate}:Q", scale=xs, title=x_title, axis=axis), y=y, tooltip=tip))
     else:
         layers.append(base.mark_bar(color=PALETTE[4], height={"band": 0.6}).encode(
-            x=alt.X(f"{estimate}:Q", scale=xs, title=x_title, axis=alt.Axis(format=x_format)),
-            y=y, tooltip=tip))
+            x=alt.X(f"{estimate}:Q", scale=xs, title=x_title, axis=axis), y=y, tooltip=tip))
     layers.append(base.mark_rule(color=INK, strokeWidth=1.8).encode(
         x=alt.X(f"{lower}:Q", scale=xs), x2=f"{upper}:Q", y=y))
     if reference is not None:

@@ -47,6 +47,10 @@ STATIC_FILES = ("style.css", "site.js")
 def vega_bundle(vl_version: str | None = None) -> str:
     """The Vega + Vega-Lite + vega-embed JavaScript, bundled by vl-convert-python.
 
+    Bundling takes a few seconds, so the text is kept in a cache file named by
+    the vl-convert, Vega and Vega-Lite versions (``$RETAIN_CACHE``, default
+    ``~/.cache/retain``); the same versions always give the same bundle.
+
     Parameters
     ----------
     vl_version : str, optional
@@ -57,7 +61,25 @@ def vega_bundle(vl_version: str | None = None) -> str:
 
     if vl_version is None:
         vl_version = _altair_vl_version(vl_convert.get_vegalite_versions())
-    return vl_convert.javascript_bundle(vl_version=vl_version)
+    name = (f"vega-bundle-vlc{getattr(vl_convert, '__version__', 'x')}-vega"
+            f"{vl_convert.get_vega_version()}-vl{vl_version or 'latest'}-embed"
+            f"{vl_convert.get_vega_embed_version()}.js")
+    cache = Path(os.environ.get("RETAIN_CACHE") or Path.home() / ".cache" / "retain") / name
+    try:
+        text = cache.read_text(encoding="utf-8")
+        if text.rstrip().endswith(";") and "vegaEmbed" in text:
+            return text
+    except OSError:
+        pass
+    text = vl_convert.javascript_bundle(vl_version=vl_version)
+    try:
+        cache.parent.mkdir(parents=True, exist_ok=True)
+        part = cache.with_name(f"{cache.name}.{os.getpid()}.part")
+        part.write_text(text, encoding="utf-8")
+        os.replace(part, cache)
+    except OSError:
+        pass  # no writable cache: bundle again next time
+    return text
 
 
 def _altair_vl_version(available: list[str]) -> str | None:
