@@ -34,6 +34,7 @@ import pandas as pd
 import pyarrow as pa
 
 from retain.data.table import Categorical, StartStop
+from retain.decisions.value import percentile_interval, spec_value
 from retain.errors import DataError, ModelError
 from retain.kernels import discount as kd
 from retain.kernels.risksets import first_of_spell
@@ -184,10 +185,6 @@ class ExperimentVerdict(Result):
 # ---------------------------------------------------------------- selection
 
 
-def _spec(spec: Any, name: str, default: Any = None) -> Any:
-    return spec.get(name, default) if isinstance(spec, dict) else getattr(spec, name, default)
-
-
 def _cohort_of_rows(table: StartStop, where: str) -> np.ndarray:
     """'YYYY-MM' of each row's spell start (from start_date, else the cohort column)."""
     if table.start_date is not None:
@@ -203,18 +200,18 @@ def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
 
     Returns the sub-table and a sentence describing the selection.
     """
-    name = _spec(spec, "name", "experiment")
+    name = spec_value(spec, "name", "experiment")
     where = f"experiment {name!r}"
-    arm = _spec(spec, "arm")
-    control = _spec(spec, "control")
-    horizon = float(_spec(spec, "horizon_days", 365))
+    arm = spec_value(spec, "arm")
+    control = spec_value(spec, "control")
+    horizon = float(spec_value(spec, "horizon_days", 365))
     col = table.column(arm)
     if not isinstance(col, Categorical):
         raise DataError(where, f"the arm column {arm!r} is numeric", "declare it categorical")
     if control not in col.levels:
         raise DataError(where, f"control arm {control!r} does not occur in column {arm!r}",
                         f"arms found: {', '.join(col.levels) or '(none)'}")
-    treatment = _spec(spec, "treatment")
+    treatment = spec_value(spec, "treatment")
     treatments = tuple(treatment) if treatment else tuple(lv for lv in col.levels
                                                          if lv != control)
     missing = [t for t in treatments if t not in col.levels]
@@ -228,8 +225,8 @@ def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
     arms_wanted = np.isin(np.asarray(col.levels, dtype=object), (control, *treatments))
     arm_code = col.codes[head]
     ok = (arm_code >= 0) & arms_wanted[np.clip(arm_code, 0, None)]
-    cohorts = _spec(spec, "cohorts")
-    lo, hi = _spec(spec, "signup_from"), _spec(spec, "signup_to")
+    cohorts = spec_value(spec, "cohorts")
+    lo, hi = spec_value(spec, "signup_from"), spec_value(spec, "signup_to")
     if cohorts:
         ok &= np.isin(_cohort_of_rows(table, where)[head], list(cohorts))
         selection = f"spells started in cohort(s) {', '.join(cohorts)}"
@@ -277,15 +274,15 @@ def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
 
 
 def _planned_end(spec: Any) -> dt.date | None:
-    horizon = int(_spec(spec, "horizon_days", 365))
-    cohorts = _spec(spec, "cohorts")
+    horizon = int(spec_value(spec, "horizon_days", 365))
+    cohorts = spec_value(spec, "cohorts")
     last: dt.date | None = None
     if cohorts:
         y, m = max(cohorts).split("-")
         nxt = dt.date(int(y) + (int(m) == 12), int(m) % 12 + 1, 1)
         last = nxt - dt.timedelta(days=1)
-    elif _spec(spec, "signup_to") is not None:
-        last = _spec(spec, "signup_to")
+    elif spec_value(spec, "signup_to") is not None:
+        last = spec_value(spec, "signup_to")
     if last is None:
         return None
     return last + dt.timedelta(days=horizon)
@@ -376,12 +373,6 @@ def revenue_per_customer(table: StartStop, price: str, horizon_days: float, *,
     return est, reps
 
 
-def _percentile(x: np.ndarray, conf: float) -> tuple[float, float]:
-    a = (1.0 - conf) / 2.0
-    lo, hi = np.quantile(x, [a, 1.0 - a])
-    return float(lo), float(hi)
-
-
 def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
                             treatments: Sequence[str], covariates: Sequence[str], conf: float
                             ) -> tuple[tuple[AdjustedHazardRatio, ...], list[str]]:
@@ -445,20 +436,20 @@ def experiment_verdict(
     n_boot, seed
         Bootstrap replicates (over customers) for the revenue interval.
     """
-    name = _spec(spec, "name", "experiment")
+    name = spec_value(spec, "name", "experiment")
     where = f"experiment {name!r}"
     if not table.has_customers:
         raise DataError(where, "the table has no customer_id", "use the uncompressed table")
     if not 0.5 <= conf < 1.0:
         raise ModelError(where, f"conf must be in [0.5, 1), got {conf!r}", "use 0.95")
-    arm = _spec(spec, "arm")
-    control = _spec(spec, "control")
+    arm = spec_value(spec, "arm")
+    control = spec_value(spec, "control")
     sub, selection = select_experiment(table, spec)
     acol = sub.column(arm)
     assert isinstance(acol, Categorical)
     present = set(acol.take(np.unique(first_of_spell(sub.customer.codes, sub.spell,
                                                      sub.start))).values())
-    treatment = _spec(spec, "treatment")
+    treatment = spec_value(spec, "treatment")
     treatments = tuple(t for t in (treatment or sorted(present - {control})) if t != control)
     warnings: list[str] = []
     if control not in present:
@@ -471,7 +462,7 @@ def experiment_verdict(
     if not treatments:
         raise DataError(where, "no treatment arm has customers", "check the arm values")
 
-    planned = float(_spec(spec, "horizon_days", 365))
+    planned = float(spec_value(spec, "horizon_days", 365))
     as_of_d = _as_date(as_of)
     end = _planned_end(spec)
     interim = bool(as_of_d is not None and end is not None and as_of_d < end)
@@ -488,8 +479,8 @@ def experiment_verdict(
     warnings.extend(curves.warnings)
     logrank = compare_groups(sub, arm)
     warnings.extend(logrank.warnings)
-    adjusted, cox_warn = _adjusted_hazard_ratios(sub, arm, control, treatments,
-                                                 tuple(_spec(spec, "covariates", ()) or ()), conf)
+    covariates = tuple(spec_value(spec, "covariates", ()) or ())
+    adjusted, cox_warn = _adjusted_hazard_ratios(sub, arm, control, treatments, covariates, conf)
     warnings.extend(cox_warn)
 
     # per-arm tables
@@ -513,9 +504,9 @@ def experiment_verdict(
         c_est, c_rep = per_arm[control]
         t_est, t_rep = per_arm[t]
         diff_rep = t_rep - c_rep
-        lo, hi = _percentile(diff_rep, conf)
-        clo, chi = _percentile(c_rep, conf)
-        tlo, thi = _percentile(t_rep, conf)
+        lo, hi = percentile_interval(diff_rep, conf)
+        clo, chi = percentile_interval(c_rep, conf)
+        tlo, thi = percentile_interval(t_rep, conf)
         revenue.append(RevenueComparison(
             control=control, treatment=t, horizon_days=analysis, control_revenue=c_est,
             control_lower=clo, control_upper=chi, treatment_revenue=t_est, treatment_lower=tlo,
@@ -531,7 +522,7 @@ def experiment_verdict(
         s_h = float(c.at(analysis)[0]) if analysis <= c.follow_up else math.nan
         lo_h, hi_h = (float(x[0]) for x in c.interval_at(analysis))
         est, rep = per_arm[a]
-        rlo, rhi = _percentile(rep, conf)
+        rlo, rhi = percentile_interval(rep, conf)
         rows.append({"arm": a, "role": "control" if a == control else "treatment",
                      "customers": float(np.sum(sub.weight[(arm_of_row == a) &
                                                           sub.last_of_spell])),
@@ -541,7 +532,6 @@ def experiment_verdict(
                      "revenue_lower": rlo, "revenue_upper": rhi})
     arms = pd.DataFrame(rows)
 
-    covariates = tuple(_spec(spec, "covariates", ()) or ())
     balance = balance_table(sub, arm, control, treatments, covariates) if covariates else \
         pd.DataFrame(columns=["attribute", "kind", control, *treatments, "unbalanced"])
     if not balance.empty and balance["unbalanced"].any():

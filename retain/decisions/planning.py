@@ -29,7 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from retain.decisions.value import SurvivalCurve
+from retain.decisions.value import SurvivalCurve, one_row_frame
 from retain.errors import ConfigError, ModelError
 from retain.kernels import discount as kd
 from retain.results import Result
@@ -91,9 +91,7 @@ class ExperimentPlan(Result):
     warnings: tuple[str, ...] = ()
 
     def to_frame(self) -> pd.DataFrame:
-        row = {k: v for k, v in self.to_dict().items() if k != "warnings"}
-        row["warnings"] = "; ".join(self.warnings)
-        return pd.DataFrame([row])
+        return one_row_frame(self)
 
     def summary(self) -> str:
         text = (f"To detect a hazard ratio of {self.hazard_ratio:g} with {self.power:.0%} power "

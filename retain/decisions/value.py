@@ -491,8 +491,17 @@ def curve_from_renewal(fit: Any, *, label: str | None = None) -> RenewalCurve:
 # ---------------------------------------------------------------- results
 
 
-def _interval(draws: np.ndarray, level: float) -> tuple[float, float]:
-    ok = draws[np.isfinite(draws)]
+def one_row_frame(result: Result) -> pd.DataFrame:
+    """A result's fields as one table row, warnings joined by "; "."""
+    row = {k: v for k, v in result.to_dict().items() if k != "warnings"}
+    row["warnings"] = "; ".join(getattr(result, "warnings", ()))
+    return pd.DataFrame([row])
+
+
+def percentile_interval(draws: np.ndarray, level: float) -> tuple[float, float]:
+    """Equal-tailed percentile interval of the finite draws (NaN with fewer than two)."""
+    ok = np.asarray(draws, dtype=np.float64)
+    ok = ok[np.isfinite(ok)]
     if ok.size < 2:
         return math.nan, math.nan
     a = (1.0 - level) / 2.0
@@ -537,9 +546,7 @@ class LifetimeValue(Result):
     warnings: tuple[str, ...] = ()
 
     def to_frame(self) -> pd.DataFrame:
-        row = {k: v for k, v in self.to_dict().items() if k != "warnings"}
-        row["warnings"] = "; ".join(self.warnings)
-        return pd.DataFrame([row])
+        return one_row_frame(self)
 
     def summary(self) -> str:
         h = "no cap" if self.horizon_months is None else f"{self.horizon_months} months"
@@ -724,7 +731,7 @@ def lifetime_value(
     if fns:
         vals = np.array([kd.discounted_value(np.asarray(f(days)), margin_per_month, factors)
                          for f in fns])
-        lower, upper = _interval(vals, level)
+        lower, upper = percentile_interval(vals, level)
     else:
         warnings.append(f"no interval: the {curve.label} curve offers no parameter draws")
     extra, msg = _extrapolation(curve, days[-1])
@@ -810,7 +817,7 @@ def value_sensitivity(
         cum = kd.cumulative_value(s, margin_per_month, factors)
         cum_d = kd.cumulative_value(sd, margin_per_month, factors) if sd is not None else None
         for hz in horizons_months:
-            lo, hi = (_interval(cum_d[:, hz - 1], level) if cum_d is not None
+            lo, hi = (percentile_interval(cum_d[:, hz - 1], level) if cum_d is not None
                       else (math.nan, math.nan))
             rows.append({"annual_discount_rate": float(r), "horizon_months": int(hz),
                          "value": float(cum[hz - 1]), "lower": lo, "upper": hi})
@@ -887,7 +894,8 @@ def _margin_for_rows(table: StartStop, rows: np.ndarray, *, margin_per_month: fl
     return float(margin_rate) * p, f"margin_rate {margin_rate:g} x {price}"
 
 
-def _get(spec: Any, name: str, default: Any = None) -> Any:
+def spec_value(spec: Any, name: str, default: Any = None) -> Any:
+    """A setting from a config dataclass or a plain mapping."""
     if isinstance(spec, Mapping):
         return spec.get(name, default)
     return getattr(spec, name, default)
@@ -996,7 +1004,7 @@ def residual_value(
             any_draws = True
             tot_d = np.array([wm @ _residual_per_tenure(f, points, inverse, shape, factors)
                               for f in fns])
-            tlo, thi = _interval(tot_d, level)
+            tlo, thi = percentile_interval(tot_d, level)
             lo, hi = tlo / n_cust, thi / n_cust
         else:
             warnings.append(f"segment {seg!r}: no interval, the {curve.label} curve offers "
@@ -1089,11 +1097,11 @@ def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = "weibu
 
 
 def _segment_margin(table: StartStop, mask: np.ndarray, spec: Any) -> tuple[float, str]:
-    per_month = _get(spec, "margin_per_month")
+    per_month = spec_value(spec, "margin_per_month")
     if per_month is not None:
         return float(per_month), f"margin_per_month = {per_month:g}"
-    rate = _get(spec, "margin_rate")
-    price = _get(spec, "price") or "price"
+    rate = spec_value(spec, "margin_rate")
+    price = spec_value(spec, "price") or "price"
     if rate is None:
         raise ConfigError("[value]", "neither margin_per_month nor margin_rate is set",
                           "set margin_rate (share of the monthly price) or margin_per_month")
@@ -1127,7 +1135,7 @@ def value_by_segment(
     of a customer in the segment brings in). Curves: fitted by
     :func:`segment_curves` with ``spec.curve`` unless given.
     """
-    kind = str(_get(spec, "curve", "weibull"))
+    kind = str(spec_value(spec, "curve", "weibull"))
     warnings: list[str] = []
     if curves is None:
         curves, w = segment_curves(table, by, kind)
@@ -1144,8 +1152,8 @@ def value_by_segment(
         margin, basis = _segment_margin(table, mask, spec)
         values.append(lifetime_value(
             curve, margin_per_month=margin,
-            annual_discount_rate=float(_get(spec, "annual_discount_rate", 0.10)),
-            horizon_months=_get(spec, "horizon_months", 60), segment=seg,
+            annual_discount_rate=float(spec_value(spec, "annual_discount_rate", 0.10)),
+            horizon_months=spec_value(spec, "horizon_months", 60), segment=seg,
             customers=int(round(float(table.weight[mask & head_mask].sum()))),
             margin_basis=basis, level=level, n_draws=n_draws, seed=seed))
     return SegmentValues(by=tuple(by), curve=kind, values=tuple(values), as_of=as_of,
@@ -1170,12 +1178,12 @@ def base_value_by_segment(
     """
     warnings: tuple[str, ...] = ()
     if curves is None:
-        curves, warnings = segment_curves(table, by, str(_get(spec, "curve", "weibull")))
+        curves, warnings = segment_curves(table, by, str(spec_value(spec, "curve", "weibull")))
     out = residual_value(
-        table, curves, by=by, margin_per_month=_get(spec, "margin_per_month"),
-        margin_rate=_get(spec, "margin_rate"), price=_get(spec, "price") or "price",
-        annual_discount_rate=float(_get(spec, "annual_discount_rate", 0.10)),
-        horizon_months=_get(spec, "horizon_months", 60), as_of=as_of, level=level,
+        table, curves, by=by, margin_per_month=spec_value(spec, "margin_per_month"),
+        margin_rate=spec_value(spec, "margin_rate"), price=spec_value(spec, "price") or "price",
+        annual_discount_rate=float(spec_value(spec, "annual_discount_rate", 0.10)),
+        horizon_months=spec_value(spec, "horizon_months", 60), as_of=as_of, level=level,
         n_draws=n_draws, seed=seed)
     return dataclasses.replace(out, warnings=tuple(warnings) + out.warnings)
 
