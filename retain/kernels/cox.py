@@ -173,16 +173,20 @@ def risk_sums(index: RiskIndex, r: np.ndarray, X: np.ndarray | None = None
     cumulative sum. ``X`` is best Fortran-ordered (one column at a time).
     """
     K = index.times.shape[0]
-    d0 = np.bincount(index.lo, r, K + 1) - np.bincount(index.hi, r, K + 1)
-    S0 = np.cumsum(d0)[:K]
+    lo, hi = index.lo, index.hi
+
+    def diff(v: np.ndarray) -> np.ndarray:
+        return np.bincount(lo, v, K + 1) - np.bincount(hi, v, K + 1)
+
+    S0 = np.cumsum(diff(r))[:K]
     if X is None:
         return S0, None
     p = X.shape[1]
     S1 = np.empty((K, p))
+    buf = np.empty_like(r)
     for j in range(p):
-        rx = r * X[:, j]
-        dj = np.bincount(index.lo, rx, K + 1) - np.bincount(index.hi, rx, K + 1)
-        S1[:, j] = np.cumsum(dj)[:K]
+        np.multiply(r, X[:, j], out=buf)
+        S1[:, j] = np.cumsum(diff(buf))[:K]
     return S0, S1
 
 
@@ -257,12 +261,15 @@ def weighted_cross(X: np.ndarray, v: np.ndarray, chunk: int = CHUNK) -> np.ndarr
 
 def cox_derivatives(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
                     beta: np.ndarray, offset: np.ndarray | None = None, efron: bool = True,
-                    hessian: bool = True, X_ev: np.ndarray | None = None
+                    hessian: bool = True, X_ev: np.ndarray | None = None,
+                    dwX: np.ndarray | None = None
                     ) -> tuple[float, np.ndarray, np.ndarray | None]:
     """Log partial likelihood, score and information (negative Hessian) at ``beta``.
 
     See the module docstring for the formulas. ``X`` should be centred (the
-    likelihood does not change; the sums are better conditioned).
+    likelihood does not change; the sums are better conditioned). ``X_ev``
+    (``X[event_rows]``) and ``dwX`` (:math:`\\sum_i d_iw_ix_i`) do not change with
+    ``beta``; callers that iterate pass them in.
     """
     eta = X @ beta
     if offset is not None:
@@ -273,7 +280,9 @@ def cox_derivatives(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     dw = weight * churned
     D_total = float(index.deaths.sum())
     ll = float(np.dot(dw, eta)) - st.log_term - shift * D_total
-    grad = dw @ X - (st.alpha @ st.S1 - st.beta @ st.T1)
+    if dwX is None:
+        dwX = dw @ X
+    grad = dwX - (st.alpha @ st.S1 - st.beta @ st.T1)
     if not hessian:
         return ll, grad, None
     A = window_sum(index, st.alpha)
@@ -437,9 +446,10 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
     history: list = []
 
     X_ev = np.ascontiguousarray(X[index.event_rows])
+    dwX = (weight * churned) @ X
 
     def objective(b: np.ndarray, hess: bool = True):
-        ll, g, H = cox_derivatives(index, X, weight, churned, b, offset, efron, hess, X_ev)
+        ll, g, H = cox_derivatives(index, X, weight, churned, b, offset, efron, hess, X_ev, dwX)
         if penalty:
             ll = ll - 0.5 * penalty * float(b @ b)
             g = g - penalty * b

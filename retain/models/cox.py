@@ -654,8 +654,9 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     index = K.build_risk_index(table.start, table.stop, d, w, stratum, len(stratum_labels))
     efron = ties == "efron"
     res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter)
-    sd = np.sqrt(np.maximum(np.diag(K.weighted_cross(Xc, w)) / w.sum(), 0))
-    size = np.abs(res.beta) * sd
+    size = np.abs(res.beta)
+    for j in np.flatnonzero(size > 1.0):  # |beta| x sd only where it could be large
+        size[j] *= np.sqrt(np.dot(w * Xc[:, j], Xc[:, j]) / w.sum())
     if not res.converged:
         big = np.flatnonzero(size > SEPARATION_SIZE)
         if big.size:
@@ -677,7 +678,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         raise ModelError(where, "the information matrix is singular", "drop collinear "
                          "covariates or set a penalty") from exc
     if table.has_customers:
-        cluster = table.cluster
+        cluster = table.cluster.astype(np.int64)
         clusters = "customer"
     else:
         cluster = np.arange(table.n_rows)
