@@ -209,3 +209,43 @@ def test_results_serialise_to_json(wfit):
     json.loads(wfit.predict_retention(times=[1.0, 2.0]).to_json())
     json.loads(wfit.median_lifetime().to_json())
     assert "shape" in wfit.summary().lower()
+
+
+def test_segment_retention_of_one_profile_is_that_profile():
+    """A segment whose spells all share one covariate profile has that profile's curve,
+    intervals and hazard."""
+    table = weibull_table(11)
+    fit = fit_weibull(table, ["plan"])
+    orch = table.take(table.column("plan").values() == "Orchard")
+    t = np.array([0.0, 30.0, 200.0, 1500.0])
+    seg = fit.segment_retention(orch, t, label="Orchard")
+    one = fit.predict_retention({"plan": "Orchard"}, t)
+    np.testing.assert_allclose(seg.retention, one.retention, rtol=1e-12)
+    np.testing.assert_allclose(seg.lower, one.lower, rtol=1e-9)
+    np.testing.assert_allclose(seg.upper, one.upper, rtol=1e-9)
+    np.testing.assert_allclose(seg.hazard, one.hazard, rtol=1e-12)
+    np.testing.assert_allclose(seg.hazard_upper[1:], one.hazard_upper[1:], rtol=1e-9)
+    assert "retention curve of Orchard extrapolates" in seg.warnings[0]
+
+
+def test_segment_retention_interval_of_a_mixture_is_the_delta_method():
+    """Mixed segment: se of the averaged S(t) against central differences of the average."""
+    table = weibull_table(12)
+    fit = fit_weibull(table, ["plan", "x"])
+    sub = table.take(np.arange(300))
+    t = 250.0
+    seg = fit.segment_retention(sub, [t])
+    X = fit.design.rows_for_table(sub)
+
+    def avg(p):
+        a = math.exp(p[1])
+        return float(np.mean(np.exp(-np.exp(p[0] + X @ p[2:]) * t ** a)))
+
+    assert seg.retention[0] == pytest.approx(avg(fit.params), rel=1e-12)
+    g = optimize.approx_fprime(fit.params, avg, 1e-7)
+    se = math.sqrt(g @ fit.cov @ g)
+    s = seg.retention[0]
+    z = stats.norm.isf(0.025)
+    se_ll = se / abs(s * math.log(s))
+    assert seg.lower[0] == pytest.approx(math.exp(-math.exp(math.log(-math.log(s)) + z * se_ll)),
+                                         rel=1e-5)

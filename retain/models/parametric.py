@@ -589,6 +589,85 @@ class ParametricFit(Result):
                                 value * math.exp(z * se), horizon, self.conf, prof, filled,
                                 self.warnings_for(reach, f"the {measure} lifetime"))
 
+    def segment_retention(self, table: StartStop,
+                          times: Sequence[float] | np.ndarray | None = None,
+                          label: str = "segment") -> RetentionForecast:
+        """Average fitted retention of the spells in ``table`` (a segment), with intervals.
+
+        S_seg(t) = sum_i w_i S(t | x_i) / sum_i w_i over each spell's first row,
+        its covariates held at their values at the spell's start (time-varying
+        covariates are frozen there). The hazard is the population hazard
+        sum w_i S_i h_i / sum w_i S_i. Intervals: delta method, S_seg on the
+        log(-log) scale and the hazard on the log scale; the gradients use
+        log H(t | x) = log H_0(t) + x'b, whose baseline part does not depend on x.
+        """
+        from retain.kernels.risksets import first_of_spell
+
+        if not isinstance(table, StartStop):
+            raise DataError("segment retention", "expected a StartStop table",
+                            "pass the segment's rows, e.g. table.take(mask)")
+        if times is None:
+            top = max(2.0 * self.follow_up, DAYS_PER_MONTH)
+            times = np.arange(0.0, top + 1e-9, DAYS_PER_MONTH)
+        t = np.atleast_1d(np.asarray(times, dtype=np.float64))
+        if np.any(~np.isfinite(t)) or np.any(t < 0):
+            raise DataError("prediction times", "times must be finite tenures >= 0 (days)",
+                            "pass e.g. numpy.arange(0, 731, 30.4375)")
+        if table.has_customers:
+            heads = np.unique(first_of_spell(table.customer.codes, table.spell, table.start))
+        else:
+            heads = np.arange(table.n_rows)
+        sub = table.take(heads)
+        X = self.design.rows_for_table(sub) if self.columns else np.zeros((sub.n_rows, 0))
+        w = sub.weight
+        W = float(w.sum())
+        sl = self._beta_index
+        xb = X @ self.params[sl] if self.columns else np.zeros(sub.n_rows)
+        pos = t > 0
+        tp = np.where(pos, t, 1.0)
+        x0 = np.zeros(len(self.columns))
+        lh0, jh0 = K.log_cumulative_hazard(self.model, self.params, x0, tp, self._cuts)
+        lz0, jz0 = K.log_hazard(self.model, self.params, x0, tp, self._cuts)
+        H = np.exp(xb[:, None] + lh0[None, :]) * pos[None, :]      # (m, T)
+        S = np.exp(-H)
+        hz = np.exp(xb[:, None] + lz0[None, :])
+        ws = w[:, None] * S
+        surv = ws.sum(axis=0) / W
+        u = ws * H                                                  # w S H
+        k = self.params.shape[0]
+        base = np.arange(k) < sl.start
+        # d S_seg / d theta, shape (T, k)
+        dS = np.zeros((t.shape[0], k))
+        dS[:, base] = -(u.sum(axis=0)[:, None] * jh0[:, base]) / W
+        if self.columns:
+            dS[:, sl] = -(u.T @ X) / W
+        var_s = np.einsum("ij,jk,ik->i", dS, self.cov, dS)
+        z = self._z
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ls = np.log(surv)
+            se_ll = np.sqrt(var_s) / np.abs(surv * ls)
+            lower = np.where(pos, np.exp(-np.exp(np.log(-ls) + z * se_ll)), 1.0)
+            upper = np.where(pos, np.exp(-np.exp(np.log(-ls) - z * se_ll)), 1.0)
+        v = ws * hz                                                 # w S h
+        N = v.sum(axis=0)
+        D = ws.sum(axis=0)
+        hbar = N / D
+        dN = np.zeros_like(dS)
+        dN[:, base] = v.sum(axis=0)[:, None] * jz0[:, base] \
+            - (v * H).sum(axis=0)[:, None] * jh0[:, base]
+        if self.columns:
+            dN[:, sl] = (v * (1.0 - H)).T @ X
+        dlog_h = dN / N[:, None] - (dS * W) / D[:, None]
+        se_h = np.sqrt(np.einsum("ij,jk,ik->i", dlog_h, self.cov, dlog_h))
+        if self.model == "weibull" and not pos.all() and self.shape_value != 1.0:
+            hbar[~pos] = 0.0 if self.shape_value > 1 else np.inf   # h(0) of a Weibull
+        return RetentionForecast(
+            model=self.model, profile={"segment": label, "spells": int(sub.n_rows)}, filled={},
+            times=t, retention=surv, lower=lower, upper=upper, hazard=hbar,
+            hazard_lower=hbar * np.exp(-z * se_h), hazard_upper=hbar * np.exp(z * se_h),
+            cumulative_hazard=-np.log(surv), conf=self.conf, follow_up=self.follow_up,
+            warnings=self.warnings_for(float(t.max()), f"the retention curve of {label}"))
+
     def expected_events(self, table: StartStop) -> np.ndarray:
         """Expected churns per row of ``table``: w (H(stop|x) - H(start|x)).
 
