@@ -1050,10 +1050,12 @@ def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = "weibu
     labels = segment_labels(table, by)
     curves: dict[str, SurvivalCurve] = {}
     warnings: list[str] = []
+    if curve == "cox" and not by:
+        # a Cox model without covariates is the Breslow (~ Kaplan-Meier) curve itself
+        warnings.append("the cox curve without segments is the Kaplan-Meier curve with a "
+                        "Weibull tail (a Cox model without covariates has no other content)")
+        curve = "km_weibull_tail"
     if curve == "cox":
-        if not by:
-            raise ConfigError("[value] curve", "the cox curve needs segments",
-                              "set [segments] by, or choose weibull")
         head = first_of_spell(table.customer.codes, table.spell, table.start)
         fixed = {name: (table.column(name).take(head) if table.is_categorical(name)
                         else table.column(name)[head]) for name in by}
