@@ -126,8 +126,11 @@ def survival_chart(frame: pd.DataFrame, name: str, *, x: str = "month", y: str =
     line_color: Any = alt.value(PALETTE[0])
     if series:
         levels = list(dict.fromkeys(frame[series].astype(str)))
-        line_color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title)
-        band_color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title)
+        legend = alt.Legend(symbolType="stroke", symbolOpacity=1, symbolStrokeWidth=3)
+        line_color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title,
+                               legend=legend)
+        band_color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title,
+                               legend=legend)
     tip = [alt.Tooltip(f"{x}:Q", format=".1f")]
     if series:
         tip.insert(0, alt.Tooltip(f"{series}:N"))

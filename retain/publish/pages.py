@@ -400,12 +400,21 @@ def hazards_page(run: Any) -> Page:
                                           estimate="time_ratio",
                                           x_title="Time ratio (log scale; 1 = no difference)"),
                 table=tr, csv=_term_frame(fit.to_frame())))
-        sections.append(Section(title, intro=shape.reading + " " + fit.relation + ".",
+        relation = fit.relation[:1].upper() + fit.relation[1:]
+        sections.append(Section(title, intro=shape.reading + " " + relation + ".",
                                 facts=facts, figures=tuple(figs),
                                 bullets=tuple(fit.warnings)))
     return Page("hazards", "Hazards", "What raises or lowers the risk of churn at any tenure, "
                 "from the proportional-hazards model and the Weibull model.", tuple(sections),
                 nav_label="Hazards")
+
+
+def _ph_rows(t: pd.DataFrame) -> pd.DataFrame:
+    """One row per covariate: a term row where a covariate has several columns, else its column."""
+    terms = [str(x) for x in t.loc[t["level"] == "term", "term"]]
+    keep = [r.level != "column" or not any(str(r.term).startswith(f"{x} ") for x in terms)
+            for r in t.itertuples()]
+    return t[keep].reset_index(drop=True)
 
 
 def _cox_section(run: Any) -> Section:
@@ -448,8 +457,7 @@ def cox_section(run: Any, cox: Any) -> Section:
                   "says that attribute's hazard ratio changes with tenure, so the single "
                   "ratio above is an average over tenure. With many customers small, "
                   "harmless departures also reach small p-values.",
-            table=t[t["level"] != "column"] if (t["level"] == "term").any() else t,
-            csv=t))
+            table=_ph_rows(t), csv=t))
     else:
         bullets.append(f"proportional-hazards test: {ph.error}")
     return Section("Cox model: hazard ratios", intro=f"Cox proportional-hazards model "
@@ -489,6 +497,12 @@ def fit_page(run: Any) -> Page:
             notes.append(f"Cox: {cox_curve}")
         else:
             parts.append(cox_curve)
+            notes.append("The Cox curve averages each customer's predicted retention with the "
+                         "attributes held at their values at the start of the spell. States "
+                         "that begin later (payment recovery, pauses, price changes) are not "
+                         "in it, so where they raise churn this curve lies above the observed "
+                         "one: it reads the model for customers who stay in their starting "
+                         "state, and is not a test of the model's fit.")
         frame = pd.concat(parts, ignore_index=True)
         dashed = {lv: lv != "Kaplan–Meier (data)" for lv in frame["curve"].unique()}
         wide = _fit_grid_table(frame)
