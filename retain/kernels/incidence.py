@@ -51,6 +51,40 @@ def _weights_before(values: np.ndarray, weight: np.ndarray, times: np.ndarray) -
     return cum[np.searchsorted(values[order], times, side="left")]
 
 
+def _on_grid(start: np.ndarray, stop: np.ndarray) -> int | None:
+    """Number of grid cells if every time is a multiple of 1/_GRID days (small enough)."""
+    if start.size == 0:
+        return None
+    s2 = stop * _GRID
+    top = float(s2.max())
+    if not (top < _GRID_MAX and start.min() >= 0):
+        return None
+    a2 = start * _GRID
+    if np.array_equal(s2, np.floor(s2)) and np.array_equal(a2, np.floor(a2)):
+        return int(top) + 2
+    return None
+
+
+def _grid_risk_and_events(start: np.ndarray, stop: np.ndarray, kind: np.ndarray,
+                          weight: np.ndarray, n_causes: int, cells: int
+                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """risk_and_events by counting sort on the half-day grid: O(n + cells), no sort."""
+    s2 = (stop * _GRID).astype(np.int64)
+    a2 = (start * _GRID).astype(np.int64)
+    ev = kind > 0
+    hits = np.bincount(s2[ev], minlength=cells)
+    cell = np.flatnonzero(hits)
+    events = np.bincount(s2[ev] * n_causes + (kind[ev].astype(np.int64) - 1),
+                         weights=weight[ev], minlength=cells * n_causes
+                         ).reshape(cells, n_causes)[cell]
+    # at risk at cell c: start < c and stop >= c
+    cum_start = np.cumsum(np.bincount(a2, weights=weight, minlength=cells))
+    cum_stop = np.cumsum(np.bincount(s2, weights=weight, minlength=cells))
+    before = np.maximum(cell - 1, 0)
+    at_risk = np.where(cell > 0, cum_start[before] - cum_stop[before], 0.0)
+    return cell / _GRID, at_risk, events
+
+
 def risk_and_events(
     start: np.ndarray,
     stop: np.ndarray,
@@ -64,6 +98,9 @@ def risk_and_events(
     and ``events`` (J, n_causes).
     """
     ev = kind > 0
+    grid = _on_grid(start, stop)
+    if grid is not None:
+        return _grid_risk_and_events(start, stop, kind, weight, n_causes, grid)
     times, inv = np.unique(stop[ev], return_inverse=True)
     j = times.shape[0]
     events = np.bincount(inv * n_causes + (kind[ev].astype(np.int64) - 1), weights=weight[ev],
