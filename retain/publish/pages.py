@@ -101,6 +101,24 @@ def _at_risk_table(curves: Iterable[tuple[str, Any]]) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def curves_figure(key: str, title: str, guide: str, curves: Iterable[tuple[str, Any]], *,
+                  series_title: str | None = None) -> Figure:
+    """Kaplan–Meier curves as a figure: step chart with bands, at-risk table, full-curve CSV.
+
+    One curve is drawn in one colour; several get a legend titled ``series_title``.
+    """
+    items = list(curves)
+    name = key.replace("-", "_")
+    if len(items) == 1 and series_title is None:
+        label, c = items[0]
+        chart = charts.survival_chart(_curve_points(c), name)
+    else:
+        pts = pd.concat([_curve_points(c, k) for k, c in items], ignore_index=True)
+        chart = charts.survival_chart(pts, name, series="segment", series_title=series_title)
+    return Figure(key=key, title=title, guide=guide, chart=chart, table=_at_risk_table(items),
+                  csv=pd.concat([_curve_download(c, k) for k, c in items], ignore_index=True))
+
+
 def _heat_colours(values: np.ndarray) -> dict[str, Any]:
     colours, inks = [], []
     for row in values:
@@ -153,14 +171,11 @@ def overview_page(run: Any) -> Page:
     sections.append(_hazard_words(run))
     if km.ok:
         c = km.value
-        fig = Figure(
-            key="overview-retention", title="Retention of all customers",
-            guide="The line is the share of customers still subscribed after each month of "
-                  "tenure (Kaplan–Meier); the shaded band is its 95 % interval. A steep early "
-                  "drop means many leave soon after starting.",
-            chart=charts.survival_chart(_curve_points(c), "overview_retention"),
-            table=_at_risk_table([("all customers", c)]),
-            csv=_curve_download(c, "all customers"))
+        fig = curves_figure(
+            "overview-retention", "Retention of all customers",
+            "The line is the share of customers still subscribed after each month of "
+            "tenure (Kaplan–Meier); the shaded band is its 95 % interval. A steep early "
+            "drop means many leave soon after starting.", [("all customers", c)])
         sections.append(Section("Retention curve", figures=(fig,)))
     return Page("overview", "Overview", "How many customers stay, for how long, and what moves "
                 "the odds of leaving.", tuple(sections), nav_label="Overview")
@@ -214,14 +229,11 @@ def curves_page(run: Any) -> Page:
         sections.append(Section(
             "All customers",
             intro=c.summary() + ".",
-            figures=(Figure(
-                key="curves-all", title="Retention of all customers",
-                guide="Share still subscribed by months of tenure, with its 95 % interval "
-                      "band. The table gives the number still at risk at each tenure: where it "
-                      "is small, the curve rests on few customers.",
-                chart=charts.survival_chart(_curve_points(c), "curves_all"),
-                table=_at_risk_table([("all customers", c)]),
-                csv=_curve_download(c, "all customers")),)))
+            figures=(curves_figure(
+                "curves-all", "Retention of all customers",
+                "Share still subscribed by months of tenure, with its 95 % interval "
+                "band. The table gives the number still at risk at each tenure: where it "
+                "is small, the curve rests on few customers.", [("all customers", c)]),)))
     else:
         sections.append(failure_section("All customers", km))
     for seg in run.options.segments:
@@ -231,22 +243,17 @@ def curves_page(run: Any) -> Page:
             sections.append(failure_section(title, o))
             continue
         sc = o.value
-        pts = pd.concat([_curve_points(c, k) for k, c in sc.items()], ignore_index=True)
         meds = [f"{k}: median {months_text(c.median().days)}" for k, c in sc.items()]
         sections.append(Section(
             title, intro=f"Each spell is placed by its {seg} at the start of the spell "
             f"({sc.basis}). " + "; ".join(meds) + ".",
             bullets=tuple(sc.warnings),
-            figures=(Figure(
-                key=f"curves-{slug(seg)}", title=f"Retention by {seg}",
-                guide=f"One line per {seg}; shaded bands are 95 % intervals. Lines that stay "
-                      "apart with bands that do not overlap point to a real difference. "
-                      "The table lists the number still at risk at chosen tenures.",
-                chart=charts.survival_chart(pts, f"curves_{slug(seg).replace('-', '_')}",
-                                            series="segment", series_title=seg),
-                table=_at_risk_table(sc.items()),
-                csv=pd.concat([_curve_download(c, k) for k, c in sc.items()],
-                              ignore_index=True)),)))
+            figures=(curves_figure(
+                f"curves-{slug(seg)}", f"Retention by {seg}",
+                f"One line per {seg}; shaded bands are 95 % intervals. Lines that stay "
+                "apart with bands that do not overlap point to a real difference. "
+                "The table lists the number still at risk at chosen tenures.", sc.items(),
+                series_title=seg),)))
     return Page("curves", "Retention curves", "Kaplan–Meier retention: the share of customers "
                 "still subscribed after each month of tenure, overall and by segment, with "
                 "delayed entry and censoring at the as-of date.", tuple(sections),
@@ -945,8 +952,6 @@ def experiment_verdict_text(v: Any) -> str:
 
 def _experiment_section(name: str, v: Any) -> Section:
     key = slug(name)
-    curves = v.curves
-    pts = pd.concat([_curve_points(c, k) for k, c in curves.items()], ignore_index=True)
     cmp_frame = v.to_frame()
     facts = []
     for a in v.adjusted:
@@ -973,14 +978,10 @@ def _experiment_section(name: str, v: Any) -> Section:
                            f"power, 5 % two-sided) is about {det:.2f}.")
     bullets += list(v.warnings)
     figs = (
-        Figure(key=f"experiment-{key}-curves", title=f"Retention by arm ({name})",
-               guide="One line per arm, with 95 % bands, up to the analysis horizon. Lines "
-                     "that part early and stay apart show an effect on churn.",
-               chart=charts.survival_chart(pts, f"experiment_{key.replace('-', '_')}_curves",
-                                           series="segment", series_title=v.arm),
-               table=_at_risk_table(curves.items()),
-               csv=pd.concat([_curve_download(c, k) for k, c in curves.items()],
-                             ignore_index=True)),
+        curves_figure(f"experiment-{key}-curves", f"Retention by arm ({name})",
+                      "One line per arm, with 95 % bands, up to the analysis horizon. Lines "
+                      "that part early and stay apart show an effect on churn.",
+                      v.curves.items(), series_title=v.arm),
         Figure(key=f"experiment-{key}-comparison", title="Treatment against control",
                guide="Per treatment arm: the adjusted hazard ratio, the difference in "
                      "restricted mean tenure (days kept within the horizon) and in revenue "
