@@ -278,8 +278,9 @@ def cohorts_page(run: Any) -> Page:
         key="cohorts-retention", title="Cohort × month retention",
         guide="Each row is a signup month, each column a month of tenure; the colour is the "
               "Kaplan–Meier share still subscribed. Read down a column to compare cohorts at "
-              "the same age. Blank cells cannot be observed yet: that cohort has not reached "
-              "that tenure by the as-of date.",
+              "the same age. Blank cells cannot be observed: the cohort has not reached that "
+              "tenure by the as-of date, or (for cohorts that began before the observation "
+              "window) its customers were not yet under observation at that tenure.",
         chart=charts.heat_chart(long[["cohort", "month", "retention"]], "cohorts_retention",
                                 row="cohort", column="month", value="retention",
                                 row_title="", column_title="Months since start",
