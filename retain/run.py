@@ -302,6 +302,25 @@ def _actual_vs_expected(table: StartStop, basis: Any, options: RunOptions) -> An
     return expected.actual_vs_expected(table, basis, by=by, credibility=True)
 
 
+def _finance_table(done: dict[str, Outcome]) -> pd.DataFrame:
+    """The finance rows exactly as :func:`retain.decisions.value.finance_export` writes them.
+
+    The export writes a CSV and a JSON; it runs in a scratch folder and only its
+    table is kept (the site writes the CSV beside its other downloads).
+    """
+    import tempfile
+
+    from retain.decisions import value
+
+    new, base = done["value:segments"], done["value:base"]
+    if not (new.ok or base.ok):
+        raise ModelError("finance file", "neither value figure could be computed",
+                         new.error or base.error or "")
+    with tempfile.TemporaryDirectory(prefix="retain-finance-") as tmp:
+        return value.finance_export(tmp, new_customers=new.value if new.ok else None,
+                                    base=base.value if base.ok else None).table
+
+
 def _decision_steps(table: StartStop, options: RunOptions,
                     done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
     from retain.decisions import experiments, value
@@ -316,6 +335,7 @@ def _decision_steps(table: StartStop, options: RunOptions,
                                                               as_of=options.as_of)),
             ("value:base", lambda: value.base_value_by_segment(
                 table, spec, by, as_of=options.as_of, n_draws=BASE_VALUE_DRAWS)),
+            ("value:finance", lambda: _finance_table(done)),
         ]
     price = str(spec.get("price") or "price")
     for name, exp in options.experiments.items():

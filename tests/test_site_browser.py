@@ -275,3 +275,17 @@ def test_demo_rebuild_is_byte_identical(demo, tmp_path):
     first, second = tree_bytes(root), tree_bytes(again.parent)
     assert sorted(first) == sorted(second)
     assert [k for k in first if first[k] != second[k]] == []
+
+
+def test_finance_csv_is_the_value_modules_export(demo):
+    """The finance download holds the rows of retain.decisions.value.finance_export."""
+    import pandas as pd
+
+    root, run = demo
+    shown = pd.read_csv(root / "data" / "value-finance.csv")
+    expected = run.value("value:finance")
+    assert list(shown.columns) == list(expected.columns)
+    assert len(shown) == len(expected) > 0
+    assert (shown["value_per_customer"].to_numpy() ==
+            expected["value_per_customer"].to_numpy()).all()
+    assert shown["caution"].str.contains("accounting standards").all()

@@ -192,7 +192,8 @@ def _hazard_words(run: Any) -> Section:
                    bullets=tuple(words))
 
 
-def hazard_sentences(cox: Any, k: int) -> list[str]:  # filled when the Cox model lands
+def hazard_sentences(cox: Any, k: int) -> list[str]:
+    """The ``k`` largest Cox effects (by |log hazard ratio|) as plain sentences."""
     frame = hazard_frame(cox)
     if frame.empty:
         return []
@@ -838,8 +839,9 @@ def value_page(run: Any) -> Page:
             table=shown, csv=frame),)))
     else:
         sections.append(failure_section("The active base", base))
-    fin = _finance_rows(run)
-    if fin is not None:
+    finance = run.get("value:finance")
+    if finance.ok:
+        fin = finance.value
         sections.append(Section("Finance file", intro="One row per figure and segment, with "
                                 "every assumption and the caution on each row, for finance "
                                 "systems.", figures=(Figure(
@@ -856,47 +858,6 @@ def value_page(run: Any) -> Page:
     return Page("value", "Value", "What a customer is worth in discounted margin, for new "
                 "customers by segment and for the active base.", tuple(sections),
                 cautions=cautions, assumptions=tuple(assumptions), nav_label="Value")
-
-
-FINANCE_COLUMNS = (
-    "figure", "segment", "customers", "value_per_customer", "lower", "upper", "total",
-    "total_lower", "total_upper", "interval_level", "interval_method", "curve",
-    "annual_discount_rate", "horizon_months", "margin_basis", "timing", "as_of", "caution",
-)
-
-
-def _finance_rows(run: Any) -> pd.DataFrame | None:
-    """The finance table: value of a new customer and of the active base, one row each."""
-    rows: list[dict[str, Any]] = []
-    seg, base = run.get("value:segments"), run.get("value:base")
-    caution = MONEY_CAUTIONS[1]
-    if seg.ok:
-        caution = getattr(seg.value, "caution", caution)
-        for v in seg.value.values:
-            rows.append({"figure": "new customer", "segment": v.segment,
-                         "customers": v.customers, "value_per_customer": v.value,
-                         "lower": v.lower, "upper": v.upper, "total": math.nan,
-                         "total_lower": math.nan, "total_upper": math.nan,
-                         "interval_level": v.level, "interval_method": v.interval_method,
-                         "curve": v.curve, "annual_discount_rate": v.annual_discount_rate,
-                         "horizon_months": v.horizon_months, "margin_basis": v.margin_basis,
-                         "timing": v.timing, "as_of": run.options.as_of})
-    if base.ok:
-        b = base.value
-        for x in b.segments:
-            rows.append({"figure": "active base", "segment": x.segment, "customers": x.customers,
-                         "value_per_customer": x.value_per_customer, "lower": x.lower,
-                         "upper": x.upper, "total": x.total, "total_lower": x.total_lower,
-                         "total_upper": x.total_upper, "interval_level": b.level,
-                         "interval_method": b.interval_method, "curve": x.curve,
-                         "annual_discount_rate": b.annual_discount_rate,
-                         "horizon_months": b.horizon_months, "margin_basis": b.margin_basis,
-                         "timing": b.timing, "as_of": run.options.as_of})
-    if not rows:
-        return None
-    for r in rows:
-        r["caution"] = caution
-    return pd.DataFrame(rows, columns=list(FINANCE_COLUMNS))
 
 
 # --------------------------------------------------------------------------- experiments

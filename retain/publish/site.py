@@ -36,7 +36,7 @@ from markupsafe import Markup
 
 from retain.errors import BuildError, RetainError
 from retain.paths import TEMPLATES_DIR
-from retain.publish.content import Figure, Page, SiteContent
+from retain.publish.content import SiteContent
 
 MARKER = ".retain-site"
 BUNDLE_NAME = "vega-bundle.js"
@@ -271,11 +271,3 @@ def _write_all(content: SiteContent, root: Path, templates: Path,
         (root / page.filename).write_text(html, encoding="utf-8")
     (root / MARKER).write_text("written by retain build; replaced as a whole on rebuild\n",
                                encoding="utf-8")
-
-
-def figure_csv_path(fig: Figure) -> str:
-    return f"data/{fig.key}.csv"
-
-
-def page_filenames(pages: tuple[Page, ...]) -> list[str]:
-    return [p.filename for p in pages]
