@@ -366,11 +366,13 @@ def revenue_per_customer(table: StartStop, price: str, horizon_days: float, *,
     est = float(kd.revenue_to_horizon(table.start, table.stop, table.churned, per_day,
                                       table.weight, horizon_days))
     rng = np.random.default_rng(seed)
-    reps = kd.revenue_to_horizon(table.start, table.stop, table.churned, per_day, table.weight,
-                                 horizon_days,
-                                 replicate_weights=_bootstrap_counts(table.customer.codes,
-                                                                     n_boot, rng) * table.weight)
-    return est, reps
+    reps = []
+    for size in np.diff(np.r_[np.arange(0, n_boot, 25), n_boot]):  # bounded memory
+        weights = _bootstrap_counts(table.customer.codes, int(size), rng) * table.weight
+        reps.append(kd.revenue_to_horizon(table.start, table.stop, table.churned, per_day,
+                                          table.weight, horizon_days,
+                                          replicate_weights=weights))
+    return est, np.concatenate(reps)
 
 
 def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
