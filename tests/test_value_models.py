@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pandas as pd
 import pytest
 from sksurv.datasets import load_whas500
 
@@ -179,3 +180,43 @@ def test_every_curve_kind_values_every_segment(whas: StartStop, kind: str) -> No
                           ["gender"], curves=curves, n_draws=30)
     for v in sv.values:
         assert 0 < v.value < 5.0 * 24
+
+
+def test_weights_equal_duplicated_customers(whas: StartStop) -> None:
+    """Invariance: weight 2 on every row = every customer present twice (new ids); the
+    compressed form (no customer ids, weights) gives the same values and counts."""
+    spec = {"curve": "weibull", "margin_rate": 0.35, "price": "price",
+            "annual_discount_rate": 0.1, "horizon_months": 36}
+    f = whas.to_frame()
+    twice = f.copy()
+    twice["customer_id"] = twice["customer_id"] + "b"
+    dup = StartStop.from_frame(pd.concat([f, twice], ignore_index=True))
+    weighted = whas.with_weight(np.full(whas.n_rows, 2.0))
+    compressed = StartStop(whas.start, whas.stop, whas.churned, weight=np.full(whas.n_rows, 2.0),
+                           covariates=whas.covariates)
+    ref = value_by_segment(dup, spec, ["gender"], n_draws=40)
+    for other in (weighted, compressed):
+        got = value_by_segment(other, spec, ["gender"], n_draws=40)
+        for a, b in zip(ref.values, got.values, strict=True):
+            assert a.value == pytest.approx(b.value, rel=1e-8)
+            assert a.lower == pytest.approx(b.lower, rel=1e-6)
+            assert a.customers == b.customers
+
+
+def test_results_serialise(whas: StartStop) -> None:
+    """Every value result turns into JSON and a table."""
+    import json
+
+    from retain.decisions.planning import plan_experiment
+    from retain.decisions.value import base_value_by_segment, value_sensitivity
+
+    spec = {"curve": "weibull", "margin_per_month": 4.0, "annual_discount_rate": 0.1,
+            "horizon_months": 24}
+    curve = curve_from_model(fit_weibull(whas))
+    for result in (value_by_segment(whas, spec, ["gender"], n_draws=20),
+                   base_value_by_segment(whas, spec, ["gender"], n_draws=20),
+                   value_sensitivity(curve, margin_per_month=4.0, n_draws=20),
+                   plan_experiment(curve, 0.8, follow_up_months=12.0)):
+        assert isinstance(json.loads(result.to_json()), dict)
+        assert len(result.to_frame()) >= 1
+        assert isinstance(result.summary(), str)

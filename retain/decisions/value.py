@@ -1146,8 +1146,8 @@ def value_by_segment(
     head_mask = np.zeros(table.n_rows, dtype=bool)
     if table.has_customers:
         head_mask[np.unique(first_of_spell(table.customer.codes, table.spell, table.start))] = True
-    else:
-        head_mask[:] = True
+    else:  # compressed table: count the rows that start a spell at signup
+        head_mask = table.start == 0.0
     values = []
     for seg, curve in curves.items():
         mask = labels == seg
