@@ -286,6 +286,8 @@ def _model_steps(table: StartStop, options: RunOptions,
         ("graduation", after("decrements", lambda d: decrements.graduate(d))),
         ("ae", after("decrements", lambda d: _actual_vs_expected(table, d, options))),
         ("incidence", lambda: competing.cumulative_incidence(table)),
+        ("cause-cox", lambda: competing.cause_specific_cox(
+            table, cov, strata=list(options.strata) or None, reference=ref)),
     ]
     steps += _decision_steps(table, options, done)
     return steps

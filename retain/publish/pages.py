@@ -722,6 +722,34 @@ def ae_page(run: Any, ae: Any) -> Page:
                 group="actuarial")
 
 
+def _cause_cox_section(run: Any) -> Section:
+    o = run.get("cause-cox")
+    title = "What drives each kind of churn"
+    if not o.ok:
+        return failure_section(title, o)
+    cs = o.value
+    hr = cs.to_frame()
+    frame = pd.DataFrame({"term": [f"{t} · {c}" for t, c in zip(hr["term"], hr["cause"],
+                                                               strict=True)],
+                          "cause": hr["cause"], "hazard_ratio": hr["hazard_ratio"],
+                          "lower": hr["hr_low"], "upper": hr["hr_high"],
+                          "p_value": hr["p_value"]})
+    # each term's causes side by side, terms in the model's order
+    position = frame.groupby("cause", sort=False).cumcount().to_numpy()
+    rank = frame["cause"].map({c: i for i, c in enumerate(cs.causes)}).to_numpy()
+    frame = frame.iloc[np.lexsort((rank, position))].reset_index(drop=True)
+    return Section(title, intro="One Cox model per cause, the other cause treated as "
+                   "censored (cause-specific hazards). A hazard ratio compares the rate of "
+                   "leaving for that reason among customers still subscribed; it is not a "
+                   "ratio of the shares above.", bullets=tuple(cs.warnings), figures=(Figure(
+        key="causes-hazard-ratios", title="Hazard ratios by cause",
+        guide="Each attribute appears once per cause. An attribute that raises one kind of "
+              "churn and not the other points to its cure: pricing and product for voluntary "
+              "churn, payment recovery for involuntary churn. Whiskers are 95 % intervals.",
+        chart=charts.forest_chart(frame, "causes_hazard_ratios", group="cause"),
+        table=frame, csv=hr),))
+
+
 def causes_page(run: Any) -> Page:
     o = run.get("incidence")
     title = "Cumulative incidence by cause"
@@ -766,11 +794,11 @@ def causes_page(run: Any) -> Page:
                                  y_title="Churned from this cause", dashed=dashed, step=True,
                                  lower="lower", upper="upper"),
         table=over, csv=frame)
+    sections = [Section(title, intro=ci.summary(), facts=tuple(facts), bullets=ci.warnings,
+                        figures=(fig,)), _cause_cox_section(run)]
     return Page("causes", "Churn by cause", "Voluntary churn (a customer chose to leave) and "
                 "involuntary churn (payment failed) have different causes and cures; here they "
-                "are kept apart as competing risks.",
-                (Section(title, intro=ci.summary(), facts=tuple(facts), bullets=ci.warnings,
-                         figures=(fig,)),),
+                "are kept apart as competing risks.", tuple(sections),
                 cautions=ACTUARIAL_CAUTIONS[:1],
                 assumptions=(f"method: {ci.method}", f"intervals: {ci.interval}"),
                 nav_label="Churn by cause", group="actuarial")
