@@ -88,6 +88,7 @@ __all__ = [
     "write_log",
     "true_reference_values",
     "simulate_spells",
+    "true_start_stop",
     "churn_times_piecewise",
     "truth_dict",
     "write_truth",
@@ -914,6 +915,69 @@ _BAD_TIMES = ("2025-02-30 09:15:00", "31/12/2024 10:00", "unknown", "2025-07-14 
               "")
 
 
+def _simulate_world(n_customers: int, seed: int, start: str, as_of: str
+                    ) -> tuple[np.random.Generator, dict[str, np.ndarray], SimSpells]:
+    rng = np.random.Generator(np.random.PCG64(seed))
+    cu = _draw_customers(rng, n_customers, start, as_of)
+    sp = simulate_spells(rng, cu["signup"], cu["plan"], cu["channel"], cu["region"],
+                         cu["arm"], as_of_day=_day(as_of))
+    return rng, cu, sp
+
+
+def true_start_stop(n_customers: int = 20000, *, seed: int = 20261130,
+                    start: str = "2023-06-01", as_of: str = "2026-11-30",
+                    window_start: str | None = "2024-01-01") -> pa.Table:
+    """The start-stop table the log of ``generate_log`` (same arguments) must yield.
+
+    Built straight from the simulation, not from the log: one row per covariate
+    segment of each spell, cut at the recorded end day ``ceil(T)`` or the as-of
+    date, entering at the window's first day (delayed entry; a spell that ended
+    on or before it is left out). Columns and order as in the start-stop
+    contract (CONFIG.md), without ``weight``; plus ``latent_time``, the
+    continuous churn time of the spell (inf if censored), for checks.
+    """
+    _, cu, sp = _simulate_world(n_customers, seed, start, as_of)
+    s = sp.seg_spell
+    end_rec = np.where(sp.churned, np.ceil(np.where(sp.churned, sp.t, 0.0)),
+                       sp.horizon.astype(float))
+    entry = np.zeros(sp.n) if window_start is None else np.maximum(
+        0.0, float(_day(window_start)) - sp.start_day)
+    keep = (sp.seg_a < end_rec[s]) & (sp.seg_b > entry[s]) & (end_rec[s] > entry[s])
+    g = np.flatnonzero(keep)
+    sg = s[g]
+    churned = np.zeros(sp.seg_spell.size, np.int32)
+    churned[sp.churn_seg[sp.churned]] = 1
+    cause_code = np.full(sp.seg_spell.size, -1, np.int64)
+    cause_code[sp.churn_seg[sp.churned]] = sp.cause[sp.churned]
+    cust = sp.customer[sg]
+    start_date = sp.start_day[sg].astype("datetime64[D]")
+    numbers = pc.utf8_lpad(pa.array(np.arange(1, n_customers + 1)).cast(pa.string()), 7, "0")
+    accounts = pc.binary_join_element_wise("QF", numbers, "")
+    cols = {
+        "customer_id": _decode(cust, accounts),
+        "spell": pa.array(sp.prior[sg] + 1),
+        "start": pa.array(np.maximum(sp.seg_a[g], entry[sg])),
+        "stop": pa.array(np.minimum(sp.seg_b[g], end_rec[sg])),
+        "churned": pa.array(churned[g]),
+        "cause": pc.fill_null(_dict_strings(cause_code[g], ["voluntary", "involuntary"]), ""),
+        "start_date": pa.array(start_date, pa.date32()),
+        "cohort": pa.array(start_date.astype("datetime64[M]").astype(str)),
+        "channel": _dict_strings(cu["channel"][cust], _levels("channels")),
+        "region": _dict_strings(cu["region"][cust], _levels("regions")),
+        "arm": _dict_strings(cu["arm"][cust], _levels("experiment")),
+        "plan": _dict_strings(sp.seg_plan[g], _levels("plans")),
+        "price": pa.array(sp.seg_cents[g] / 100.0),
+        "price_ratio": pa.array(sp.seg_ratio[g]),
+        "in_recovery": pa.array(sp.seg_rec[g].astype(float)),
+        "paused": pa.array(sp.seg_paused[g].astype(float)),
+        "prior_spells": pa.array(sp.prior[sg].astype(float)),
+        "latent_time": pa.array(sp.t[sg]),
+    }
+    table = pa.table(cols)
+    return table.sort_by([("customer_id", "ascending"), ("spell", "ascending"),
+                          ("start", "ascending")])
+
+
 def generate_log(n_customers: int = 20000, *, seed: int = 20261130, start: str = "2023-06-01",
                  as_of: str = "2026-11-30", defects: bool = True) -> pa.Table:
     """Simulate Quillfern's raw event log.
@@ -930,11 +994,8 @@ def generate_log(n_customers: int = 20000, *, seed: int = 20261130, start: str =
     -------
     pyarrow.Table with the text columns :data:`LOG_COLUMNS` (nulls for empty).
     """
-    rng = np.random.Generator(np.random.PCG64(seed))
+    rng, cu, sp = _simulate_world(n_customers, seed, start, as_of)
     as_of_day = _day(as_of)
-    cu = _draw_customers(rng, n_customers, start, as_of)
-    sp = simulate_spells(rng, cu["signup"], cu["plan"], cu["channel"], cu["region"],
-                         cu["arm"], as_of_day=as_of_day)
     base = _log_rows(rng, cu, sp, as_of_day).arrays()
     nb = base["cust"].size
     if defects:
