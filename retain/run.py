@@ -234,9 +234,12 @@ def run_config(config: Any, *, prepared: Any = None,
 def build_from_config(config: Any, out_dir: Any, *, prepared: Any = None,
                       progress: Callable[[str], None] | None = None) -> tuple[Any, RunResults]:
     """One run of the whole flow, published: returns (path of index.html, the run)."""
-    from retain.publish.pages import site_content
-    from retain.publish.site import build_site
+    from pathlib import Path
 
+    from retain.publish.pages import site_content
+    from retain.publish.site import build_site, check_target
+
+    check_target(Path(out_dir).resolve())  # refuse a wrong --out before the models run
     run = run_config(config, prepared=prepared, progress=progress)
     (progress or (lambda _msg: None))("site")
     return build_site(site_content(run), out_dir), run

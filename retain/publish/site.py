@@ -190,7 +190,7 @@ def build_site(
     """
     out = Path(out_dir).resolve()
     templates = Path(templates_dir)
-    _check_target(out)
+    check_target(out)
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.building-", dir=out.parent))
     os.chmod(tmp, 0o755)  # mkdtemp makes it private; a site is meant to be read
@@ -209,7 +209,8 @@ def build_site(
     return out / "index.html"
 
 
-def _check_target(out: Path) -> None:
+def check_target(out: Path) -> None:
+    """Refuse (BuildError) a target that is a file or a non-empty folder retain did not write."""
     if out.exists():
         if not out.is_dir():
             raise BuildError(str(out), "the output path exists and is not a folder",
