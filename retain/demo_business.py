@@ -782,7 +782,7 @@ class _Rows:
         self.arm.append(col(arm))
 
     def arrays(self) -> dict[str, np.ndarray]:
-        return {k: np.concatenate(getattr(self, k)) for k in
+        return {k: np.concatenate(getattr(self, k)).astype(np.int32) for k in
                 ("cust", "day", "kind", "reason", "plan", "cents", "channel", "region", "arm")}
 
 
@@ -985,7 +985,7 @@ def generate_log(n_customers: int = 20000, *, seed: int = 20261130, start: str =
     Parameters
     ----------
     n_customers : number of customers (first signups between ``start`` and the
-        day before ``as_of``); about 10 log rows each.
+        day before ``as_of``); about 3.3 log rows each.
     seed : seed of the ``numpy.random.PCG64`` generator; same seed, same table.
     start, as_of : first day of the log and the censoring day (inclusive).
     defects : add the documented defective rows (``TRUTH['defects']``).
@@ -1001,20 +1001,23 @@ def generate_log(n_customers: int = 20000, *, seed: int = 20261130, start: str =
     if defects:
         extra, over = _defect_rows(rng, cu, sp, base, as_of_day, _day(start))
         arr = {k: np.concatenate([base[k], extra[k]]) for k in base}
+        del base, extra
     else:
         arr, over = base, {"missing_id": [], "bad_time": [], "bad_price": [], "source": []}
+    del sp
     tod = rng.integers(6 * 3600, 22 * 3600, nb)
     if over["source"]:
         # a defective copy keeps the time of day of the row it copies
         src = np.array(over["source"], np.int64)
         new = rng.integers(6 * 3600, 22 * 3600, src.size)
         tod = np.concatenate([tod, np.where(src >= 0, tod[np.maximum(src, 0)], new)])
-    secs = arr["day"] * 86400 + tod
+    secs = arr["day"].astype(np.int64) * 86400 + tod
     kind_order = np.array([0, 0, 1, 1, 4, 5, 2, 3, 6, 7, 7])[arr["kind"]]
     s0 = secs - secs.min()
     cbits = max(int(n_customers).bit_length(), 1)
     if int(s0.max()).bit_length() + cbits + 3 <= 63:  # one int64 key sorts fastest
-        order = np.argsort((s0 << (cbits + 3)) | (arr["cust"] << 3) | kind_order,
+        order = np.argsort((s0 << (cbits + 3)) | (arr["cust"].astype(np.int64) << 3)
+                           | kind_order,
                            kind="stable")
     else:
         order = np.lexsort((kind_order, arr["cust"], secs))
