@@ -425,6 +425,12 @@ class SimSpells:
     def churned(self) -> np.ndarray:
         return self.cause >= 0
 
+    @property
+    def end_tenure(self) -> np.ndarray:
+        """Recorded end: tenure day ceil(T) if churned, else the horizon (int64)."""
+        return np.where(self.churned, np.ceil(np.where(self.churned, self.t, 0.0)),
+                        self.horizon).astype(np.int64)
+
 
 def _prices_cents() -> np.ndarray:
     p = TRUTH["plans"]
@@ -669,7 +675,7 @@ def simulate_spells(rng: np.random.Generator, signup_day: np.ndarray, plan0: np.
                                                         cust.size)
         same = rng.random(cust.size) < react["same_plan_probability"]
         newplan = rng.choice(3, size=cust.size, p=shares)
-        end_day = start + np.ceil(np.where(ch, sp.t, 0.0)).astype(np.int64)
+        end_day = start + sp.end_tenure
         nstart = end_day + gap
         go = ch & (u < pr)
         if as_of_day is not None:
@@ -825,12 +831,11 @@ def _log_rows(rng: np.random.Generator, cu: dict[str, np.ndarray], sp: SimSpells
         rows.add(cc[dn], day[dn], K[off])
     # cancels
     ci = np.flatnonzero(sp.churned)
-    end_day = sp.start_day[ci] + np.ceil(sp.t[ci]).astype(np.int64)
+    end_day = (sp.start_day + sp.end_tenure)[ci]
     rows.add(sp.customer[ci], end_day, K["cancel"], reason=_reasons(rng, sp, ci))
     # ignored noise: email_opened inside a spell; a few unknown gift_card_redeemed rows
     noise = TRUTH["noise"]
-    stop_day = np.where(sp.churned, sp.start_day + np.ceil(np.where(sp.churned, sp.t, 0))
-                        .astype(np.int64), as_of_day)
+    stop_day = np.where(sp.churned, sp.start_day + sp.end_tenure, as_of_day)
     n_mail = int(round(noise["email_opened_per_customer"] * cu["signup"].size))
     for kname, m in (("email_opened", n_mail), ("gift_card_redeemed",
                                                  int(noise["gift_card_redeemed_rows"]))):
@@ -893,7 +898,7 @@ def _defect_rows(rng: np.random.Generator, cu: dict[str, np.ndarray], sp: SimSpe
     order = np.lexsort((sp.start_day, sp.customer))
     lastpos = np.r_[sp.customer[order][1:] != sp.customer[order][:-1], True]
     last_of_cust[order[lastpos]] = True
-    end_day = sp.start_day + np.ceil(np.where(sp.churned, sp.t, 0)).astype(np.int64)
+    end_day = sp.start_day + sp.end_tenure
     cand = np.flatnonzero(last_of_cust & sp.churned & (end_day + 10 <= as_of_day))
     m = dfx["end_without_open_spell"]
     pick = np.sort(rng.choice(cand, size=m, replace=False))
@@ -938,8 +943,7 @@ def true_start_stop(n_customers: int = 20000, *, seed: int = 20261130,
     """
     _, cu, sp = _simulate_world(n_customers, seed, start, as_of)
     s = sp.seg_spell
-    end_rec = np.where(sp.churned, np.ceil(np.where(sp.churned, sp.t, 0.0)),
-                       sp.horizon.astype(float))
+    end_rec = sp.end_tenure.astype(float)
     entry = np.zeros(sp.n) if window_start is None else np.maximum(
         0.0, float(_day(window_start)) - sp.start_day)
     keep = (sp.seg_a < end_rec[s]) & (sp.seg_b > entry[s]) & (end_rec[s] > entry[s])
@@ -951,8 +955,7 @@ def true_start_stop(n_customers: int = 20000, *, seed: int = 20261130,
     cause_code[sp.churn_seg[sp.churned]] = sp.cause[sp.churned]
     cust = sp.customer[sg]
     start_date = sp.start_day[sg].astype("datetime64[D]")
-    numbers = pc.utf8_lpad(pa.array(np.arange(1, n_customers + 1)).cast(pa.string()), 7, "0")
-    accounts = pc.binary_join_element_wise("QF", numbers, "")
+    accounts = _account_ids(n_customers)
     cols = {
         "customer_id": _decode(cust, accounts),
         "spell": pa.array(sp.prior[sg] + 1),
@@ -1028,8 +1031,7 @@ def generate_log(n_customers: int = 20000, *, seed: int = 20261130, start: str =
     secs, flag, day, tod = secs[order], flag[order], arr["day"], tod[order]
 
     cust = np.where(flag == 1, -1, arr["cust"])
-    numbers = pc.utf8_lpad(pa.array(np.arange(1, n_customers + 1)).cast(pa.string()), 7, "0")
-    accounts = pc.binary_join_element_wise("QF", numbers, "")
+    accounts = _account_ids(n_customers)
     d0 = int(day.min())
     day_str = pa.array(np.arange(d0, int(day.max()) + 1).astype("datetime64[D]").astype(str))
     tod_str = pa.array([f"{h:02d}:{mi:02d}:{se:02d}" for h in range(24) for mi in range(60)
@@ -1053,6 +1055,12 @@ def generate_log(n_customers: int = 20000, *, seed: int = 20261130, start: str =
         "arm": _dict_strings(arr["arm"], _levels("experiment")),
     }
     return pa.table(cols)
+
+
+def _account_ids(n: int) -> pa.Array:
+    """QF0000001, QF0000002, ...: customer i (0-based) is entry i."""
+    numbers = pc.utf8_lpad(pa.array(np.arange(1, n + 1)).cast(pa.string()), 7, "0")
+    return pc.binary_join_element_wise("QF", numbers, "")
 
 
 def _decode(codes: np.ndarray, levels: pa.Array) -> pa.Array:
