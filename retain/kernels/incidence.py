@@ -51,30 +51,35 @@ def _weights_before(values: np.ndarray, weight: np.ndarray, times: np.ndarray) -
     return cum[np.searchsorted(values[order], times, side="left")]
 
 
-def _on_grid(start: np.ndarray, stop: np.ndarray) -> int | None:
-    """Number of grid cells if every time is a multiple of 1/_GRID days (small enough)."""
+def _on_grid(start: np.ndarray, stop: np.ndarray
+             ) -> tuple[np.ndarray, np.ndarray, int] | None:
+    """Grid cells of start and stop, and the cell count, if every time is a multiple of
+    1/_GRID days (and the grid is small enough); else None."""
     if start.size == 0:
         return None
     s2 = stop * _GRID
     top = float(s2.max())
     if not (top < _GRID_MAX and start.min() >= 0):
         return None
+    s2i = s2.astype(np.int64)
+    if not np.array_equal(s2, s2i):
+        return None
     a2 = start * _GRID
-    if np.array_equal(s2, np.floor(s2)) and np.array_equal(a2, np.floor(a2)):
-        return int(top) + 2
-    return None
+    a2i = a2.astype(np.int64)
+    if not np.array_equal(a2, a2i):
+        return None
+    return a2i, s2i, int(top) + 2
 
 
-def _grid_risk_and_events(start: np.ndarray, stop: np.ndarray, kind: np.ndarray,
+def _grid_risk_and_events(a2: np.ndarray, s2: np.ndarray, kind: np.ndarray,
                           weight: np.ndarray, n_causes: int, cells: int
                           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """risk_and_events by counting sort on the half-day grid: O(n + cells), no sort."""
-    s2 = (stop * _GRID).astype(np.int64)
-    a2 = (start * _GRID).astype(np.int64)
-    ev = kind > 0
-    hits = np.bincount(s2[ev], minlength=cells)
+    ev = np.flatnonzero(kind > 0)
+    se = s2[ev]
+    hits = np.bincount(se, minlength=cells)
     cell = np.flatnonzero(hits)
-    events = np.bincount(s2[ev] * n_causes + (kind[ev].astype(np.int64) - 1),
+    events = np.bincount(se * n_causes + (kind[ev].astype(np.int64) - 1),
                          weights=weight[ev], minlength=cells * n_causes
                          ).reshape(cells, n_causes)[cell]
     # at risk at cell c: start < c and stop >= c
@@ -100,7 +105,7 @@ def risk_and_events(
     ev = kind > 0
     grid = _on_grid(start, stop)
     if grid is not None:
-        return _grid_risk_and_events(start, stop, kind, weight, n_causes, grid)
+        return _grid_risk_and_events(*grid[:2], kind, weight, n_causes, grid[2])
     times, inv = np.unique(stop[ev], return_inverse=True)
     j = times.shape[0]
     events = np.bincount(inv * n_causes + (kind[ev].astype(np.int64) - 1), weights=weight[ev],

@@ -105,7 +105,7 @@ class CumulativeIncidence(Result):
 
 def _kinds(table: StartStop) -> tuple[np.ndarray, tuple[str, ...], list[str]]:
     """Per row: 0 censored, 1.. cause index; the causes present; warnings."""
-    kind = np.zeros(table.n_rows, dtype=np.int64)
+    kind = np.zeros(table.n_rows, dtype=np.int8)
     churn = table.churned == 1
     causes: list[str] = []
     for cause in CAUSES:
@@ -164,7 +164,10 @@ def cumulative_incidence(
     z = stats.norm.ppf(0.5 + level / 2)
     frames, overs = [], []
     for g, label in enumerate(labels):
-        rows = np.flatnonzero(codes == g)
+        if len(labels) == 1:  # the whole book: no copies
+            rows = slice(None)
+        else:
+            rows = np.flatnonzero(codes == g)
         k = kind[rows]
         if not (k > 0).any():
             warnings.append(f"segment {label!r} has no churns; left out")
