@@ -196,7 +196,7 @@ class CoxFit(Result):
     _stratum: np.ndarray = field(repr=False)
     _dH0: np.ndarray = field(repr=False)
     _table: StartStop = field(repr=False)
-    _cluster: np.ndarray = field(repr=False)
+    _cluster: np.ndarray | None = field(repr=False)
 
     # ---------------------------------------------------------------- conversion
     def to_dict(self) -> dict[str, Any]:
@@ -266,7 +266,9 @@ class CoxFit(Result):
         """Breslow baseline cumulative hazard of a stratum at the column means.
 
         Columns: time, churns (weighted), hazard increment, cumulative_hazard,
-        retention (= exp(-cumulative hazard) for the mean profile).
+        retention (= exp(-cumulative hazard) for the mean profile). The means
+        are weighted over rows, so they (and this table) move when rows are
+        split; :meth:`predict_retention` for a stated profile does not.
         """
         s = self._stratum_code(stratum)
         a, b = self._index.bounds[s], self._index.bounds[s + 1]
@@ -681,10 +683,10 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         cluster = table.cluster.astype(np.int64)
         clusters = "customer"
     else:
-        cluster = np.arange(table.n_rows)
+        cluster = None
         clusters = "row"
-        warn.append("the table has no customer_id (e.g. compressed): robust errors are by row, "
-                    "not clustered by customer")
+        warn.append("the table has no customer_id (e.g. compressed): robust errors treat each "
+                    "row (times its weight) as independent, not clustered by customer")
     cov_robust = _robust_cov(index, Xc, w, d, res.beta, off, efron, cluster, cov_model)
     se_model = np.sqrt(np.diag(cov_model))
     se_robust = np.sqrt(np.diag(cov_robust))
@@ -713,7 +715,8 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         ci_low=res.beta - zq * se, ci_high=res.beta + zq * se, conf=float(conf), ties=ties,
         strata=strata_t, stratum_labels=stratum_labels, penalty=float(penalty),
         robust=bool(robust), robust_clusters=clusters, n_rows=table.n_rows,
-        n_customers=int(np.count_nonzero(np.bincount(cluster))),
+        n_customers=(int(np.count_nonzero(np.bincount(cluster))) if cluster is not None
+                     else table.n_rows),
         n_events=n_events, events_per_parameter=float(epp), loglik=res.loglik,
         loglik_null=res.loglik0, lr_test=_chi2("likelihood ratio", lr, p),
         wald_test=_chi2("Wald" + (" (robust)" if robust else ""), wald, p),
@@ -726,12 +729,22 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
 
 
 def _robust_cov(index: K.RiskIndex, Xc: np.ndarray, w: np.ndarray, d: np.ndarray,
-                beta: np.ndarray, off: np.ndarray | None, efron: bool, cluster: np.ndarray,
-                cov_model: np.ndarray) -> np.ndarray:
-    r"""Lin & Wei (1989) sandwich :math:`V\,(\sum_c U_cU_c^\top)\,V` with
-    :math:`U_c` the cluster sums of the weighted score residuals."""
-    U = K.score_residuals(index, Xc, w, d, beta, off, efron, cluster, int(cluster.max()) + 1)
-    B = U.T @ U
+                beta: np.ndarray, off: np.ndarray | None, efron: bool,
+                cluster: np.ndarray | None, cov_model: np.ndarray) -> np.ndarray:
+    r"""Lin & Wei (1989) sandwich :math:`V\,B\,V`.
+
+    Clustered by customer: :math:`B = \sum_c U_cU_c^\top` with :math:`U_c` the
+    cluster sums of the weighted score residuals :math:`w_iL_i`. Without
+    customers (``cluster=None``) each row stands for ``weight`` independent rows
+    (a compressed table), so :math:`B = \sum_i w_i L_iL_i^\top`, which equals
+    the by-row sandwich of the expanded table.
+    """
+    if cluster is not None:
+        U = K.score_residuals(index, Xc, w, d, beta, off, efron, cluster, int(cluster.max()) + 1)
+        B = U.T @ U
+    else:
+        U = K.score_residuals(index, Xc, w, d, beta, off, efron)
+        B = (U / w[:, None]).T @ U
     return cov_model @ B @ cov_model
 
 
