@@ -8,9 +8,10 @@
 --     vr__<name> varying numeric with a ratio to its spell-start value
 --   and a null placeholder <group>0 for each group (so every group exists).
 -- Produces: typed columns, the calendar day in the configured zone, our event,
--- its same-day rank, the cause given by the reason, and `reason` = the first
--- row-level quarantine reason (null = usable so far). Ignored events are kept
--- with ignored = true so the reconciliation can count them.
+-- its same-day rank, the cause given by the reason, `reason` = the first
+-- row-level quarantine reason (null = usable so far) and `row_hash` (exact
+-- duplicates are found by the sequence step). Ignored events are kept with
+-- ignored = true so the reconciliation can count them.
 -- Parameters: $timezone, $as_of, $event_from, $event_to, $event_ignore,
 --             $reason_from, $reason_to, $reason_ignore.
 with imported as (
@@ -71,38 +72,27 @@ flagged as (
     from mapped
 ),
 
-deduplicated as (
-    select
-        *,
-        -- exact duplicates: identical in every column retain reads; the first
-        -- (lowest source row) is kept
-        row_number() over (
-            partition by ignored, row(customer_id, event_ts, event_raw, reason_raw,
-                                      *columns('^([sv]c|text)__'))
-            order by source_row
-        ) as copy_number
-    from flagged
-),
-
 final as (
     select
         cast(source_row as bigint) as source_row,
         cast(customer_id as varchar) as customer_id,
         cast(day as date) as day,
+        cast(event_ts as timestamptz) as event_ts,
         cast(event_raw as varchar) as event_raw,
+        cast(reason_raw as varchar) as reason_raw,
         cast(event as varchar) as event,
         cast(list_position(['start', 'update', 'pause', 'resume', 'payment_failed',
                             'payment_recovered', 'end'], event) - 1 as integer) as event_rank,
         cast(cause_given as varchar) as cause_given,
         cast(ignored as boolean) as ignored,
-        cast(case
-            when ignored then null
-            when row_reason is not null then row_reason
-            when copy_number > 1 then 'exact duplicate'
-        end as varchar) as reason,
+        cast(row_reason as varchar) as reason,
+        -- a fingerprint of everything retain reads, to find exact duplicates
+        -- cheaply (the sequence step confirms them value by value)
+        cast(hash(customer_id, event_ts, event_raw, reason_raw,
+                  *columns('^[sv][cnr]__')) as ubigint) as row_hash,
         cast(columns('^([sv]c__.*)$') as varchar) as '\1',
         cast(columns('^[sv][nr]__.*$') as double)
-    from deduplicated
+    from flagged
 )
 
 select * from final

@@ -1,30 +1,61 @@
--- sequence: rows that are well formed but out of order for their customer.
+-- sequence: usable rows that are exact duplicates or out of order.
 --
--- Reads `events` (normalise). A spell is opened by `start` and closed by `end`.
--- With the usable rows in the fixed order (day, same-day rank, source row),
--- the state before a row is "open" exactly when the last start/end before it
--- is a start: in a run of starts only the first opens a spell, in a run of
--- ends only the first closes it, and the state after a run is its kind.
+-- Reads `events` (normalise).
+-- Exact duplicates: rows identical in customer, time, event value, reason and
+-- every attribute (numbers compared as numbers); of each set the first (lowest
+-- source row) is used. Candidates are found by grouping on `row_hash` (cheap);
+-- the few that share a fingerprint are then compared value by value.
+-- Order: a spell is opened by `start` and closed by `end`. With the usable
+-- rows in the fixed order (day, same-day rank, time, source row) the state
+-- before a row is "open" exactly when the last start/end before it is a
+-- start: in a run of starts only the first opens a spell, in a run of ends
+-- only the first closes it, and the state after a run is its kind.
 -- Produces one row per problem: source_row, reason.
 with usable as (
-    select source_row, customer_id, day, event, event_rank
+    select *
     from events
     where not ignored and reason is null
 ),
 
+shared_fingerprints as (
+    select row_hash
+    from usable
+    group by row_hash
+    having count(*) > 1
+),
+
+copies as (
+    select
+        u.source_row,
+        row_number() over (
+            partition by u.customer_id, u.event_ts, u.event_raw, u.reason_raw,
+                         row(*columns('^[sv][cnr]__'))
+            order by u.source_row
+        ) as copy_number
+    from usable as u
+    semi join shared_fingerprints as f on u.row_hash = f.row_hash
+),
+
+duplicates as (
+    select source_row, 'exact duplicate' as reason
+    from copies
+    where copy_number > 1
+),
+
 ordered as (
     select
-        source_row,
-        event,
+        u.source_row,
+        u.event,
         -- the most recent start or end strictly before this row, and whether
         -- any start came before it
-        last_value(case when event in ('start', 'end') then event end ignore nulls)
+        last_value(case when u.event in ('start', 'end') then u.event end ignore nulls)
             over before_row as previous_boundary,
-        coalesce(bool_or(event = 'start') over before_row, false) as started_before
-    from usable
+        coalesce(bool_or(u.event = 'start') over before_row, false) as started_before
+    from usable as u
+    anti join duplicates as d on u.source_row = d.source_row
     window before_row as (
-        partition by customer_id
-        order by day, event_rank, source_row
+        partition by u.customer_id
+        order by u.day, u.event_rank, u.event_ts, u.source_row
         rows between unbounded preceding and 1 preceding
     )
 ),
@@ -46,6 +77,9 @@ final as (
     select cast(source_row as bigint) as source_row, cast(reason as varchar) as reason
     from checked
     where reason is not null
+    union all
+    select cast(source_row as bigint) as source_row, cast(reason as varchar) as reason
+    from duplicates
 )
 
 select * from final

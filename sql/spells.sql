@@ -52,11 +52,11 @@ states as (
         lead(day) over upto as next_day
     from used
     window
-        upto as (partition by customer_id order by day, event_rank, source_row
+        upto as (partition by customer_id order by day, event_rank, event_ts, source_row
                  rows between unbounded preceding and current row),
-        whole as (partition by customer_id order by day, event_rank, source_row
+        whole as (partition by customer_id order by day, event_rank, event_ts, source_row
                   rows between unbounded preceding and unbounded following),
-        rest as (partition by customer_id order by day, event_rank, source_row
+        rest as (partition by customer_id order by day, event_rank, event_ts, source_row
                  rows between current row and unbounded following)
 ),
 

@@ -88,7 +88,7 @@ def naive_prepare(rows, *, window_start=None):
         else:
             why = None
         key = (cid, day, raw, reason, _text(r["plan"]), _text(r["channel"]),
-               _text(r["region"]), _text(r["arm"]), _text(r["monthly_price"]))
+               _text(r["region"]), _text(r["arm"]), price)  # numbers compared as numbers
         if why is None and key in seen:
             why = "exact duplicate"
         seen.add(key)

@@ -176,3 +176,12 @@ def test_start_and_end_runs(tmp_path):
                                           "end without an open spell": 1}
     assert rows_of(p, CORE) == [("b", 1, 0.0, 10.0, 1, "voluntary"),
                                 ("b", 2, 0.0, 10.0, 1, "voluntary")]
+
+
+def test_duplicates_compare_numbers_as_numbers_and_times_to_the_second(tmp_path):
+    p = run(tmp_path, [signup("a", "2024-01-01 10:00:00"),
+                       signup("a", "2024-01-01 10:00:00", price="10.0"),
+                       ("a", "2024-01-31 08:00:00", "cancel"),
+                       ("a", "2024-01-31 09:00:00", "cancel")])
+    assert [(r["source_row"], r["quarantine_reason"]) for r in p.quarantine.to_pylist()] == [
+        (2, "exact duplicate"), (4, "end without an open spell")]

@@ -223,3 +223,12 @@ def test_ratio_is_missing_when_the_base_is_zero_or_missing(tmp_path, price, rati
                        ("a", "2024-01-11", "price_change", None, None, "5"),
                        ("a", "2024-01-21", "cancel")])
     assert rows_of(p, ("price_ratio",)) == [(ratio,), (ratio,)]
+
+
+def test_same_day_same_kind_events_apply_in_time_order(tmp_path):
+    """Two price changes on one day: the later time wins, whatever the file order."""
+    p = run(tmp_path, [signup("a", "2024-01-01 09:00"),
+                       ("a", "2024-01-11 17:00", "price_change", None, None, "14"),
+                       ("a", "2024-01-11 08:00", "price_change", None, None, "12"),
+                       ("a", "2024-01-21 09:00", "cancel")])
+    assert rows_of(p, ("start", "stop", "price")) == [(0.0, 10.0, 10.0), (10.0, 20.0, 14.0)]

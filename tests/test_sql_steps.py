@@ -37,9 +37,10 @@ NUMS = [("vr__price", "DOUBLE"), ("sn__0", "DOUBLE"), ("vn__0", "DOUBLE"), ("vr_
 def test_normalise_columns(con):
     assert schema(con, "events") == [
         ("source_row", "BIGINT"), ("customer_id", "VARCHAR"), ("day", "DATE"),
-        ("event_raw", "VARCHAR"), ("event", "VARCHAR"), ("event_rank", "INTEGER"),
+        ("event_ts", "TIMESTAMP WITH TIME ZONE"), ("event_raw", "VARCHAR"),
+        ("reason_raw", "VARCHAR"), ("event", "VARCHAR"), ("event_rank", "INTEGER"),
         ("cause_given", "VARCHAR"), ("ignored", "BOOLEAN"), ("reason", "VARCHAR"),
-        *ATTRS, *NUMS]
+        ("row_hash", "UBIGINT"), *ATTRS, *NUMS]
 
 
 def test_sequence_columns(con):
