@@ -251,7 +251,11 @@ class StartStop:
 
     @property
     def n_customers(self) -> int:
-        return int(np.unique(self.customer.codes).shape[0])
+        codes = self.customer.codes
+        if codes.size == 0:
+            return 0
+        seen = np.bincount(codes[codes >= 0], minlength=len(self.customer.levels))
+        return int(np.count_nonzero(seen))
 
     @property
     def n_events(self) -> float:
