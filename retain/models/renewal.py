@@ -392,26 +392,39 @@ def _fit_counts(counts: RenewalCounts, conf: float, where: str) -> RenewalFit:
     q1 = min(max(counts.churned[0] / risk1 if risk1 > 0 else 0.3, 0.02), 0.98)
     theta0 = np.log([2.0 * q1, 2.0 * (1.0 - q1)])
     theta, ll, _, hess, history, converged = newton_maximize(fun, theta0, max_iter=200)
+    info_ok = bool(np.all(np.isfinite(hess))) and _negative_definite(hess)
+    if np.max(theta) > math.log(1e6) or (converged and not info_ok):
+        # the likelihood keeps rising as alpha, beta -> infinity with alpha/(alpha+beta)
+        # fixed: one retention rate for everyone (geometric lifetimes)
+        risk = counts.at_risk
+        rate = 1.0 - float(counts.churned.sum()) / float(risk[risk > 0].sum())
+        raise ModelError(where, "the retention rates do not rise with tenure, so the sBG "
+                         "maximum lies at alpha, beta -> infinity (no heterogeneity between "
+                         f"customers; a constant retention rate of {rate:.1%} per period)",
+                         "project with the constant rate (the exponential model) or wait for "
+                         "more periods")
     if not converged:
         raise ConvergenceError(where, "the sBG fit did not converge",
-                               "the retention rates may not rise with tenure (then alpha, beta "
-                               "run off to infinity: a constant churn rate); see the history",
+                               "check the counts; the iteration history is attached",
                                history=history)
-    try:
-        cov = np.linalg.inv(-hess)
-        np.linalg.cholesky(-hess)
-    except np.linalg.LinAlgError as exc:
-        raise ModelError(where, "the information matrix is singular at the estimate",
-                         "too few periods observed to separate alpha from beta") from exc
+    cov = np.linalg.inv(-hess)
     warnings: list[str] = []
     a, b = float(np.exp(theta[0])), float(np.exp(theta[1]))
-    if a > 1e4 or b > 1e4:
+    if a > 1e3 or b > 1e3:
         warnings.append("alpha and beta are very large: little sign of heterogeneity, the "
                         "projection is close to a constant retention rate")
     return RenewalFit(label=counts.label, alpha=a, beta=b, cov=cov, loglik=float(ll),
                       counts=counts, n_customers=float(counts.at_risk[0]),
                       n_periods=counts.n_periods, period_days=counts.period_days,
                       conf=float(conf), iterations=len(history), warnings=tuple(warnings))
+
+
+def _negative_definite(hess: np.ndarray) -> bool:
+    try:
+        np.linalg.cholesky(-hess)
+    except np.linalg.LinAlgError:
+        return False
+    return True
 
 
 def _check_conf(conf: float, where: str) -> None:
@@ -570,11 +583,12 @@ def backtest_renewal(source: StartStop | Sequence[float] | Sequence[Sequence[flo
                                   float(period_days), label, horizon=k)
     else:
         full = _counts_from_survivors(source, label)
-        train = full.truncated(k) if k < full.n_periods else full
     if not (1 <= k < full.n_periods):
         raise ModelError(where, f"train_periods must be between 1 and {full.n_periods - 1} "
                          f"(the data cover {full.n_periods} renewals), got {train_periods!r}",
                          "hold out at least one observed renewal")
+    if not isinstance(source, StartStop):
+        train = full.truncated(k)
     fit = _fit_counts(train, conf, where)
     proj = fit.project(full.n_periods)
     obs = full.observed_survival
