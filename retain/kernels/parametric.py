@@ -107,6 +107,10 @@ class SurvivalRows:
                    w * (t2 - t1))
 
     @property
+    def total_exposure(self) -> float:
+        return float(self.w_exposure.sum())
+
+    @property
     def all_entered(self) -> bool:
         return self.entered.shape[0] == self.t1.shape[0]
 
@@ -172,10 +176,13 @@ def exponential_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bo
     p = X.shape[1]
     b0 = float(theta[0])
     beta = np.asarray(theta[1:], dtype=np.float64)
-    m = _eta(b0, beta, X)
-    np.exp(m, out=m)
-    m *= rows.w_exposure
-    sum_m = float(m.sum())
+    if p:
+        m = _eta(b0, beta, X)
+        np.exp(m, out=m)
+        m *= rows.w_exposure
+        sum_m = float(m.sum())
+    else:
+        sum_m = float(np.exp(b0)) * rows.total_exposure
     lin_d = b0 * rows.sum_wd + (float(rows.wd_X @ beta) if p else 0.0)
     ll = lin_d - sum_m
     if not derivatives:
@@ -229,34 +236,50 @@ def weibull_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bool =
     g = float(theta[1])
     alpha = float(np.exp(g))
     beta = np.asarray(theta[2:], dtype=np.float64)
-    m = _eta(b0, beta, X)
-    np.exp(m, out=m)
-    if not rows.unit_weight:
-        m *= rows.w
+    if p:
+        m = _eta(b0, beta, X)
+        np.exp(m, out=m)
+        if not rows.unit_weight:
+            m *= rows.w
+
+        def msum(v: np.ndarray) -> float:
+            return float(m @ v)
+    else:
+        # no covariates: exp(eta) is one number, so no per-row exponential
+        scale = float(np.exp(b0))
+
+        def msum(v: np.ndarray) -> float:
+            return scale * (float(v.sum()) if rows.unit_weight else float(rows.w @ v))
+
+    no_entry = rows.entered.shape[0] == 0
     e2 = np.exp(alpha * rows.log_t2)
-    if rows.all_entered:
+    if no_entry:
+        A = e2
+        e1 = None
+    elif rows.all_entered:
         e1 = np.exp(alpha * rows.log_t1)
+        A = e2 - e1
     else:
         e1 = np.zeros_like(e2)
         idx = rows.entered
         e1[idx] = np.exp(alpha * rows.log_t1[idx])
-    A = e2 - e1
-    mA = m * A
-    sum_mA = float(mA.sum())
+        A = e2 - e1
+    sum_mA = msum(A)
     lin_d = b0 * rows.sum_wd + (float(rows.wd_X @ beta) if p else 0.0)
     ll = lin_d + g * rows.sum_wd + (alpha - 1.0) * rows.wd_log_t2 - sum_mA
     if not derivatives:
         return ll, None, None
-    e2 *= rows.log_t2            # e2 L2
-    e1 *= rows.log_t1            # e1 L1
-    B = e2 - e1
+    mA = m * A if p else None
+    B = e2 * rows.log_t2         # e2 L2
+    e2L2 = B * rows.log_t2       # e2 L2^2
+    if e1 is not None:
+        e1L = e1 * rows.log_t1
+        B -= e1L
+        e1L *= rows.log_t1
+        e2L2 -= e1L
     B *= alpha
-    mB = m * B
-    sum_mB = float(mB.sum())
-    e2 *= rows.log_t2            # e2 L2^2
-    e1 *= rows.log_t1            # e1 L1^2
-    e2 -= e1
-    sum_mC = alpha * alpha * float(m @ e2)
+    sum_mB = msum(B)
+    sum_mC = alpha * alpha * msum(e2L2)
     k = 2 + p
     grad = np.empty(k)
     grad[0] = rows.sum_wd - sum_mA
@@ -268,7 +291,7 @@ def weibull_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bool =
     if p:
         both = np.empty((X.shape[0], 2))
         both[:, 0] = mA
-        both[:, 1] = mB
+        np.multiply(m, B, out=both[:, 1])
         xs = X.T @ both              # one pass over X for both scores
         grad[2:] = rows.wd_X - xs[:, 0]
         hess[0, 2:] = hess[2:, 0] = -xs[:, 0]
@@ -486,6 +509,17 @@ def band_hazard_integral(cuts: np.ndarray, t: np.ndarray) -> np.ndarray:
     return exposure
 
 
+def _prologue(kind: str, theta: np.ndarray, x: np.ndarray, t: np.ndarray,
+              cuts: np.ndarray | None) -> tuple:
+    """Shared set-up of the prediction functions: (t, cuts, K, base, alpha, x'b)."""
+    t = np.asarray(t, dtype=np.float64)
+    cuts = np.zeros(0) if cuts is None else np.asarray(cuts, dtype=np.float64)
+    K = cuts.shape[0] + 1
+    base, alpha, beta = _split(kind, theta, K)
+    xb = float(x @ beta) if beta.shape[0] else 0.0
+    return t, cuts, K, base, alpha, xb
+
+
 def log_cumulative_hazard(kind: str, theta: np.ndarray, x: np.ndarray, t: np.ndarray,
                           cuts: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """log H(t | x) and its Jacobian in theta, for t > 0.
@@ -495,12 +529,8 @@ def log_cumulative_hazard(kind: str, theta: np.ndarray, x: np.ndarray, t: np.nda
     Piecewise: log H = log sum_k exp(a_k) E_k(t) + x'b,
     d/da_k = exp(a_k) E_k(t) / H_0(t), d/db = x.
     """
-    t = np.asarray(t, dtype=np.float64)
+    t, cuts, K, base, alpha, xb = _prologue(kind, theta, x, t, cuts)
     m = t.shape[0]
-    cuts = np.zeros(0) if cuts is None else np.asarray(cuts, dtype=np.float64)
-    K = cuts.shape[0] + 1
-    base, alpha, beta = _split(kind, theta, K)
-    xb = float(x @ beta) if beta.shape[0] else 0.0
     jac = np.empty((m, theta.shape[0]))
     if kind == "piecewise":
         parts = band_hazard_integral(cuts, t) * np.exp(base)[None, :]
@@ -527,12 +557,8 @@ def log_hazard(kind: str, theta: np.ndarray, x: np.ndarray, t: np.ndarray,
     Weibull: log h = g + eta + (alpha - 1) log t, d/d(b0, g, b) = (1, 1 + alpha log t, x).
     Exponential: log h = eta. Piecewise: log h = a_k(t) + x'b.
     """
-    t = np.asarray(t, dtype=np.float64)
+    t, cuts, K, base, alpha, xb = _prologue(kind, theta, x, t, cuts)
     m = t.shape[0]
-    cuts = np.zeros(0) if cuts is None else np.asarray(cuts, dtype=np.float64)
-    K = cuts.shape[0] + 1
-    base, alpha, beta = _split(kind, theta, K)
-    xb = float(x @ beta) if beta.shape[0] else 0.0
     jac = np.zeros((m, theta.shape[0]))
     if kind == "piecewise":
         band = np.clip(np.searchsorted(cuts, t, side="left"), 0, K - 1)
@@ -562,10 +588,7 @@ def quantile_time(kind: str, theta: np.ndarray, x: np.ndarray, p: float,
     inf when the hazard beyond the last cut is zero and H never reaches it.
     """
     target = -np.log1p(-p)
-    cuts = np.zeros(0) if cuts is None else np.asarray(cuts, dtype=np.float64)
-    K = cuts.shape[0] + 1
-    base, alpha, beta = _split(kind, theta, K)
-    xb = float(x @ beta) if beta.shape[0] else 0.0
+    _, cuts, K, base, alpha, xb = _prologue(kind, theta, x, np.zeros(0), cuts)
     if kind != "piecewise":
         return float(np.exp((np.log(target) - base[0] - xb) / alpha))
     rate = np.exp(base + xb)
@@ -591,10 +614,7 @@ def mean_time(kind: str, theta: np.ndarray, x: np.ndarray, horizon: float | None
     (1 - exp(-lambda tau))/lambda. Piecewise: sum over bands of
     S(c_k) (1 - exp(-r_k w_k)) / r_k.
     """
-    cuts = np.zeros(0) if cuts is None else np.asarray(cuts, dtype=np.float64)
-    K = cuts.shape[0] + 1
-    base, alpha, beta = _split(kind, theta, K)
-    xb = float(x @ beta) if beta.shape[0] else 0.0
+    _, cuts, K, base, alpha, xb = _prologue(kind, theta, x, np.zeros(0), cuts)
     eta = float(base[0]) + xb if kind != "piecewise" else 0.0
     if kind in ("weibull", "exponential"):
         sigma = np.exp(-eta / alpha)

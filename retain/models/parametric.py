@@ -480,6 +480,17 @@ class ParametricFit(Result):
         x = self.design.rows_for(full)[0] if self.covariates else np.zeros(0)
         return x, {k: to_jsonable(v) for k, v in profile.items()}, filled
 
+    def _prediction_times(self, times: Sequence[float] | np.ndarray | None) -> np.ndarray:
+        """Checked tenures (days); default every month to twice the longest observed."""
+        if times is None:
+            top = max(2.0 * self.follow_up, DAYS_PER_MONTH)
+            times = np.arange(0.0, top + 1e-9, DAYS_PER_MONTH)
+        t = np.atleast_1d(np.asarray(times, dtype=np.float64))
+        if np.any(~np.isfinite(t)) or np.any(t < 0):
+            raise DataError("prediction times", "times must be finite tenures >= 0 (days)",
+                            "pass e.g. numpy.arange(0, 731, 30.4375)")
+        return t
+
     def hazard(self, profile: Mapping[str, Any] | None = None,
                times: Sequence[float] | np.ndarray | None = None) -> np.ndarray:
         """Fitted hazard (per day) at the given tenures (days) for a profile."""
@@ -494,13 +505,7 @@ class ParametricFit(Result):
         Intervals: log H +- z se (delta method) mapped to S = exp(-H).
         """
         x, prof, filled = self._profile_row(profile)
-        if times is None:
-            top = max(2.0 * self.follow_up, DAYS_PER_MONTH)
-            times = np.arange(0.0, top + 1e-9, DAYS_PER_MONTH)
-        t = np.atleast_1d(np.asarray(times, dtype=np.float64))
-        if np.any(~np.isfinite(t)) or np.any(t < 0):
-            raise DataError("prediction times", "times must be finite tenures >= 0 (days)",
-                            "pass e.g. numpy.arange(0, 731, 30.4375)")
+        t = self._prediction_times(times)
         z = self._z
         pos = t > 0
         tp = np.where(pos, t, 1.0)
@@ -606,13 +611,7 @@ class ParametricFit(Result):
         if not isinstance(table, StartStop):
             raise DataError("segment retention", "expected a StartStop table",
                             "pass the segment's rows, e.g. table.take(mask)")
-        if times is None:
-            top = max(2.0 * self.follow_up, DAYS_PER_MONTH)
-            times = np.arange(0.0, top + 1e-9, DAYS_PER_MONTH)
-        t = np.atleast_1d(np.asarray(times, dtype=np.float64))
-        if np.any(~np.isfinite(t)) or np.any(t < 0):
-            raise DataError("prediction times", "times must be finite tenures >= 0 (days)",
-                            "pass e.g. numpy.arange(0, 731, 30.4375)")
+        t = self._prediction_times(times)
         if table.has_customers:
             heads = np.unique(first_of_spell(table.customer.codes, table.spell, table.start))
         else:
