@@ -39,7 +39,7 @@ SCALE = 400.0
 def make_table(n_rows: int, seed: int = 0, covariates: bool = True) -> StartStop:
     """Two rows per customer (a covariate change at a random tenure), delayed entry."""
     rng = np.random.default_rng(seed)
-    n = n_rows // 2
+    n = int(n_rows * 0.7)     # about 1.4 rows per customer: then cut to n_rows rows
     Z = rng.normal(size=(n, 7)) * 0.5
     region = rng.integers(0, 4, n)
     beta = np.array([0.3, -0.2, 0.1, 0.25, -0.15, 0.05, 0.2])
@@ -62,7 +62,12 @@ def make_table(n_rows: int, seed: int = 0, covariates: bool = True) -> StartStop
     start = np.concatenate((entry, np.where(one, np.nan, split)))
     stop = np.concatenate((np.where(one, end, split), np.where(one, np.nan, end)))
     churned = np.concatenate((np.where(one, died, 0), np.where(one, 0, died)))
-    keep = np.isfinite(start)
+    # keep whole customers, the first k of them, so that about n_rows rows remain
+    per_customer = 1 + (~one).astype(np.int64)
+    k = int(np.searchsorted(np.cumsum(per_customer), n_rows, side="right"))
+    first_k = np.zeros(n, dtype=bool)
+    first_k[:k] = True
+    keep = np.isfinite(start) & np.concatenate((first_k, first_k))
     cov = {}
     if covariates:
         for j in range(6):
