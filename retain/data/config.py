@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from retain.data.table import CAUSES
 from retain.errors import ConfigError
 
 if sys.version_info >= (3, 11):
@@ -26,7 +27,6 @@ else:  # pragma: no cover - Python 3.10 only
 
 #: Our event vocabulary, in the fixed order same-day events are applied.
 EVENTS = ("start", "update", "pause", "resume", "payment_failed", "payment_recovered", "end")
-CAUSES = ("voluntary", "involuntary")
 KINDS = ("categorical", "numeric")
 CURVES = ("weibull", "exponential", "cox", "km_weibull_tail", "renewal")
 FORMATS = ("csv", "parquet")
@@ -449,33 +449,35 @@ def _events(s: _Section) -> EventMap:
     if not m:
         raise ConfigError(s.where("map"), "is required and must not be empty",
                           'add map = { signup = "start", cancel = "end", ... }')
-    for theirs, ours in m.items():
-        if ours not in EVENTS:
-            raise ConfigError(s.where(f"map.{theirs}"), f"{ours!r} is not an event of ours",
-                              f"allowed values: {', '.join(EVENTS)}")
+    ignore = _checked_map(s, m, EVENTS, "an event of ours")
     for needed in ("start", "end"):
         if needed not in m.values():
             raise ConfigError(s.where("map"), f"no event maps to {needed!r}",
                               f"map the value that marks a spell's {needed} onto {needed!r}")
+    return EventMap(map=m, ignore=ignore, strict=s.boolean("strict", False))
+
+
+def _checked_map(s: _Section, m: dict, allowed: tuple, what: str) -> tuple:
+    """Check a ``map`` of their values onto ours and its ``ignore`` list; return the list.
+
+    Checked in this order: every mapped value is in ``allowed``; no value is
+    both mapped and ignored.
+    """
+    for theirs, ours in m.items():
+        if ours not in allowed:
+            raise ConfigError(s.where(f"map.{theirs}"), f"{ours!r} is not {what}",
+                              f"allowed values: {', '.join(allowed)}")
     ignore = s.texts("ignore")
     both = sorted(set(ignore) & set(m))
     if both:
         raise ConfigError(s.where("ignore"), f"{both[0]!r} is both mapped and ignored",
                           "remove it from one of map and ignore")
-    return EventMap(map=m, ignore=ignore, strict=s.boolean("strict", False))
+    return ignore
 
 
 def _reasons(s: _Section, strict_default: bool) -> ReasonMap:
     m = s.mapping("map")
-    for theirs, ours in m.items():
-        if ours not in CAUSES:
-            raise ConfigError(s.where(f"map.{theirs}"), f"{ours!r} is not a cause",
-                              f"allowed values: {', '.join(CAUSES)}")
-    ignore = s.texts("ignore")
-    both = sorted(set(ignore) & set(m))
-    if both:
-        raise ConfigError(s.where("ignore"), f"{both[0]!r} is both mapped and ignored",
-                          "remove it from one of map and ignore")
+    ignore = _checked_map(s, m, CAUSES, "a cause")
     return ReasonMap(map=m, ignore=ignore, strict=s.boolean("strict", strict_default))
 
 
