@@ -8,9 +8,13 @@ The risk-set index is built once (:func:`build_risk_index`): the distinct churn
 times :math:`t_1 < \dots < t_K` of each stratum are laid end to end, and each
 row's risk window is the contiguous range ``[lo_i, hi_i)`` of those times,
 found with one ``searchsorted`` for its start and one for its stop. Every
-risk-set sum is then a difference array (``bincount`` at ``lo`` minus
-``bincount`` at ``hi``) and one cumulative sum; sums over a row's window of a
-per-time quantity are two gathers from a cumulative sum.
+risk-set sum is then a difference array (``+v_i`` at ``lo_i``, ``-v_i`` at
+``hi_i``) and one cumulative sum; sums over a row's window of a per-time
+quantity are two gathers from a cumulative sum. For the :math:`p` columns of
+:math:`S_1` at once the difference array is one sparse product
+:math:`M\,X` with :math:`M` the :math:`(K+1)\times n` matrix holding
+:math:`\pm r_i` in column :math:`i` (two entries per column, compressed-column
+form), which streams over a C-ordered ``X`` once.
 
 Log partial likelihood with Efron ties (Efron 1977, JASA 72:557; the weighted
 form of Therneau & Grambsch 2000, *Modeling Survival Data*, sec. 3.3). At
@@ -61,9 +65,13 @@ class RiskIndex(NamedTuple):
     bounds: np.ndarray        # (S+1,) times[bounds[s]:bounds[s+1]] belong to stratum s
     lo: np.ndarray            # (n,) first churn time index at which the row is at risk
     hi: np.ndarray            # (n,) one past the last
+    window_rows: np.ndarray   # (2n,) lo and hi of each row, interleaved (the difference operator)
+    window_ptr: np.ndarray    # (n+1,) 0, 2, 4, ...: row i's two entries in window_rows
     event_rows: np.ndarray    # (E,) rows that churn
     event_k: np.ndarray       # (E,) churn-time index of each of those rows (ascending)
     event_starts: np.ndarray  # (K,) where each churn time's rows begin in event_rows
+    churn_rows: np.ndarray    # (E,) the same rows in row order (gathers stream through memory)
+    churn_k: np.ndarray       # (E,) churn-time index of each of those
     deaths: np.ndarray        # (K,) weighted churns D_k
     units: np.ndarray         # (K,) Efron tie units m_k
     omega: np.ndarray         # (K,) D_k / m_k
@@ -120,8 +128,9 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
     times = tt[new]
     time_stratum = ss[new]
     bounds = np.searchsorted(time_stratum, np.arange(n_strata + 1), side="left").astype(np.int64)
-    lo = np.empty(n, dtype=np.int64)
-    hi = np.empty(n, dtype=np.int64)
+    itype = np.int32 if n < 2**31 - 1 else np.int64
+    lo = np.empty(n, dtype=itype)
+    hi = np.empty(n, dtype=itype)
     if n_strata == 1:
         lo[:] = positions_right(times, start)
         hi[:] = positions_right(times, stop)
@@ -151,8 +160,15 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
     first = np.cumsum(units) - units
     unit_f = (np.arange(unit_k.shape[0]) - first[unit_k]) / units[unit_k]
     event_starts = np.flatnonzero(new)
-    return RiskIndex(times, time_stratum, bounds, lo, hi, event_rows, event_k, event_starts,
-                     deaths, units, omega, unit_k, unit_f, int(n_strata))
+    window_rows = np.empty(2 * n, dtype=itype)
+    window_rows[0::2] = lo
+    window_rows[1::2] = hi
+    window_ptr = np.arange(0, 2 * n + 1, 2, dtype=itype)
+    churn_k = np.empty(ev.shape[0], dtype=np.int64)
+    churn_k[o] = event_k
+    return RiskIndex(times, time_stratum, bounds, lo, hi, window_rows, window_ptr, event_rows,
+                     event_k, event_starts, ev, churn_k, deaths, units, omega, unit_k, unit_f,
+                     int(n_strata))
 
 
 def window_sum(index: RiskIndex, per_time: np.ndarray) -> np.ndarray:
@@ -162,31 +178,30 @@ def window_sum(index: RiskIndex, per_time: np.ndarray) -> np.ndarray:
     """
     c = np.zeros((per_time.shape[0] + 1,) + per_time.shape[1:])
     np.cumsum(per_time, axis=0, out=c[1:])
-    return c[index.hi] - c[index.lo]
+    out = c[index.hi]
+    out -= c[index.lo]
+    return out
 
 
 def risk_sums(index: RiskIndex, r: np.ndarray, X: np.ndarray | None = None
               ) -> tuple[np.ndarray, np.ndarray | None]:
     """S0 (K,) and S1 (K, p): sums of ``r`` and ``r x`` over each risk set.
 
-    Difference arrays (bincount at ``lo`` minus bincount at ``hi``) and one
-    cumulative sum. ``X`` is best Fortran-ordered (one column at a time).
+    Difference arrays and one cumulative sum: ``bincount`` at ``lo`` minus at
+    ``hi`` for S0; for S1 the sparse product :math:`M X` (module docstring),
+    one pass over ``X`` with no (n, p) temporary when ``X`` is C-ordered.
     """
     K = index.times.shape[0]
     lo, hi = index.lo, index.hi
-
-    def diff(v: np.ndarray) -> np.ndarray:
-        return np.bincount(lo, v, K + 1) - np.bincount(hi, v, K + 1)
-
-    S0 = np.cumsum(diff(r))[:K]
+    S0 = np.cumsum(np.bincount(lo, r, K + 1) - np.bincount(hi, r, K + 1))[:K]
     if X is None:
         return S0, None
-    p = X.shape[1]
-    S1 = np.empty((K, p))
-    buf = np.empty_like(r)
-    for j in range(p):
-        np.multiply(r, X[:, j], out=buf)
-        S1[:, j] = np.cumsum(diff(buf))[:K]
+    data = np.empty(2 * r.shape[0])
+    data[0::2] = r
+    np.negative(r, out=data[1::2])
+    M = sparse.csc_matrix((data, index.window_rows, index.window_ptr),
+                          shape=(K + 1, r.shape[0]), copy=False)
+    S1 = np.cumsum(M @ np.ascontiguousarray(X), axis=0)[:K]
     return S0, S1
 
 
@@ -209,18 +224,19 @@ def time_stats(index: RiskIndex, X: np.ndarray, r: np.ndarray, efron: bool,
                X_ev: np.ndarray | None = None) -> TimeStats:
     """Risk-set sums and the Efron (or Breslow) scalars at each churn time.
 
-    ``X_ev`` is ``X[index.event_rows]`` if the caller keeps it (saves a gather).
+    ``X_ev`` is ``X[index.churn_rows]`` if the caller keeps it (saves a gather).
     """
     K = index.times.shape[0]
     S0, S1 = risk_sums(index, r, X)
     assert S1 is not None
-    er = index.event_rows
-    rev = r[er]
+    cr, ck = index.churn_rows, index.churn_k
+    rev = r[cr]
     if X_ev is None:
-        X_ev = X[er]
-    T0 = np.add.reduceat(rev, index.event_starts) if K else np.zeros(0)
-    T1 = np.add.reduceat(X_ev * rev[:, None], index.event_starts, axis=0) if K \
-        else np.zeros((0, X.shape[1]))
+        X_ev = X[cr]
+    T0 = np.bincount(ck, rev, K)
+    E = cr.shape[0]
+    tied = sparse.csc_matrix((rev, ck, np.arange(E + 1)), shape=(K, E), copy=False)
+    T1 = tied @ np.ascontiguousarray(X_ev)
     if efron:
         uk = index.unit_k
         f = index.unit_f
@@ -248,15 +264,80 @@ def time_stats(index: RiskIndex, X: np.ndarray, r: np.ndarray, efron: bool,
 def weighted_cross(X: np.ndarray, v: np.ndarray, chunk: int = CHUNK) -> np.ndarray:
     """:math:`X^\\top \\mathrm{diag}(v) X` for ``v >= 0``, in row chunks (no n x p temporary).
 
-    Computed as :math:`Y^\\top Y` with :math:`Y = \\mathrm{diag}(\\sqrt v)X`, chunk by chunk.
+    Computed as :math:`Y^\\top Y` with :math:`Y = \\mathrm{diag}(\\sqrt v)X`, chunk by chunk
+    into one reused buffer.
     """
-    p = X.shape[1]
+    n, p = X.shape
     H = np.zeros((p, p))
-    s = np.sqrt(np.maximum(v, 0.0))
-    for a in range(0, X.shape[0], chunk):
-        Yb = X[a:a + chunk] * s[a:a + chunk, None]
+    Y = np.empty((min(chunk, n), p))
+    s = np.empty(min(chunk, n))
+    for a in range(0, n, chunk):
+        b = min(a + chunk, n)
+        Yb, sb = Y[:b - a], s[:b - a]
+        np.maximum(v[a:b], 0.0, out=sb)
+        np.sqrt(sb, out=sb)
+        np.multiply(X[a:b], sb[:, None], out=Yb)
         H += Yb.T @ Yb
     return H
+
+
+class RiskState(NamedTuple):
+    """Everything at one coefficient vector that the score, information, residuals and
+    baseline share: computed once per Newton step and handed on."""
+
+    beta: np.ndarray
+    r: np.ndarray       # (n,) w exp(eta - shift)
+    shift: float        # max eta (keeps exp finite)
+    linear: float       # sum over churn rows of w * eta
+    stats: TimeStats
+
+
+def risk_state(index: RiskIndex, X: np.ndarray, weight: np.ndarray, beta: np.ndarray,
+               offset: np.ndarray | None = None, efron: bool = True,
+               X_ev: np.ndarray | None = None) -> RiskState:
+    """Linear predictor, risk scores and per-time sums at ``beta`` (one pass for eta,
+    one for the risk sums). ``X_ev`` as in :func:`time_stats`."""
+    er = index.churn_rows
+    beta = np.asarray(beta, dtype=float)
+    if offset is None and not beta.any():
+        r = np.array(weight, dtype=float)  # eta = 0: no pass over X needed
+        shift = 0.0
+        linear = 0.0
+    else:
+        eta = X @ beta
+        if offset is not None:
+            eta += offset
+        shift = float(eta.max()) if eta.size else 0.0
+        linear = float(np.dot(weight[er], eta[er]))
+        eta -= shift
+        r = np.exp(eta, out=eta)
+        r *= weight
+    return RiskState(beta, r, shift, linear, time_stats(index, X, r, efron, X_ev))
+
+
+def derivatives_at(index: RiskIndex, X: np.ndarray, state: RiskState, dwX: np.ndarray,
+                   efron: bool = True, hessian: bool = True
+                   ) -> tuple[float, np.ndarray, np.ndarray | None]:
+    """Log partial likelihood, score and information from a :class:`RiskState`."""
+    st = state.stats
+    ll = state.linear - st.log_term - state.shift * float(index.deaths.sum())
+    grad = dwX - (st.alpha @ st.S1 - st.beta @ st.T1)
+    if not hessian:
+        return ll, grad, None
+    r = state.r
+    er, ek = index.churn_rows, index.churn_k
+    v = window_sum(index, st.alpha)
+    v *= r
+    if efron:
+        v[er] -= r[er] * st.beta[ek]
+    H = weighted_cross(X, v)
+    del v
+    S1, T1 = st.S1, st.T1
+    outer = (S1 * st.gamma[:, None]).T @ S1
+    if efron:
+        c = (S1 * st.delta[:, None]).T @ T1
+        outer = outer - c - c.T + (T1 * st.eps[:, None]).T @ T1
+    return ll, grad, H - outer
 
 
 def cox_derivatives(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
@@ -267,44 +348,28 @@ def cox_derivatives(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     """Log partial likelihood, score and information (negative Hessian) at ``beta``.
 
     See the module docstring for the formulas. ``X`` should be centred (the
-    likelihood does not change; the sums are better conditioned). ``X_ev``
-    (``X[event_rows]``) and ``dwX`` (:math:`\\sum_i d_iw_ix_i`) do not change with
-    ``beta``; callers that iterate pass them in.
+    likelihood does not change; the sums are better conditioned) and is best
+    C-ordered. ``X_ev`` (``X[churn_rows]``) and ``dwX`` (:math:`\\sum_i d_iw_ix_i`)
+    do not change with ``beta``; callers that iterate pass them in. ``churned``
+    is only used for ``dwX``: the churn rows are ``index.churn_rows``.
     """
-    eta = X @ beta
-    if offset is not None:
-        eta = eta + offset
-    shift = float(eta.max()) if eta.size else 0.0
-    r = weight * np.exp(eta - shift)
-    st = time_stats(index, X, r, efron, X_ev)
-    dw = weight * churned
-    D_total = float(index.deaths.sum())
-    ll = float(np.dot(dw, eta)) - st.log_term - shift * D_total
+    state = risk_state(index, X, weight, beta, offset, efron, X_ev)
     if dwX is None:
-        dwX = dw @ X
-    grad = dwX - (st.alpha @ st.S1 - st.beta @ st.T1)
-    if not hessian:
-        return ll, grad, None
-    A = window_sum(index, st.alpha)
-    v = r * A
-    if efron:
-        v[index.event_rows] -= r[index.event_rows] * st.beta[index.event_k]
-    H = weighted_cross(X, v)
-    S1, T1 = st.S1, st.T1
-    outer = (S1 * st.gamma[:, None]).T @ S1
-    if efron:
-        c = (S1 * st.delta[:, None]).T @ T1
-        outer = outer - c - c.T + (T1 * st.eps[:, None]).T @ T1
-    return ll, grad, H - outer
+        dwX = (weight * churned) @ X
+    return derivatives_at(index, X, state, dwX, efron, hessian)
 
 
 def breslow_increments(index: RiskIndex, X: np.ndarray, weight: np.ndarray, beta: np.ndarray,
-                       offset: np.ndarray | None = None) -> np.ndarray:
+                       offset: np.ndarray | None = None, state: RiskState | None = None
+                       ) -> np.ndarray:
     """Breslow (1972) baseline hazard increments :math:`dH_0(t_k) = D_k / S_0(t_k)`.
 
     At the covariate vector ``x = 0`` of ``X`` (the column means when ``X`` is
-    centred), with the offset included in the linear predictor.
+    centred), with the offset included in the linear predictor. A
+    :class:`RiskState` at ``beta`` already holds :math:`S_0 e^{-\\text{shift}}`.
     """
+    if state is not None:
+        return index.deaths / state.stats.S0 * np.exp(-state.shift)
     eta = X @ beta
     if offset is not None:
         eta = eta + offset
@@ -314,8 +379,8 @@ def breslow_increments(index: RiskIndex, X: np.ndarray, weight: np.ndarray, beta
 
 def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
                     beta: np.ndarray, offset: np.ndarray | None = None, efron: bool = True,
-                    cluster: np.ndarray | None = None, n_clusters: int | None = None
-                    ) -> np.ndarray:
+                    cluster: np.ndarray | None = None, n_clusters: int | None = None,
+                    state: RiskState | None = None) -> np.ndarray:
     r"""Score residuals :math:`w_i L_i`, per row (n, p) or summed by cluster (C, p).
 
     Their column sums are the score. Start-stop form (Therneau & Grambsch
@@ -334,59 +399,58 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     :math:`d_i(x_i-\bar x_{k(i)}) - e^{\eta_i}\sum_{k} (x_i-\bar x_k)\,dH_0(t_k)`.
 
     With ``cluster`` (int codes) the rows are summed by cluster through two
-    sparse products, so no (n, p) array is formed.
+    sparse products, so no (n, p) array is formed. ``state`` (a
+    :class:`RiskState` at ``beta``) saves recomputing the risk sums.
     """
-    eta = X @ beta
-    if offset is not None:
-        eta = eta + offset
-    shift = float(eta.max())
-    r = weight * np.exp(eta - shift)
-    st = time_stats(index, X, r, efron)
+    if state is None:
+        state = risk_state(index, X, weight, beta, offset, efron)
+    r, st = state.r, state.stats
     Hk = st.S1 * st.gamma[:, None] - st.T1 * st.delta[:, None]
     CH = np.zeros((Hk.shape[0] + 1, Hk.shape[1]))
     np.cumsum(Hk, axis=0, out=CH[1:])
-    rA = r * window_sum(index, st.alpha)
-    er, ek = index.event_rows, index.event_k
+    rA = window_sum(index, st.alpha)
+    rA *= r
+    er, ek = index.churn_rows, index.churn_k
     xbar = (st.S1 * st.alpha[:, None] - st.T1 * st.beta[:, None]) / index.deaths[:, None]
     Hp = st.S1 * st.delta[:, None] - st.T1 * st.eps[:, None]
     p = X.shape[1]
     n = X.shape[0]
+    # churn-row terms (E, p)
+    Xe = X[er]
+    ev = weight[er, None] * (Xe - xbar[ek])
+    if efron:
+        ev += r[er, None] * (Xe * st.beta[ek, None] - Hp[ek])
+    del Xe
     if cluster is not None:
         # U_c = sum_k Q[c, k] CH[k] - sum_i P[c, i] x_i + churn-row terms, with sparse Q, P
         # built straight in CSR form from the rows grouped by cluster (no duplicate summing)
         C = int(n_clusters or cluster.max() + 1)
-        o = np.argsort(cluster, kind="stable")
-        indptr = np.zeros(C + 1, dtype=np.int64)
+        itype = index.window_rows.dtype
+        o = np.argsort(cluster, kind="stable").astype(itype)
+        indptr = np.zeros(C + 1, dtype=itype)
         np.cumsum(np.bincount(cluster, minlength=C), out=indptr[1:])
-        P = sparse.csr_matrix((rA[o], o, indptr), shape=(C, n))
-        ind = np.empty(2 * n, dtype=np.int64)
+        P = sparse.csr_matrix((rA[o], o, indptr), shape=(C, n), copy=False)
+        del rA
+        ind = np.empty(2 * n, dtype=itype)
         ind[0::2] = index.hi[o]
         ind[1::2] = index.lo[o]
         dat = np.empty(2 * n)
         dat[0::2] = r[o]
-        dat[1::2] = -dat[0::2]
-        Q = sparse.csr_matrix((dat, ind, 2 * indptr), shape=(C, CH.shape[0]))
+        np.negative(dat[0::2], out=dat[1::2])
+        Q = sparse.csr_matrix((dat, ind, 2 * indptr), shape=(C, CH.shape[0]), copy=False)
         U = Q @ CH
-        for j in range(p):
-            U[:, j] -= P @ X[:, j]
-        Xe = X[er]
-        ev = weight[er, None] * (Xe - xbar[ek])
-        if efron:
-            ev += r[er, None] * (Xe * st.beta[ek, None] - Hp[ek])
+        del Q, dat, ind
+        U -= P @ np.ascontiguousarray(X)
+        del P, o
         ce = cluster[er]
         for j in range(p):
             U[:, j] += np.bincount(ce, ev[:, j], C)
-        return np.asarray(U)
+        return U
     out = np.empty((n, p))
     for j in range(p):
         ch = np.ascontiguousarray(CH[:, j])
-        xj = X[:, j]
-        col = r * (ch[index.hi] - ch[index.lo]) - xj * rA
-        xe = xj[er]
-        ev = weight[er] * (xe - xbar[ek, j])
-        if efron:
-            ev += r[er] * (xe * st.beta[ek] - Hp[ek, j])
-        col[er] += ev
+        col = r * (ch[index.hi] - ch[index.lo]) - X[:, j] * rA
+        col[er] += ev[:, j]
         out[:, j] = col
     return out
 
@@ -421,6 +485,7 @@ class NewtonResult(NamedTuple):
     history: list
     converged: bool
     iterations: int
+    state: RiskState  # at beta: reused by the robust errors and the baseline
 
 
 def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
@@ -440,24 +505,26 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
     :math:`\beta` is far below ``tol`` standard errors.
 
     ``history`` lists ``(iteration, objective, max |step| in SE, halvings)``.
+    Only the current and the candidate state are alive at once.
     """
     p = X.shape[1]
     beta = np.zeros(p) if beta0 is None else np.array(beta0, dtype=float)
     history: list = []
 
-    X_ev = np.ascontiguousarray(X[index.event_rows])
-    dwX = (weight * churned) @ X
+    X_ev = np.ascontiguousarray(X[index.churn_rows])
+    dwX = weight[index.churn_rows] @ X_ev
 
     def objective(b: np.ndarray, hess: bool = True):
-        ll, g, H = cox_derivatives(index, X, weight, churned, b, offset, efron, hess, X_ev, dwX)
+        st = risk_state(index, X, weight, b, offset, efron, X_ev)
+        ll, g, H = derivatives_at(index, X, st, dwX, efron, hess)
         if penalty:
             ll = ll - 0.5 * penalty * float(b @ b)
             g = g - penalty * b
             if H is not None:
                 H = H + penalty * np.eye(p)
-        return ll, g, H
+        return ll, g, H, st
 
-    ll, g, H = objective(beta)
+    ll, g, H, state = objective(beta)
     ll0, g0, H0 = ll, g, H
     converged = False
     it = 0
@@ -483,7 +550,7 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
             # the full step is nearly always taken, so evaluate everything at once
             cand = beta + t * step
             with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-                ll_new, g_new, H_new = objective(cand, hess=halvings == 0)
+                ll_new, g_new, H_new, st_new = objective(cand, hess=halvings == 0)
             if np.isfinite(ll_new) and ll_new >= ll - 1e-12 * (1 + abs(ll)):
                 break
             halvings += 1
@@ -496,14 +563,15 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
         beta = cand
         prev = ll
         if halvings == 0:
-            ll, g, H = ll_new, g_new, H_new
+            ll, g, H, state = ll_new, g_new, H_new, st_new
         else:
-            ll, g, H = objective(beta)
+            ll, g, H, state = objective(beta)
+        del st_new
         if halvings == 0 and abs(ll - prev) < 1e-14 * (1 + abs(ll)) and size < 1e-4:
             history.append((it + 1, ll, float("nan"), 0))
             converged = True
             break
-    return NewtonResult(beta, ll, g, H, ll0, g0, H0, history, converged, it)
+    return NewtonResult(beta, ll, g, H, ll0, g0, H0, history, converged, it, state)
 
 
 def concordance_counts(index: RiskIndex, eta: np.ndarray, churned: np.ndarray,

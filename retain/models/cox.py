@@ -627,7 +627,8 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     n_events = table.n_events
     if n_events <= 0:
         raise ModelError(where, "the table has no churns", "a hazard model needs churn events")
-    design = design_matrix(table, covariates, reference=reference)
+    # centred, C-ordered: the kernels stream over rows, and the fit keeps one copy of X
+    design = design_matrix(table, covariates, reference=reference, centre=True, order="C")
     p = design.n_columns
     if p == 0:
         raise ModelError(where, "no covariates", "name at least one covariate")
@@ -652,7 +653,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         warn.append(f"only {epp:.1f} churns per coefficient ({n_events:g} churns, {p} "
                     f"coefficients); about {MIN_EVENTS_PER_PARAMETER:g} or more is common "
                     "practice: estimates may be biased and intervals too narrow")
-    Xc = np.subtract(design.X, design.means, order="F")
+    Xc = design.X
     index = K.build_risk_index(table.start, table.stop, d, w, stratum, len(stratum_labels))
     efron = ties == "efron"
     res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter)
@@ -680,14 +681,15 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         raise ModelError(where, "the information matrix is singular", "drop collinear "
                          "covariates or set a penalty") from exc
     if table.has_customers:
-        cluster = table.cluster.astype(np.int64)
+        cluster = table.cluster
         clusters = "customer"
     else:
         cluster = None
         clusters = "row"
         warn.append("the table has no customer_id (e.g. compressed): robust errors treat each "
                     "row (times its weight) as independent, not clustered by customer")
-    cov_robust = _robust_cov(index, Xc, w, d, res.beta, off, efron, cluster, cov_model)
+    cov_robust = _robust_cov(index, Xc, w, d, res.beta, off, efron, cluster, cov_model,
+                             res.state)
     se_model = np.sqrt(np.diag(cov_model))
     se_robust = np.sqrt(np.diag(cov_robust))
     se = se_robust if robust else se_model
@@ -707,7 +709,8 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     if penalty:
         warn.append(f"L2 penalty {penalty:g}: coefficients are shrunk towards 0 and the tests use "
                     "the penalised log likelihood")
-    dH0 = K.breslow_increments(index, Xc, w, res.beta, off)
+    dH0 = K.breslow_increments(index, Xc, w, res.beta, off, state=res.state)
+    res = res._replace(state=None)  # free the risk scores held for reuse
     return CoxFit(
         covariates=tuple(covariates), columns=design.columns, labels=design.labels,
         reference=dict(design.reference), coef=res.beta, se=se, se_model=se_model,
@@ -730,7 +733,8 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
 
 def _robust_cov(index: K.RiskIndex, Xc: np.ndarray, w: np.ndarray, d: np.ndarray,
                 beta: np.ndarray, off: np.ndarray | None, efron: bool,
-                cluster: np.ndarray | None, cov_model: np.ndarray) -> np.ndarray:
+                cluster: np.ndarray | None, cov_model: np.ndarray,
+                state: K.RiskState | None = None) -> np.ndarray:
     r"""Lin & Wei (1989) sandwich :math:`V\,B\,V`.
 
     Clustered by customer: :math:`B = \sum_c U_cU_c^\top` with :math:`U_c` the
@@ -740,10 +744,11 @@ def _robust_cov(index: K.RiskIndex, Xc: np.ndarray, w: np.ndarray, d: np.ndarray
     the by-row sandwich of the expanded table.
     """
     if cluster is not None:
-        U = K.score_residuals(index, Xc, w, d, beta, off, efron, cluster, int(cluster.max()) + 1)
+        U = K.score_residuals(index, Xc, w, d, beta, off, efron, cluster,
+                              int(cluster.max()) + 1, state=state)
         B = U.T @ U
     else:
-        U = K.score_residuals(index, Xc, w, d, beta, off, efron)
+        U = K.score_residuals(index, Xc, w, d, beta, off, efron, state=state)
         B = (U / w[:, None]).T @ U
     return cov_model @ B @ cov_model
 

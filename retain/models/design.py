@@ -38,8 +38,11 @@ class Design:
 
     Attributes
     ----------
-    X : ndarray (n, p) float64, Fortran order
-        One row per table row, one column per coefficient (not centred).
+    X : ndarray (n, p) float64
+        One row per table row, one column per coefficient: not centred (the
+        default) or, when ``is_centred``, already ``X - means`` (a model that
+        fits on centred columns asks for that and so keeps one copy, not two).
+        Fortran order unless built with ``order="C"``.
     columns : tuple of str
         Short column names: ``"plan=Orchard"``, ``"price_ratio"``.
     labels : tuple of str
@@ -55,6 +58,8 @@ class Design:
         the reference comes first.
     means : ndarray (p,)
         Weighted column means (for centring; compressed == full table).
+    is_centred : bool
+        Whether ``X`` holds the centred columns.
     """
 
     X: np.ndarray
@@ -66,6 +71,7 @@ class Design:
     levels: dict[str, tuple[str, ...]]
     means: np.ndarray
     source: str = field(default="start-stop table")
+    is_centred: bool = False
 
     @property
     def n_columns(self) -> int:
@@ -76,7 +82,7 @@ class Design:
 
     def centred(self) -> np.ndarray:
         """``X - means`` (a new array)."""
-        return self.X - self.means
+        return self.X.copy() if self.is_centred else self.X - self.means
 
     def column_of(self, covariate: str, level: str | None = None) -> int:
         """Index of the column for a numeric covariate, or for one level of a categorical."""
@@ -198,6 +204,8 @@ def design_matrix(
     covariates: Sequence[str],
     *,
     reference: Mapping[str, str] | None = None,
+    centre: bool = False,
+    order: str = "F",
 ) -> Design:
     """Code covariates of a start-stop table as a design matrix.
 
@@ -209,6 +217,10 @@ def design_matrix(
     reference : mapping covariate -> level, optional
         Reference level for categorical covariates. Default: the most common
         level by weight (ties: first in sort order).
+    centre : bool
+        Store the centred columns ``X - means`` (``is_centred``) instead of the raw ones.
+    order : {"F", "C"}
+        Memory order of ``X``: Fortran (column at a time) or C (row at a time).
 
     Returns
     -------
@@ -288,22 +300,41 @@ def design_matrix(
             columns.append(c)
             labels.append(f"{c} (per unit)")
         terms[c] = slice(start, len(columns))
-    # Fortran order: kernels work one column at a time
-    X = np.empty((table.n_rows, len(blocks)), dtype=np.float64, order="F")
-    for j, block in enumerate(blocks):
-        X[:, j] = block
+    p = len(blocks)
+    n = table.n_rows
     wsum = float(w.sum())
-    means = (w @ X) / wsum if X.shape[1] else np.zeros(0)
+    if order == "F":
+        X = np.empty((n, p), dtype=np.float64, order="F")
+        for j, block in enumerate(blocks):
+            X[:, j] = block
+        means = (w @ X) / wsum if p else np.zeros(0)
+        if centre:
+            X -= means
+    elif order == "C":
+        means = np.array([w[b].sum() if b.dtype == bool else np.dot(w, b) for b in blocks]) \
+            / wsum if p else np.zeros(0)
+        shift = means if centre else np.zeros(p)
+        # a band of rows at a time, so each band stays in cache while its columns land
+        X = np.empty((n, p), dtype=np.float64, order="C")
+        band = 1 << 15
+        for a in range(0, n, band):
+            Xb = X[a:a + band]
+            for j, block in enumerate(blocks):
+                Xb[:, j] = block[a:a + band]
+            Xb -= shift
+    else:
+        raise ValueError(f"order must be 'F' or 'C', got {order!r}")
+    del blocks
     design = Design(X=X, columns=tuple(columns), labels=tuple(labels),
                     covariates=tuple(covariates), terms=terms, reference=refs, levels=levels,
-                    means=means, source=where)
+                    means=means, source=where, is_centred=bool(centre))
     _check_collinear(design, w)
     return design
 
 
-def weighted_correlation(X: np.ndarray, w: np.ndarray, means: np.ndarray,
+def weighted_correlation(X: np.ndarray, w: np.ndarray, means: np.ndarray | float,
                          chunk: int = 1 << 16) -> np.ndarray:
-    """Weighted correlation matrix of the columns of ``X``, computed in row chunks."""
+    """Weighted correlation matrix of the columns of ``X`` about ``means``, in row chunks."""
     p = X.shape[1]
     G = np.zeros((p, p))
     for a in range(0, X.shape[0], chunk):
@@ -317,7 +348,7 @@ def _check_collinear(design: Design, w: np.ndarray) -> None:
     p = design.n_columns
     if p < 2:
         return
-    R = weighted_correlation(design.X, w, design.means)
+    R = weighted_correlation(design.X, w, 0.0 if design.is_centred else design.means)
     vals, vecs = np.linalg.eigh(R)
     null = vals < COLLINEAR_TOL * p
     if not null.any():
