@@ -99,6 +99,11 @@ def test_kernel_matches_naive_loops(efron, whole, strata):
     U = K.score_residuals(index, X, weight, churned, beta, offset, efron, cl, cl.max() + 1)
     np.testing.assert_allclose(U, np.stack([np.bincount(cl, R0[:, j]) for j in range(3)], 1),
                                rtol=1e-9, atol=1e-10)
+    # rows not grouped by cluster take the sorting path
+    mixed = np.random.default_rng(7).integers(0, 25, start.shape[0])
+    U = K.score_residuals(index, X, weight, churned, beta, offset, efron, mixed, 25)
+    np.testing.assert_allclose(U, np.stack([np.bincount(mixed, R0[:, j], 25)
+                                            for j in range(3)], 1), rtol=1e-9, atol=1e-10)
 
 
 @pytest.mark.parametrize("efron", [True, False])
@@ -205,3 +210,36 @@ def test_half_day_lookup_equals_searchsorted():
     frac = values + 0.1
     np.testing.assert_array_equal(K.positions_right(times, frac),
                                   np.searchsorted(times, frac, side="right"))
+    # past the grid's last band: one off-grid value late in a long column
+    late = values.copy()
+    late[-1] = 3.3
+    np.testing.assert_array_equal(K.positions_right(times, late),
+                                  np.searchsorted(times, late, side="right"))
+    many = np.tile(values, 20)  # several bands
+    out = np.empty(many.shape[0], dtype=np.int32)
+    K.positions_right(times, many, out=out)
+    np.testing.assert_array_equal(out, np.searchsorted(times, many, side="right"))
+
+
+def test_centred_row_ordered_design_equals_default_minus_means():
+    """The Cox fit codes its design centred and C-ordered (one copy of X); it must equal
+    the default coding minus the weighted means, and raise the same collinearity error."""
+    from retain import StartStop
+    from retain.errors import DataError
+    from retain.models.design import design_matrix
+
+    rng = np.random.default_rng(3)
+    n = 70_000  # more than one band of rows
+    plan = rng.choice(["Grove", "Orchard", "Seedling"], n)
+    price = rng.normal(20, 3, n)
+    w = rng.integers(1, 4, n).astype(float)
+    table = StartStop(np.zeros(n), rng.integers(1, 50, n), rng.integers(0, 2, n), weight=w,
+                      covariates={"plan": plan, "price": price, "twice": 2 * price + 1})
+    a = design_matrix(table, ["plan", "price"])
+    b = design_matrix(table, ["plan", "price"], centre=True, order="C")
+    assert b.X.flags.c_contiguous and b.is_centred and not a.is_centred
+    np.testing.assert_allclose(b.means, a.means, rtol=1e-12)
+    np.testing.assert_allclose(b.X, a.X - a.means, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(b.centred(), a.centred(), rtol=1e-12, atol=1e-12)
+    with pytest.raises(DataError, match="collinear: price, twice"):
+        design_matrix(table, ["plan", "price", "twice"], centre=True, order="C")

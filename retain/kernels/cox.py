@@ -80,21 +80,39 @@ class RiskIndex(NamedTuple):
     n_strata: int
 
 
-def positions_right(sorted_times: np.ndarray, values: np.ndarray) -> np.ndarray:
+def positions_right(sorted_times: np.ndarray, values: np.ndarray,
+                    out: np.ndarray | None = None) -> np.ndarray:
     """``np.searchsorted(sorted_times, values, side="right")``, faster for day counts.
 
     When every value is a whole or half day (the start-stop contract's time
     grid) a lookup table over the half-day grid replaces a binary search per
-    row; the result is identical.
+    row; the result is identical. Works in bands of rows (no full-length
+    temporaries) and writes into ``out`` if given.
     """
-    if values.shape[0] > 4096:
-        v2 = values * 2.0
-        top = float(v2.max()) if v2.size else 0.0
-        if 0 <= float(v2.min()) and top < 5e7 and np.array_equal(v2, np.floor(v2)):
+    n = values.shape[0]
+    if out is None:
+        out = np.empty(n, dtype=np.int64)
+    if n > 4096:
+        lowest = float(values.min())
+        top = 2.0 * float(values.max())
+        if lowest >= 0 and top < 5e7:
             grid = np.arange(int(top) + 1) / 2.0
-            lut = np.searchsorted(sorted_times, grid, side="right")
-            return lut[v2.astype(np.int64)]
-    return np.searchsorted(sorted_times, values, side="right")
+            lut = np.searchsorted(sorted_times, grid, side="right").astype(out.dtype)
+            band = 1 << 16
+            half = np.empty(min(band, n))
+            cell = np.empty(min(band, n), dtype=np.int32)
+            for a in range(0, n, band):
+                b = min(a + band, n)
+                h, c = half[:b - a], cell[:b - a]
+                np.multiply(values[a:b], 2.0, out=h)
+                c[:] = h
+                if not np.array_equal(c, h):  # not on the half-day grid
+                    break
+                np.take(lut, c, out=out[a:b])
+            else:
+                return out
+    out[:] = np.searchsorted(sorted_times, values, side="right")
+    return out
 
 
 def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
@@ -132,8 +150,8 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
     lo = np.empty(n, dtype=itype)
     hi = np.empty(n, dtype=itype)
     if n_strata == 1:
-        lo[:] = positions_right(times, start)
-        hi[:] = positions_right(times, stop)
+        positions_right(times, start, out=lo)
+        positions_right(times, stop, out=hi)
     else:
         by = np.argsort(stratum, kind="stable")
         cuts = np.searchsorted(stratum[by], np.arange(n_strata + 1), side="left")
@@ -228,7 +246,6 @@ def time_stats(index: RiskIndex, X: np.ndarray, r: np.ndarray, efron: bool,
     """
     K = index.times.shape[0]
     S0, S1 = risk_sums(index, r, X)
-    assert S1 is not None
     cr, ck = index.churn_rows, index.churn_k
     rev = r[cr]
     if X_ev is None:
@@ -295,8 +312,8 @@ class RiskState(NamedTuple):
 def risk_state(index: RiskIndex, X: np.ndarray, weight: np.ndarray, beta: np.ndarray,
                offset: np.ndarray | None = None, efron: bool = True,
                X_ev: np.ndarray | None = None) -> RiskState:
-    """Linear predictor, risk scores and per-time sums at ``beta`` (one pass for eta,
-    one for the risk sums). ``X_ev`` as in :func:`time_stats`."""
+    """Linear predictor, risk scores and per-time sums at ``beta`` (one pass over ``X``
+    for eta, one for the risk sums). ``X_ev`` as in :func:`time_stats`."""
     er = index.churn_rows
     beta = np.asarray(beta, dtype=float)
     if offset is None and not beta.any():
@@ -415,44 +432,69 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     Hp = st.S1 * st.delta[:, None] - st.T1 * st.eps[:, None]
     p = X.shape[1]
     n = X.shape[0]
-    # churn-row terms (E, p)
-    Xe = X[er]
-    ev = weight[er, None] * (Xe - xbar[ek])
+    # churn rows: ev_i = x_i (w_i + r_i beta_k) - (w_i xbar_k + r_i H'_k)
+    x_coef = weight[er] + r[er] * st.beta[ek] if efron else weight[er].copy()
+    ev_const = xbar[ek]
+    ev_const *= weight[er, None]
     if efron:
-        ev += r[er, None] * (Xe * st.beta[ek, None] - Hp[ek])
-    del Xe
-    if cluster is not None:
-        # U_c = sum_k Q[c, k] CH[k] - sum_i P[c, i] x_i + churn-row terms, with sparse Q, P
-        # built straight in CSR form from the rows grouped by cluster (no duplicate summing)
-        C = int(n_clusters or cluster.max() + 1)
-        itype = index.window_rows.dtype
-        o = np.argsort(cluster, kind="stable").astype(itype)
+        hp = Hp[ek]
+        hp *= r[er, None]
+        ev_const += hp
+        del hp
+    if cluster is None:
+        out = np.empty((n, p))
+        for j in range(p):
+            ch = np.ascontiguousarray(CH[:, j])
+            col = r * (ch[index.hi] - ch[index.lo]) - X[:, j] * rA
+            col[er] += X[er, j] * x_coef - ev_const[:, j]
+            out[:, j] = col
+        return out
+    # U_c = sum_k Q[c, k] CH[k] - sum_i P[c, i] x_i - churn-row constants, with sparse
+    # Q, P in CSR form over the rows grouped by cluster; the churn rows' x-terms go into P.
+    # When each cluster's rows are contiguous (the usual layout) the groups are the runs
+    # of equal codes and need no sorting or gathers; otherwise the rows are sorted once.
+    C = int(n_clusters or cluster.max() + 1)
+    itype = index.window_rows.dtype
+    pdata = rA
+    pdata[er] -= x_coef
+    del rA
+    run_starts = np.flatnonzero(cluster[1:] != cluster[:-1]) + 1
+    run_codes = cluster[np.concatenate(([0], run_starts))]
+    if np.bincount(run_codes, minlength=C).max() <= 1:  # each cluster is one run
+        groups = run_codes.shape[0]
+        indptr = np.concatenate(([0], run_starts, [n])).astype(itype)
+        cols = np.arange(n, dtype=itype)
+        ind = index.window_rows  # lo, hi interleaved
+        r_in = r
+    else:
+        groups, run_codes = C, None
         indptr = np.zeros(C + 1, dtype=itype)
         np.cumsum(np.bincount(cluster, minlength=C), out=indptr[1:])
-        P = sparse.csr_matrix((rA[o], o, indptr), shape=(C, n), copy=False)
-        del rA
+        cols = np.argsort(cluster, kind="stable").astype(itype)
+        pdata = pdata[cols]
         ind = np.empty(2 * n, dtype=itype)
-        ind[0::2] = index.hi[o]
-        ind[1::2] = index.lo[o]
-        dat = np.empty(2 * n)
-        dat[0::2] = r[o]
-        np.negative(dat[0::2], out=dat[1::2])
-        Q = sparse.csr_matrix((dat, ind, 2 * indptr), shape=(C, CH.shape[0]), copy=False)
-        U = Q @ CH
-        del Q, dat, ind
-        U -= P @ np.ascontiguousarray(X)
-        del P, o
-        ce = cluster[er]
-        for j in range(p):
-            U[:, j] += np.bincount(ce, ev[:, j], C)
-        return U
-    out = np.empty((n, p))
-    for j in range(p):
-        ch = np.ascontiguousarray(CH[:, j])
-        col = r * (ch[index.hi] - ch[index.lo]) - X[:, j] * rA
-        col[er] += ev[:, j]
-        out[:, j] = col
-    return out
+        ind[0::2] = index.lo[cols]
+        ind[1::2] = index.hi[cols]
+        r_in = r[cols]
+    dat = np.empty(2 * n)
+    np.negative(r_in, out=dat[0::2])
+    dat[1::2] = r_in
+    del r_in
+    P = sparse.csr_matrix((pdata, cols, indptr), shape=(groups, n), copy=False)
+    U = P @ np.ascontiguousarray(X)
+    np.negative(U, out=U)
+    del P, pdata, cols
+    Q = sparse.csr_matrix((dat, ind, 2 * indptr), shape=(groups, CH.shape[0]), copy=False)
+    U += Q @ CH
+    del Q, dat, ind
+    if run_codes is not None:
+        by_code = np.zeros((C, p))
+        by_code[run_codes] = U
+        U = by_code
+    G = sparse.csc_matrix((np.ones(er.shape[0]), cluster[er], np.arange(er.shape[0] + 1)),
+                          shape=(C, er.shape[0]))
+    U -= G @ ev_const
+    return U
 
 
 def schoenfeld_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, beta: np.ndarray,

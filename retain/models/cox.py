@@ -41,17 +41,23 @@ from retain.units import DAYS_PER_MONTH
 TIES = ("efron", "breslow")
 
 
+_BLAS_CONTROLLER: list = []
+
+
 def _single_blas_thread() -> contextlib.AbstractContextManager:
     """Limit BLAS to one thread for the fit.
 
     The products here are tall and thin (n x 10); on a busy machine a
-    multi-threaded BLAS spends far longer waking threads than computing.
+    multi-threaded BLAS spends far longer waking threads than computing. The
+    scan for BLAS libraries (~10 ms) is done once per process.
     """
     try:
-        from threadpoolctl import threadpool_limits
+        from threadpoolctl import ThreadpoolController
     except ImportError:  # pragma: no cover - threadpoolctl ships with scikit-learn
         return contextlib.nullcontext()
-    return threadpool_limits(limits=1, user_api="blas")
+    if not _BLAS_CONTROLLER:
+        _BLAS_CONTROLLER.append(ThreadpoolController())
+    return _BLAS_CONTROLLER[0].limit(limits=1, user_api="blas")
 
 #: events per parameter below which a warning is attached (common practice: ~10)
 MIN_EVENTS_PER_PARAMETER = 10.0

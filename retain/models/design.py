@@ -303,6 +303,7 @@ def design_matrix(
     p = len(blocks)
     n = table.n_rows
     wsum = float(w.sum())
+    gram = None
     if order == "F":
         X = np.empty((n, p), dtype=np.float64, order="F")
         for j, block in enumerate(blocks):
@@ -315,20 +316,30 @@ def design_matrix(
             / wsum if p else np.zeros(0)
         shift = means if centre else np.zeros(p)
         # a band of rows at a time, so each band stays in cache while its columns land
+        # and while it adds to the weighted cross-product for the collinearity check
         X = np.empty((n, p), dtype=np.float64, order="C")
-        band = 1 << 15
+        gram = np.zeros((p, p))
+        band = 1 << 14
+        Y = np.empty((min(band, n), p))
+        sw = np.sqrt(w)
         for a in range(0, n, band):
             Xb = X[a:a + band]
             for j, block in enumerate(blocks):
                 Xb[:, j] = block[a:a + band]
             Xb -= shift
+            Yb = Y[:Xb.shape[0]]
+            np.multiply(Xb, sw[a:a + band, None], out=Yb)
+            if not centre:
+                Yb -= means * sw[a:a + band, None]
+            gram += Yb.T @ Yb
+        del Y, sw
     else:
         raise ValueError(f"order must be 'F' or 'C', got {order!r}")
     del blocks
     design = Design(X=X, columns=tuple(columns), labels=tuple(labels),
                     covariates=tuple(covariates), terms=terms, reference=refs, levels=levels,
                     means=means, source=where, is_centred=bool(centre))
-    _check_collinear(design, w)
+    _check_collinear(design, w, gram)
     return design
 
 
@@ -344,11 +355,16 @@ def weighted_correlation(X: np.ndarray, w: np.ndarray, means: np.ndarray | float
     return G / np.outer(sd, sd)
 
 
-def _check_collinear(design: Design, w: np.ndarray) -> None:
+def _check_collinear(design: Design, w: np.ndarray, gram: np.ndarray | None = None) -> None:
+    """``gram``: the weighted cross-product of the centred columns, if already summed."""
     p = design.n_columns
     if p < 2:
         return
-    R = weighted_correlation(design.X, w, 0.0 if design.is_centred else design.means)
+    if gram is None:
+        R = weighted_correlation(design.X, w, 0.0 if design.is_centred else design.means)
+    else:
+        sd = np.sqrt(np.diag(gram))
+        R = gram / np.outer(sd, sd)
     vals, vecs = np.linalg.eigh(R)
     null = vals < COLLINEAR_TOL * p
     if not null.any():
