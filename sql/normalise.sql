@@ -9,8 +9,11 @@
 --   and a null placeholder <group>0 for each group (so every group exists).
 -- Produces: typed columns, the calendar day in the configured zone, our event,
 -- its same-day rank, the cause given by the reason, `reason` = the first
--- row-level quarantine reason (null = usable so far) and `row_hash` (exact
--- duplicates are found by the sequence step). Ignored events are kept with
+-- row-level quarantine reason (null = usable so far), `row_hash` (exact
+-- duplicates are found by the duplicates step), and the keys the later steps
+-- sort on: `ord`, one integer that orders a customer's events by (day, same-day
+-- rank, time, source row), and `day_ord`, the `ord` of the day's first possible
+-- event. Ignored events are kept with
 -- ignored = true so the reconciliation can count them.
 -- Parameters: $timezone, $as_of, $event_from, $event_to, $event_ignore,
 --             $reason_from, $reason_to, $reason_ignore.
@@ -72,6 +75,30 @@ flagged as (
     from mapped
 ),
 
+ranked as (
+    select
+        *,
+        list_position(['start', 'update', 'pause', 'resume', 'payment_failed',
+                       'payment_recovered', 'end'], event) - 1 as event_rank,
+        -- days since 1970 plus 2^20, so every field of `ord` is non-negative
+        date_diff('day', date '1970-01-01', day) + 1048576 as day_number
+    from flagged
+),
+
+keyed as (
+    select
+        *,
+        -- three fields, high to low: day * 8 + rank | microseconds since the day's
+        -- UTC midnight, shifted to be non-negative (a local day lies within 2^37 us
+        -- of it) | source row (below 2^40)
+        cast(day_number * 8 + event_rank as hugeint) * cast(2 ^ 78 as hugeint)
+            + cast(epoch_us(event_ts) - (day_number - 1048576) * cast(86400000000 as bigint)
+                   + (cast(1 as bigint) << 37) as hugeint) * cast(2 ^ 40 as hugeint)
+            + source_row as ord,
+        cast(day_number * 8 as hugeint) * cast(2 ^ 78 as hugeint) as day_ord
+    from ranked
+),
+
 final as (
     select
         cast(source_row as bigint) as source_row,
@@ -81,8 +108,7 @@ final as (
         cast(event_raw as varchar) as event_raw,
         cast(reason_raw as varchar) as reason_raw,
         cast(event as varchar) as event,
-        cast(list_position(['start', 'update', 'pause', 'resume', 'payment_failed',
-                            'payment_recovered', 'end'], event) - 1 as integer) as event_rank,
+        cast(event_rank as integer) as event_rank,
         cast(cause_given as varchar) as cause_given,
         cast(ignored as boolean) as ignored,
         cast(row_reason as varchar) as reason,
@@ -90,9 +116,11 @@ final as (
         -- cheaply (the sequence step confirms them value by value)
         cast(hash(customer_id, event_ts, event_raw, reason_raw,
                   *columns('^[sv][cnr]__')) as ubigint) as row_hash,
+        cast(ord as hugeint) as ord,
+        cast(day_ord as hugeint) as day_ord,
         cast(columns('^([sv]c__.*)$') as varchar) as '\1',
         cast(columns('^[sv][nr]__.*$') as double)
-    from flagged
+    from keyed
 )
 
 select * from final

@@ -1,6 +1,7 @@
 -- sequence: usable rows that are exact duplicates or out of order.
 --
--- Reads `events` (normalise).
+-- Reads `troubled_events` (the usable rows of the customers the states step
+-- flags; every other customer's rows are in order and unrepeated).
 -- Exact duplicates: rows identical in customer, time, event value, reason and
 -- every attribute (numbers compared as numbers); of each set the first (lowest
 -- source row) is used. Candidates are found by grouping on `row_hash` (cheap);
@@ -13,8 +14,7 @@
 -- Produces one row per problem: source_row, reason.
 with usable as (
     select *
-    from events
-    where not ignored and reason is null
+    from troubled_events
 ),
 
 shared_fingerprints as (

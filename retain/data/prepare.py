@@ -6,8 +6,12 @@
 ``import_*``  the log as text (CSV, Parquet or a DuckDB table) -> ``raw``
 ``normalise`` our column names, the day in the configured zone, our events,
               typed attributes, row-level quarantine reasons  -> ``events``
-``sequence``  rows out of order for their customer            -> ``sequence_problems``
-``spells``    every used event with its customer's state      -> ``spells``
+``states``    one window per customer: each event's state, and
+              whether it may be out of order or repeated      -> ``first_pass``
+``troubled``  the usable rows of customers with such a row    -> ``troubled_events``
+``sequence``  their exact repeats and rows out of order       -> ``sequence_problems``
+``states``    again, on their used rows                       -> ``redo``
+``spells``    every used event with its customer's state      -> ``spells`` (view)
 ``intervals`` the start-stop rows                             -> ``start_stop``
 ``compress``  optional: identical rows collapsed with a weight
 ``quarantine``, ``reconcile``, ``unknown_events``: what became of every row.
@@ -289,9 +293,17 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
               "events")
     _strict_checks(con, config)
-    timer.run("sequence", lambda: run_step(con, "sequence", params,
-                                           create="sequence_problems"), "sequence_problems")
-    timer.run("spells", lambda: run_step(con, "spells", params, create="spells"), "spells")
+    run_step(con, "state_input_all", create="state_input", view=True)
+    timer.run("states", lambda: run_step(con, "states", params, create="first_pass"),
+              "first_pass")
+    # customers with a suspect row: checked row by row, then their states again
+    timer.run("troubled", lambda: run_step(con, "troubled", create="troubled_events"),
+              "troubled_events")
+    timer.run("sequence", lambda: run_step(con, "sequence", create="sequence_problems"),
+              "sequence_problems")
+    run_step(con, "state_input_redo", create="state_input", view=True)
+    timer.run("states again", lambda: run_step(con, "states", params, create="redo"), "redo")
+    run_step(con, "spells", create="spells", view=True)
     timer.run("intervals", lambda: run_step(con, "intervals", params, create="start_stop"),
               "start_stop")
     return timer

@@ -36,11 +36,13 @@ def step_parameters(name: str) -> set[str]:
 
 
 def run_step(con: duckdb.DuckDBPyConnection, name: str, params: dict[str, Any] | None = None,
-             *, create: str | None = None) -> duckdb.DuckDBPyRelation | None:
+             *, create: str | None = None, view: bool = False
+             ) -> duckdb.DuckDBPyRelation | None:
     """Run step ``name`` with only the parameters it uses.
 
     With ``create="t"`` the result is materialised as table ``t`` on the
-    connection (``create or replace table t as ...``) and None is returned;
+    connection (``create or replace table t as ...``; a view instead with
+    ``view=True``, for a step without parameters) and None is returned;
     otherwise the relation is returned for the caller to read.
     """
     params = dict(params or {})
@@ -54,6 +56,10 @@ def run_step(con: duckdb.DuckDBPyConnection, name: str, params: dict[str, Any] |
     if create is not None:
         if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", create):
             raise RetainError("run_step", f"bad table name {create!r}", "use a plain identifier")
-        con.execute(f"create or replace table {create} as {sql}", bound)
+        if view and bound:
+            raise RetainError(f"sql/{name}.sql", "a view cannot hold bound parameters",
+                              "this is a bug in retain: materialise the step as a table")
+        kind = "view" if view else "table"
+        con.execute(f"create or replace {kind} {create} as {sql}", bound)
         return None
     return con.sql(sql, params=bound) if bound else con.sql(sql)

@@ -1,0 +1,134 @@
+-- states: every used event with its customer's state just after it, in one
+-- window per customer.
+--
+-- Reads the view `state_input` (prepare.py points it at `state_input_all`,
+-- every usable row, then at `state_input_redo`, the used rows of the few
+-- customers the first pass flags). Events in the fixed order `ord` (day,
+-- same-day rank start < update < pause < resume < payment_failed <
+-- payment_recovered < end, time, source row).
+--   spell        number of starts so far (1, 2, ...)
+--   start_day    day of the spell's start (tenure 0)
+--   varying attributes: last non-empty value on a start or update row
+--                (an empty value on a later start keeps the last known value)
+--   static attributes: the customer's first non-empty value
+--   paused       1 after pause, 0 after resume or start
+--   in_recovery  1 after payment_failed, 0 after payment_recovered or start
+--   cause        on end rows: the mapped reason, else involuntary when in
+--                recovery at the end, else voluntary
+--   last_of_day  the row is the day's last for its customer: its state is the
+--                state the next interval carries
+--   changed      the state after this row differs from the state at the end
+--                of the customer's previous day with events (always true on
+--                the spell's first day): a day that is a cut
+--   end_day      the day the spell ended (null while open)
+--   outside_window  the spell began before $window_start and ended on or
+--                before it, so it never entered the window
+--   suspect      the row may be out of order or a repeat: a start while a
+--                spell is open, an end or other event while none is, or the
+--                same customer, day, rank and time as the next row. The
+--                sequence step checks the customers with a suspect row one
+--                row at a time; their states are then computed again from
+--                their used rows, and this pass's rows of them are not used.
+-- Each quantity that a row may set is a `set__` column (null where the row
+-- leaves it alone), so one pattern forward-fills them all.
+-- Parameters: $window_start (date or null).
+with keyed as (
+    select
+        customer_id,
+        source_row,
+        day,
+        event_rank,
+        cause_given,
+        ord,
+        -- the RANGE offset that ends a frame just before the day's first event
+        ord - day_ord + 1 as since_day_start,
+        -- starts in the high bits, ends in the low bits: one running sum gives both
+        case event_rank when 0 then cast(1 as bigint) << 32 when 6 then 1 else 0 end
+            as boundary_code,
+        case when event_rank = 0 then day end as set__start_day,
+        case event_rank when 2 then 1 when 3 then 0 when 0 then 0 end as set__paused,
+        case event_rank when 4 then 1 when 5 then 0 when 0 then 0 end as set__in_recovery,
+        case when event_rank <= 1 then columns('^(v[cnr]__.*)$') end as 'set__\1',
+        columns('^(s[cn]__.*)$')
+    from state_input
+),
+
+walked as (
+    select
+        customer_id,
+        source_row,
+        day,
+        event_rank,
+        cause_given,
+        ord,
+        sum(boundary_code) over upto as boundaries,
+        last_value(columns('^set__(start_day|paused|in_recovery|v[cnr]__[A-Za-z].*)$')
+                   ignore nulls) over upto as '\1',
+        last_value(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$') ignore nulls)
+            over before_day as 'before__\1',
+        first_value(columns('^(sc__0|s[cn]__[A-Za-z].*)$') ignore nulls) over whole as '\1',
+        -- the next end on or after this row ends this row's spell (for a
+        -- customer without suspect rows every end closes an open spell)
+        first_value(case when event_rank = 6 then day end ignore nulls) over rest as end_day,
+        lead(ord) over upto as next_ord
+    from keyed
+    window
+        upto as (partition by customer_id order by ord
+                 rows between unbounded preceding and current row),
+        rest as (partition by customer_id order by ord
+                 rows between current row and unbounded following),
+        whole as (partition by customer_id order by ord
+                  rows between unbounded preceding and unbounded following),
+        before_day as (partition by customer_id order by ord
+                       range between unbounded preceding and since_day_start preceding)
+),
+
+packed as (
+    select
+        *,
+        boundaries >> 32 as spell,
+        (boundaries >> 32) - (boundaries & 4294967295) as open_spells,
+        -- the fields of ord above the source row: day, rank and time
+        ord // cast(2 ^ 40 as hugeint) as moment,
+        next_ord // cast(2 ^ 40 as hugeint) as next_moment,
+        row(*columns('^(v[cnr]__[A-Za-z].*|paused|in_recovery)$')) as state_after,
+        row(*columns('^before__.*$')) as state_before,
+        cast(null as varchar) as vc__0,
+        cast(null as double) as vn__0,
+        cast(null as double) as vr__0,
+        cast(null as double) as sn__0
+    from walked
+),
+
+final as (
+    select
+        cast(customer_id as varchar) as customer_id,
+        cast(source_row as bigint) as source_row,
+        cast(spell as bigint) as spell,
+        cast(start_day as date) as start_day,
+        cast(day as date) as day,
+        cast(date_diff('day', start_day, day) as integer) as tenure,
+        cast(event_rank as integer) as event_rank,
+        cast(case
+            when event_rank <> 6 then null
+            when cause_given is not null then cause_given
+            when in_recovery = 1 then 'involuntary'
+            else 'voluntary'
+        end as varchar) as cause,
+        cast(next_moment is null or next_moment // cast(2 ^ 41 as hugeint)
+             <> moment // cast(2 ^ 41 as hugeint) as boolean) as last_of_day,
+        cast(day = start_day or state_after is distinct from state_before as boolean)
+            as changed,
+        cast(end_day as date) as end_day,
+        cast(coalesce(start_day < $window_start and end_day <= $window_start, false) as boolean)
+            as outside_window,
+        cast(coalesce(paused, 0) as integer) as paused,
+        cast(coalesce(in_recovery, 0) as integer) as in_recovery,
+        columns('^v[cnr]__.*$'),  -- typed by normalise: text or double
+        columns('^s[cn]__.*$'),
+        cast(case when event_rank = 6 then open_spells <> 0 else open_spells <> 1 end
+             or moment = next_moment as boolean) as suspect
+    from packed
+)
+
+select * from final
