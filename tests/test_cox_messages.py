@@ -69,3 +69,22 @@ def test_bad_options_and_columns():
         fit_cox(t, ["plan"], strata="plan")
     with pytest.raises(DataError, match="collinear: price, p2"):
         fit_cox(t.with_columns(p2=2 * t.numeric("price")), ["price", "p2"])
+
+
+def test_collinear_found_from_the_information_at_zero():
+    """The fit checks collinearity on its information at beta = 0 (one pass less over the
+    design): exact combinations of levels and numbers are named, and a covariate that is
+    constant within each stratum (no information in a stratified fit) is named too."""
+    t = _table(n=300, seed=4)
+    plan = t.column("plan").values()
+    grove = (plan == "Grove").astype(float)
+    with pytest.raises(DataError, match=r"collinear: plan=Orchard, price, mix .*within the risk"):
+        fit_cox(t.with_columns(mix=t.numeric("price") - 3 * (plan == "Orchard")),
+                ["plan", "price", "mix"], reference={"plan": "Grove"})
+    region = np.where(np.arange(300) % 2 == 0, "north", "south")
+    level = np.where(region == "north", 1.0, 2.0)  # constant within each stratum
+    strat = t.with_columns(region=region, level=level, grove=grove)
+    with pytest.raises(DataError, match=r"level do not vary within the risk sets of each stratum"):
+        fit_cox(strat, ["price", "level"], strata="region")
+    fit = fit_cox(strat, ["price", "grove"], strata="region")  # varies within strata: fine
+    assert np.all(np.isfinite(fit.se_model))

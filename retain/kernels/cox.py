@@ -139,7 +139,7 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
     ev_s = stratum[ev]
     ev_t = stop[ev]
     # distinct (stratum, time) pairs, sorted by stratum then time
-    o = np.lexsort((ev_t, ev_s))
+    o = np.argsort(ev_t, kind="stable") if n_strata == 1 else np.lexsort((ev_t, ev_s))
     ss, tt = ev_s[o], ev_t[o]
     new = np.ones(ss.shape[0], dtype=bool)
     new[1:] = (ss[1:] != ss[:-1]) | (tt[1:] != tt[:-1])
@@ -533,7 +533,7 @@ class NewtonResult(NamedTuple):
 def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
                offset: np.ndarray | None = None, efron: bool = True, penalty: float = 0.0,
                beta0: np.ndarray | None = None, max_iter: int = 50, tol: float = 1e-9,
-               max_halvings: int = 40) -> NewtonResult:
+               max_halvings: int = 40, check_info0=None) -> NewtonResult:
     r"""Maximise the (optionally L2-penalised) log partial likelihood by Newton–Raphson.
 
     Penalised objective :math:`\ell(\beta) - \tfrac{\lambda}{2}\lVert\beta\rVert^2`.
@@ -547,7 +547,9 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
     :math:`\beta` is far below ``tol`` standard errors.
 
     ``history`` lists ``(iteration, objective, max |step| in SE, halvings)``.
-    Only the current and the candidate state are alive at once.
+    Only the current and the candidate state are alive at once. ``check_info0``,
+    if given, is called with the unpenalised information at ``beta0`` before
+    the first step (a caller's check for collinear columns; it may raise).
     """
     p = X.shape[1]
     beta = np.zeros(p) if beta0 is None else np.array(beta0, dtype=float)
@@ -568,6 +570,8 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
 
     ll, g, H, state = objective(beta)
     ll0, g0, H0 = ll, g, H
+    if check_info0 is not None:
+        check_info0(H - penalty * np.eye(p) if penalty else H)
     converged = False
     it = 0
     for it in range(1, max_iter + 1):

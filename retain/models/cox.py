@@ -34,7 +34,7 @@ from scipy import stats
 from retain.data.table import Categorical, StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import cox as K
-from retain.models.design import Design, design_matrix
+from retain.models.design import Design, check_collinear_matrix, design_matrix
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
@@ -147,6 +147,7 @@ class RemainingLifetime(Result):
 
 
 _PRIVATE = ("design", "_index", "_Xc", "_weight", "_churned", "_offset", "_stratum", "_dH0",
+            "_xbar",
             "_table", "_cluster")
 
 
@@ -201,6 +202,7 @@ class CoxFit(Result):
     _offset: np.ndarray | None = field(repr=False)
     _stratum: np.ndarray = field(repr=False)
     _dH0: np.ndarray = field(repr=False)
+    _xbar: np.ndarray = field(repr=False)  # (K, p) risk-weighted means S1/S0 at each churn time
     _table: StartStop = field(repr=False)
     _cluster: np.ndarray | None = field(repr=False)
 
@@ -313,6 +315,80 @@ class CoxFit(Result):
         H = self._cumhaz_at(s, t) * np.exp(lp[0])
         return pd.DataFrame({"time": t, "cumulative_hazard": H, "retention": np.exp(-H),
                              "extrapolated": t > self._last_time(s)})
+
+    def retention_interval(self, profile: Mapping[str, object], times: Sequence[float],
+                           stratum: str | None = None, conf: float | None = None,
+                           transform: str = "log-log") -> pd.DataFrame:
+        r"""Retention curve for a covariate profile with pointwise confidence intervals.
+
+        The variance of the Breslow cumulative hazard for a fixed profile
+        :math:`x` counts both the churns seen given :math:`\hat\beta` and the
+        uncertainty in :math:`\hat\beta` (Tsiatis 1981, *Ann. Statist.* 9:93;
+        Kalbfleisch & Prentice 2002, *The Statistical Analysis of Failure Time
+        Data*, sec. 4.3; Therneau & Grambsch 2000, sec. 10.2):
+
+        .. math::
+
+            \widehat{\mathrm{Var}}\,\hat H(t\mid x) = \sum_{t_k\le t}
+                \frac{D_k}{S_0(t_k; x)^2} + q(t)^\top V q(t),\qquad
+            q(t) = \sum_{t_k\le t} (\bar x_k - x)\, d\hat H(t_k\mid x)
+
+        with :math:`S_0(t_k;x) = \sum_{R_k} w_i e^{(x_i-x)^\top\hat\beta}`,
+        :math:`d\hat H(t_k\mid x) = D_k/S_0(t_k;x)`, :math:`\bar x_k = S_1/S_0` the
+        risk-weighted mean, so that :math:`q(t) = -\partial\hat H(t\mid x)/\partial\beta`
+        (the delta method), and :math:`V` the fit's covariance (robust when the fit
+        is robust, model-based otherwise). The Breslow form holds whatever the
+        tie rule of the fit, as does the baseline it belongs to.
+
+        Intervals (pointwise, level ``conf``, default the fit's): ``"log-log"``
+        (default) is symmetric on :math:`\log H = \log(-\log S)`, so
+        :math:`S^{\exp(\pm z\,\mathrm{se}/H)}`, always inside (0, 1); ``"log"``
+        is symmetric on :math:`\log S = -H`, :math:`e^{-H\mp z\,\mathrm{se}}`
+        capped at 1. Before the first churn :math:`H = 0` and the interval is
+        the point 1. Times after the stratum's last churn are flagged
+        ``extrapolated`` (the baseline and its variance are flat there).
+
+        Columns: time, cumulative_hazard, se_cumulative_hazard, retention,
+        retention_low, retention_high, extrapolated.
+        """
+        if transform not in ("log-log", "log"):
+            raise DataError("retention_interval", f"unknown transform {transform!r}",
+                            "use 'log-log' or 'log'")
+        level = self.conf if conf is None else conf
+        if not 0 < level < 1:
+            raise DataError("retention_interval", f"conf must be between 0 and 1, got {level!r}",
+                            "use e.g. 0.95")
+        s = self._stratum_code(stratum)
+        rows = self.design.rows_for(profile)
+        if rows.shape[0] != 1:
+            raise DataError("covariate profile", "give one value per covariate",
+                            "use segment_retention for several members")
+        z = rows[0] - self.design.means  # the profile on the centred scale of the fit
+        a, b = self._index.bounds[s], self._index.bounds[s + 1]
+        dH = self._dH0[a:b] * np.exp(float(z @ self.coef))
+        t = np.asarray(times, dtype=float)
+        pos = np.searchsorted(self._index.times[a:b], t, side="right")
+
+        def upto(per_time: np.ndarray) -> np.ndarray:
+            c = np.zeros((per_time.shape[0] + 1,) + per_time.shape[1:])
+            np.cumsum(per_time, axis=0, out=c[1:])
+            return c[pos]
+
+        H = upto(dH)
+        given_beta = upto(dH * dH / self._index.deaths[a:b])  # D_k / S0(t_k; x)^2
+        q = upto((self._xbar[a:b] - z) * dH[:, None])
+        V = self.cov_robust if self.robust else self.cov_model
+        se = np.sqrt(given_beta + np.einsum("ij,jk,ik->i", q, V, q))
+        zq = float(stats.norm.ppf(0.5 + level / 2))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            if transform == "log-log":
+                spread = np.where(H > 0, np.exp(zq * se / H), 1.0)
+                low, high = np.exp(-H * spread), np.exp(-H / spread)
+            else:
+                low, high = np.exp(-H - zq * se), np.minimum(1.0, np.exp(-H + zq * se))
+        return pd.DataFrame({"time": t, "cumulative_hazard": H, "se_cumulative_hazard": se,
+                             "retention": np.exp(-H), "retention_low": low,
+                             "retention_high": high, "extrapolated": t > self._last_time(s)})
 
     def _strata_of(self, table: StartStop) -> np.ndarray:
         if not self.strata:
@@ -633,8 +709,11 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     n_events = table.n_events
     if n_events <= 0:
         raise ModelError(where, "the table has no churns", "a hazard model needs churn events")
-    # centred, C-ordered: the kernels stream over rows, and the fit keeps one copy of X
-    design = design_matrix(table, covariates, reference=reference, centre=True, order="C")
+    # centred, C-ordered: the kernels stream over rows, and the fit keeps one copy of X;
+    # collinear columns are found from the information at beta = 0 (the first Newton
+    # evaluation) instead of a separate pass over X
+    design = design_matrix(table, covariates, reference=reference, centre=True, order="C",
+                           check_collinear=False)
     p = design.n_columns
     if p == 0:
         raise ModelError(where, "no covariates", "name at least one covariate")
@@ -662,7 +741,13 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     Xc = design.X
     index = K.build_risk_index(table.start, table.stop, d, w, stratum, len(stratum_labels))
     efron = ties == "efron"
-    res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter)
+    within = "within the risk sets" + (" of each stratum" if strata_t else "")
+
+    def check_info0(info0: np.ndarray) -> None:
+        check_collinear_matrix(design, info0, within=within)
+
+    res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter,
+                       check_info0=check_info0)
     size = np.abs(res.beta)
     for j in np.flatnonzero(size > 1.0):  # |beta| x sd only where it could be large
         size[j] *= np.sqrt(np.dot(w * Xc[:, j], Xc[:, j]) / w.sum())
@@ -716,6 +801,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         warn.append(f"L2 penalty {penalty:g}: coefficients are shrunk towards 0 and the tests use "
                     "the penalised log likelihood")
     dH0 = K.breslow_increments(index, Xc, w, res.beta, off, state=res.state)
+    xbar = res.state.stats.S1 / res.state.stats.S0[:, None]
     res = res._replace(state=None)  # free the risk scores held for reuse
     return CoxFit(
         covariates=tuple(covariates), columns=design.columns, labels=design.labels,
@@ -732,7 +818,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         score_test=_chi2("score (log-rank)", score, p), aic=-2 * res.loglik + 2 * p,
         iterations=res.iterations, history=tuple(tuple(h) for h in res.history),
         warnings=tuple(warn), source=table.source, design=design, _index=index, _Xc=Xc,
-        _weight=w, _churned=d, _offset=off, _stratum=stratum, _dH0=dH0, _table=table,
+        _weight=w, _churned=d, _offset=off, _stratum=stratum, _dH0=dH0, _xbar=xbar, _table=table,
         _cluster=cluster,
     )
 

@@ -206,6 +206,7 @@ def design_matrix(
     reference: Mapping[str, str] | None = None,
     centre: bool = False,
     order: str = "F",
+    check_collinear: bool = True,
 ) -> Design:
     """Code covariates of a start-stop table as a design matrix.
 
@@ -221,6 +222,10 @@ def design_matrix(
         Store the centred columns ``X - means`` (``is_centred``) instead of the raw ones.
     order : {"F", "C"}
         Memory order of ``X``: Fortran (column at a time) or C (row at a time).
+    check_collinear : bool
+        Check here for collinear columns (default). A model that checks its own
+        information matrix instead (with :func:`check_collinear_matrix`) may skip
+        this pass over ``X``.
 
     Returns
     -------
@@ -318,20 +323,21 @@ def design_matrix(
         # a band of rows at a time, so each band stays in cache while its columns land
         # and while it adds to the weighted cross-product for the collinearity check
         X = np.empty((n, p), dtype=np.float64, order="C")
-        gram = np.zeros((p, p))
+        gram = np.zeros((p, p)) if check_collinear else None
         band = 1 << 14
         Y = np.empty((min(band, n), p))
-        sw = np.sqrt(w)
+        sw = np.sqrt(w) if check_collinear else w
         for a in range(0, n, band):
             Xb = X[a:a + band]
             for j, block in enumerate(blocks):
                 Xb[:, j] = block[a:a + band]
             Xb -= shift
-            Yb = Y[:Xb.shape[0]]
-            np.multiply(Xb, sw[a:a + band, None], out=Yb)
-            if not centre:
-                Yb -= means * sw[a:a + band, None]
-            gram += Yb.T @ Yb
+            if gram is not None:
+                Yb = Y[:Xb.shape[0]]
+                np.multiply(Xb, sw[a:a + band, None], out=Yb)
+                if not centre:
+                    Yb -= means * sw[a:a + band, None]
+                gram += Yb.T @ Yb
         del Y, sw
     else:
         raise ValueError(f"order must be 'F' or 'C', got {order!r}")
@@ -339,7 +345,8 @@ def design_matrix(
     design = Design(X=X, columns=tuple(columns), labels=tuple(labels),
                     covariates=tuple(covariates), terms=terms, reference=refs, levels=levels,
                     means=means, source=where, is_centred=bool(centre))
-    _check_collinear(design, w, gram)
+    if check_collinear:
+        _check_collinear(design, w, gram)
     return design
 
 
@@ -357,14 +364,29 @@ def weighted_correlation(X: np.ndarray, w: np.ndarray, means: np.ndarray | float
 
 def _check_collinear(design: Design, w: np.ndarray, gram: np.ndarray | None = None) -> None:
     """``gram``: the weighted cross-product of the centred columns, if already summed."""
-    p = design.n_columns
-    if p < 2:
+    if design.n_columns < 2:
         return
     if gram is None:
-        R = weighted_correlation(design.X, w, 0.0 if design.is_centred else design.means)
-    else:
-        sd = np.sqrt(np.diag(gram))
-        R = gram / np.outer(sd, sd)
+        gram = weighted_correlation(design.X, w, 0.0 if design.is_centred else design.means)
+    check_collinear_matrix(design, gram)
+
+
+def check_collinear_matrix(design: Design, gram: np.ndarray, within: str = "") -> None:
+    """Raise :class:`DataError` naming the columns if the p x p positive semi-definite
+    ``gram`` (a weighted cross-product or an information matrix of the columns) is
+    singular: an eigenvalue of its correlation form below ``COLLINEAR_TOL * p``.
+    ``within`` qualifies the message (e.g. "within the risk sets").
+    """
+    p = design.n_columns
+    if p < 2 and not within:
+        return
+    sd = np.sqrt(np.maximum(np.diag(gram), 0.0))
+    flat = sd <= 1e-12 * max(float(sd.max()), 1e-300)
+    if flat.any():
+        names = [design.columns[i] for i in np.flatnonzero(flat)]
+        raise DataError(design.source, f"covariate column(s) {', '.join(names)} do not vary "
+                        f"{within or 'at all'}", "drop them or fit within one level")
+    R = gram / np.outer(sd, sd)
     vals, vecs = np.linalg.eigh(R)
     null = vals < COLLINEAR_TOL * p
     if not null.any():
@@ -374,9 +396,10 @@ def _check_collinear(design: Design, w: np.ndarray, gram: np.ndarray | None = No
     names = [design.columns[i] for i in involved]
     raise DataError(design.source,
                     f"covariates are collinear: {', '.join(names)} (one is a linear "
-                    "combination of the others, or a level always coincides with another "
-                    "covariate's level)",
+                    f"combination of the others{' ' + within if within else ''}, or a level "
+                    "always coincides with another covariate's level)",
                     "drop one of them or merge levels")
 
 
-__all__ = ["Design", "design_matrix", "weighted_correlation", "COLLINEAR_TOL"]
+__all__ = ["Design", "design_matrix", "weighted_correlation", "check_collinear_matrix",
+           "COLLINEAR_TOL"]
