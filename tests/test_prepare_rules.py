@@ -232,3 +232,27 @@ def test_same_day_same_kind_events_apply_in_time_order(tmp_path):
                        ("a", "2024-01-11 08:00", "price_change", None, None, "12"),
                        ("a", "2024-01-21 09:00", "cancel")])
     assert rows_of(p, ("start", "stop", "price")) == [(0.0, 10.0, 10.0), (10.0, 20.0, 14.0)]
+
+
+def test_events_at_the_same_moment_apply_in_file_order(tmp_path):
+    """Same customer, day, kind and time: the later source row wins. Such ties send the
+    customer through the row-by-row check; the rows must come out as for any other."""
+    p = run(tmp_path, [signup("a", "2024-01-01 09:00"),
+                       ("a", "2024-01-11 08:00", "price_change", None, None, "12"),
+                       ("a", "2024-01-11 08:00", "price_change", None, None, "14"),
+                       ("a", "2024-01-21 09:00", "cancel"),
+                       signup("b", "2024-01-01 09:00"), ("b", "2024-01-21 09:00", "cancel")])
+    assert rows_of(p, ("customer_id", "start", "stop", "price")) == [
+        ("a", 0.0, 10.0, 10.0), ("a", 10.0, 20.0, 14.0), ("b", 0.0, 20.0, 10.0)]
+
+
+def test_a_customer_with_a_repeat_and_a_stray_start_keeps_the_rest(tmp_path):
+    """Exact repeat and a start during an open spell: both quarantined, every other row
+    of that customer used as if they were not there."""
+    p = run(tmp_path, [signup("a", "2024-01-01"), ("a", "2024-01-05", "pause"),
+                       ("a", "2024-01-05", "pause"), signup("a", "2024-01-08"),
+                       ("a", "2024-01-09", "resume"), ("a", "2024-01-21", "cancel")])
+    assert rows_of(p, ("start", "stop", "churned", "paused")) == [
+        (0.0, 4.0, 0, 0.0), (4.0, 8.0, 0, 1.0), (8.0, 20.0, 1, 0.0)]
+    assert p.reconciliation.by_reason == {"exact duplicate": 1,
+                                          "start during an open spell": 1}

@@ -40,7 +40,16 @@ def test_normalise_columns(con):
         ("event_ts", "TIMESTAMP WITH TIME ZONE"), ("event_raw", "VARCHAR"),
         ("reason_raw", "VARCHAR"), ("event", "VARCHAR"), ("event_rank", "INTEGER"),
         ("cause_given", "VARCHAR"), ("ignored", "BOOLEAN"), ("reason", "VARCHAR"),
-        ("row_hash", "UBIGINT"), *ATTRS, *NUMS]
+        ("row_hash", "UBIGINT"), ("ord", "HUGEINT"), ("day_ord", "HUGEINT"), *ATTRS, *NUMS]
+
+
+def test_ord_orders_a_customers_events_by_day_rank_time_and_row(con):
+    rows = con.execute("select source_row from events where customer_id = 'a' order by ord"
+                       ).fetchall()
+    assert [r[0] for r in rows] == [1, 2, 3]
+    same = con.execute("select count(distinct day_ord) from events where customer_id = 'b'"
+                       ).fetchall()
+    assert same == [(1,)]
 
 
 def test_sequence_columns(con):
@@ -49,16 +58,25 @@ def test_sequence_columns(con):
         (4, "event before the customer's first start")]
 
 
-def test_spells_columns(con):
-    assert schema(con, "spells") == [
-        ("customer_id", "VARCHAR"), ("source_row", "BIGINT"), ("spell", "BIGINT"),
-        ("start_day", "DATE"), ("day", "DATE"), ("tenure", "INTEGER"), ("event", "VARCHAR"),
-        ("cause", "VARCHAR"), ("last_of_day", "BOOLEAN"), ("outside_window", "BOOLEAN"),
-        ("paused", "INTEGER"), ("in_recovery", "INTEGER"),
-        ("vc__plan", "VARCHAR"), ("vc__0", "VARCHAR"), ("vr__price", "DOUBLE"),
-        ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE"), ("sc__channel", "VARCHAR"),
-        ("sc__region", "VARCHAR"), ("sc__arm", "VARCHAR"), ("sc__0", "VARCHAR"),
-        ("sn__0", "DOUBLE")]
+STATE_COLUMNS = [
+    ("customer_id", "VARCHAR"), ("source_row", "BIGINT"), ("spell", "BIGINT"),
+    ("start_day", "DATE"), ("day", "DATE"), ("tenure", "INTEGER"), ("event_rank", "INTEGER"),
+    ("cause", "VARCHAR"), ("last_of_day", "BOOLEAN"), ("changed", "BOOLEAN"),
+    ("end_day", "DATE"), ("outside_window", "BOOLEAN"), ("paused", "INTEGER"),
+    ("in_recovery", "INTEGER"), ("vc__plan", "VARCHAR"), ("vr__price", "DOUBLE"),
+    ("vc__0", "VARCHAR"), ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE"), ("sc__channel", "VARCHAR"),
+    ("sc__region", "VARCHAR"), ("sc__arm", "VARCHAR"), ("sc__0", "VARCHAR"), ("sn__0", "DOUBLE")]
+
+
+def test_states_troubled_and_spells_columns(con):
+    assert schema(con, "first_pass") == STATE_COLUMNS + [("suspect", "BOOLEAN")]
+    assert schema(con, "redo") == STATE_COLUMNS + [("suspect", "BOOLEAN")]
+    assert schema(con, "troubled_events") == schema(con, "events")
+    assert schema(con, "spells") == STATE_COLUMNS + [("event", "VARCHAR")]
+    # customer b's only row (a pause before any start) is suspect; a and c are not
+    assert con.execute("select distinct customer_id from troubled_events").fetchall() == [("b",)]
+    assert con.execute("select customer_id, count(*) from spells group by all").fetchall() == [
+        ("a", 3)]
 
 
 CORE = [("customer_id", "VARCHAR"), ("spell", "BIGINT"), ("start", "DOUBLE"), ("stop", "DOUBLE"),
@@ -110,7 +128,9 @@ def test_compress_table_on_any_arrow_start_stop_table(con):
 @pytest.mark.parametrize("step,params", [
     ("normalise", {"timezone", "as_of", "event_from", "event_to", "event_ignore", "reason_from",
                    "reason_to", "reason_ignore"}),
-    ("sequence", set()), ("spells", {"window_start"}), ("intervals", {"as_of", "window_start"}),
+    ("states", {"window_start"}), ("troubled", set()), ("sequence", set()), ("spells", set()),
+    ("state_input_all", set()), ("state_input_redo", set()),
+    ("intervals", {"as_of", "window_start"}),
     ("compress", set()), ("quarantine", set()), ("reconcile", set()),
     ("import_csv", {"path"}), ("import_parquet", {"path"}), ("import_table", set()),
 ])

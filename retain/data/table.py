@@ -66,16 +66,33 @@ class Categorical:
         if pa.types.is_dictionary(arr.type):
             arr = arr.cast(arr.type.value_type)
         arr = pc.cast(arr, pa.string())
-        uniq = pc.unique(arr.drop_null()).to_pylist()
-        levels = tuple(sorted(uniq))
-        if not levels:
+        # distinct values in Arrow (no Python-level sort): sorted by UTF-8 bytes, which
+        # is code-point order, the order Python's sorted() gives
+        encoded = pc.dictionary_encode(arr)
+        dictionary = encoded.dictionary
+        if len(dictionary) == 0:
             return cls(np.full(len(arr), -1, dtype=np.int32), ())
-        idx = pc.index_in(arr, value_set=pa.array(levels, type=pa.string()))
-        codes = idx.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int32)
+        order = pc.sort_indices(dictionary).to_numpy()
+        rank = np.empty(len(order), dtype=np.int32)
+        rank[order] = np.arange(len(order), dtype=np.int32)
+        idx = encoded.indices
+        raw = idx.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int64)
+        codes = np.where(raw >= 0, rank[np.maximum(raw, 0)], -1).astype(np.int32)
+        levels = tuple(dictionary.take(pa.array(order)).to_pylist())
         return cls(codes, levels)
 
 
 Column = "np.ndarray | Categorical"
+
+
+def _row_order(customer: np.ndarray, spell: np.ndarray, start: np.ndarray) -> np.ndarray:
+    """Row order by (customer, spell, start); tables from prepare are already in it."""
+    n = customer.shape[0]
+    dc, ds = np.diff(customer), np.diff(spell)
+    ordered = (dc > 0) | ((dc == 0) & ((ds > 0) | ((ds == 0) & (np.diff(start) >= 0))))
+    if ordered.all():
+        return np.arange(n)
+    return np.lexsort((start, spell, customer))
 
 
 def _as_float(name: str, values: Any) -> np.ndarray:
@@ -223,7 +240,7 @@ class StartStop:
             raise DataError(where, f"a cause is set on a row that did not churn ({self._who(i)})",
                             "cause belongs on churn rows only")
         # within (customer, spell): ordered, non-overlapping, churn only on the last row
-        order = np.lexsort((self.start, self.spell, self.customer.codes))
+        order = _row_order(self.customer.codes, self.spell, self.start)
         c = self.customer.codes[order]
         s = self.spell[order]
         same = (c[1:] == c[:-1]) & (s[1:] == s[:-1])
