@@ -330,8 +330,7 @@ def design_matrix(
         for a in range(0, n, band):
             Xb = X[a:a + band]
             for j, block in enumerate(blocks):
-                Xb[:, j] = block[a:a + band]
-            Xb -= shift
+                np.subtract(block[a:a + band], shift[j], out=Xb[:, j])
             if gram is not None:
                 Yb = Y[:Xb.shape[0]]
                 np.multiply(Xb, sw[a:a + band, None], out=Yb)
