@@ -25,6 +25,7 @@ import json
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -87,15 +88,24 @@ class Reconciliation(Result):
 
 @dataclass(frozen=True)
 class Prepared:
-    """Everything :func:`prepare` produces."""
+    """Everything :func:`prepare` produces.
 
-    table: StartStop
+    ``arrow`` is the start-stop table as written to Parquet; ``table`` is the same
+    table as :class:`StartStop` arrays for the models, built on first use (the
+    commands that only write files never pay for it).
+    """
+
     arrow: pa.Table
     quarantine: pa.Table
     reconciliation: Reconciliation
     unknown_events: dict[str, int]
     config: Config
     compressed: pa.Table | None = None
+
+    @cached_property
+    def table(self) -> StartStop:
+        return StartStop.from_arrow(self.arrow,
+                                    source=f"start-stop table of {self.config.source.label}")
 
 
 # ---------------------------------------------------------------------- helpers
@@ -118,6 +128,8 @@ def connect(config: Config) -> duckdb.DuckDBPyConnection:
         eng.temp_directory.mkdir(parents=True, exist_ok=True)
         settings["temp_directory"] = str(eng.temp_directory)
     con = duckdb.connect(config=settings)
+    # retain reports its own progress, one line per step
+    con.execute("set enable_progress_bar = false")
     # the zone was checked against DuckDB's own list when the config was read
     con.execute(f"set TimeZone = {_literal(config.window.timezone)}")
     return con
@@ -354,8 +366,7 @@ def prepare(config: Config, *, progress: Progress | None = None,
         raise DataError(config.source.label, "no spell of any customer lies in the window: "
                         + reconciliation.summary(),
                         "check [events] map, [window] and the quarantine reasons")
-    table = StartStop.from_arrow(arrow, source=f"start-stop table of {config.source.label}")
-    return Prepared(table=table, arrow=arrow, quarantine=quarantine,
+    return Prepared(arrow=arrow, quarantine=quarantine,
                     reconciliation=reconciliation, unknown_events=unknown, config=config,
                     compressed=compressed)
 
