@@ -15,7 +15,8 @@
 --   * <attribute>_ratio = value / value on the spell's first day.
 -- One window per spell over its cuts and its end: an interval stops at the
 -- next cut, or at the exit; the end row (the last of its day, as `end` is the
--- day's last event) carries the cause.
+-- day's last event) carries the cause. Rows come in no particular order; the
+-- `row_order` step gives the order (customer_id, spell, start).
 -- Parameters: $as_of (date), $window_start (date or null).
 with cuts as (
     select
@@ -81,4 +82,3 @@ final as (
 )
 
 select * from final
-order by customer_id, spell, start

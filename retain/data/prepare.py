@@ -233,6 +233,12 @@ def _public_names(table: pa.Table) -> pa.Table:
     return table.select(keep).rename_columns(names)
 
 
+def _ordered_arrow(con: duckdb.DuckDBPyConnection) -> pa.Table:
+    """The start-stop table as Arrow, rows in (customer_id, spell, start) order."""
+    position = run_step(con, "row_order").to_arrow_table().column(0)
+    return _public_names(con.table("start_stop").to_arrow_table()).take(position)
+
+
 def _strict_checks(con: duckdb.DuckDBPyConnection, config: Config) -> None:
     if config.events.strict:
         rows = run_step(con, "unknown_events").fetchall()
@@ -352,7 +358,7 @@ def prepare(config: Config, *, progress: Progress | None = None,
     con = connect(config)
     try:
         timer = run_steps(con, config, progress=progress)
-        arrow = _public_names(con.table("start_stop").to_arrow_table())
+        arrow = timer.run("order rows", lambda: _ordered_arrow(con))
         quarantine = timer.run("quarantine", lambda: run_step(con, "quarantine").to_arrow_table())
         unknown = {v: int(n) for v, n in run_step(con, "unknown_events").fetchall()}
         reconciliation = _reconcile(con, config, arrow)
