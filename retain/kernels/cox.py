@@ -11,10 +11,11 @@ found with one ``searchsorted`` for its start and one for its stop. Every
 risk-set sum is then a difference array (``+v_i`` at ``lo_i``, ``-v_i`` at
 ``hi_i``) and one cumulative sum; sums over a row's window of a per-time
 quantity are two gathers from a cumulative sum. For the :math:`p` columns of
-:math:`S_1` at once the difference array is one sparse product
+:math:`S_1` at once the difference array is a sparse product
 :math:`M\,X` with :math:`M` the :math:`(K+1)\times n` matrix holding
-:math:`\pm r_i` in column :math:`i` (two entries per column, compressed-column
-form), which streams over a C-ordered ``X`` once.
+:math:`+r_i` at row ``lo_i`` and :math:`-r_i` at row ``hi_i`` of column :math:`i`
+(compressed-column form, ``r`` itself as the data), which streams over a
+C-ordered ``X``.
 
 Log partial likelihood with Efron ties (Efron 1977, JASA 72:557; the weighted
 form of Therneau & Grambsch 2000, *Modeling Survival Data*, sec. 3.3). At
@@ -65,8 +66,7 @@ class RiskIndex(NamedTuple):
     bounds: np.ndarray        # (S+1,) times[bounds[s]:bounds[s+1]] belong to stratum s
     lo: np.ndarray            # (n,) first churn time index at which the row is at risk
     hi: np.ndarray            # (n,) one past the last
-    window_rows: np.ndarray   # (2n,) lo and hi of each row, interleaved (the difference operator)
-    window_ptr: np.ndarray    # (n+1,) 0, 2, 4, ...: row i's two entries in window_rows
+    row_ptr: np.ndarray       # (n+1,) 0, 1, ..., n: one entry per row (sparse index pointer)
     event_rows: np.ndarray    # (E,) rows that churn
     event_k: np.ndarray       # (E,) churn-time index of each of those rows (ascending)
     event_starts: np.ndarray  # (K,) where each churn time's rows begin in event_rows
@@ -178,13 +178,10 @@ def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,
     first = np.cumsum(units) - units
     unit_f = (np.arange(unit_k.shape[0]) - first[unit_k]) / units[unit_k]
     event_starts = np.flatnonzero(new)
-    window_rows = np.empty(2 * n, dtype=itype)
-    window_rows[0::2] = lo
-    window_rows[1::2] = hi
-    window_ptr = np.arange(0, 2 * n + 1, 2, dtype=itype)
+    row_ptr = np.arange(n + 1, dtype=itype)
     churn_k = np.empty(ev.shape[0], dtype=np.int64)
     churn_k[o] = event_k
-    return RiskIndex(times, time_stratum, bounds, lo, hi, window_rows, window_ptr, event_rows,
+    return RiskIndex(times, time_stratum, bounds, lo, hi, row_ptr, event_rows,
                      event_k, event_starts, ev, churn_k, deaths, units, omega, unit_k, unit_f,
                      int(n_strata))
 
@@ -206,21 +203,22 @@ def risk_sums(index: RiskIndex, r: np.ndarray, X: np.ndarray | None = None
     """S0 (K,) and S1 (K, p): sums of ``r`` and ``r x`` over each risk set.
 
     Difference arrays and one cumulative sum: ``bincount`` at ``lo`` minus at
-    ``hi`` for S0; for S1 the sparse product :math:`M X` (module docstring),
-    one pass over ``X`` with no (n, p) temporary when ``X`` is C-ordered.
+    ``hi`` for S0; for S1 the sparse product :math:`M X = M_{lo}X - M_{hi}X`
+    (module docstring), each a stream over a C-ordered ``X`` with no (n, p)
+    temporary.
     """
     K = index.times.shape[0]
     lo, hi = index.lo, index.hi
     S0 = np.cumsum(np.bincount(lo, r, K + 1) - np.bincount(hi, r, K + 1))[:K]
     if X is None:
         return S0, None
-    data = np.empty(2 * r.shape[0])
-    data[0::2] = r
-    np.negative(r, out=data[1::2])
-    M = sparse.csc_matrix((data, index.window_rows, index.window_ptr),
-                          shape=(K + 1, r.shape[0]), copy=False)
-    S1 = np.cumsum(M @ np.ascontiguousarray(X), axis=0)[:K]
-    return S0, S1
+    n = r.shape[0]
+    at_lo = sparse.csc_matrix((r, lo, index.row_ptr), shape=(K + 1, n), copy=False)
+    at_hi = sparse.csc_matrix((r, hi, index.row_ptr), shape=(K + 1, n), copy=False)
+    X = np.ascontiguousarray(X)
+    D1 = at_lo @ X
+    D1 -= at_hi @ X
+    return S0, np.cumsum(D1, axis=0)[:K]
 
 
 class TimeStats(NamedTuple):
@@ -415,8 +413,8 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     Under Breslow ties these reduce to the familiar
     :math:`d_i(x_i-\bar x_{k(i)}) - e^{\eta_i}\sum_{k} (x_i-\bar x_k)\,dH_0(t_k)`.
 
-    With ``cluster`` (int codes) the rows are summed by cluster through two
-    sparse products, so no (n, p) array is formed. ``state`` (a
+    With ``cluster`` (int codes) the rows are summed by cluster through sparse
+    products over the rows grouped by cluster, so no (n, p) array is formed. ``state`` (a
     :class:`RiskState` at ``beta``) saves recomputing the risk sums.
     """
     if state is None:
@@ -454,7 +452,7 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     # When each cluster's rows are contiguous (the usual layout) the groups are the runs
     # of equal codes and need no sorting or gathers; otherwise the rows are sorted once.
     C = int(n_clusters or cluster.max() + 1)
-    itype = index.window_rows.dtype
+    itype = index.row_ptr.dtype
     pdata = rA
     pdata[er] -= x_coef
     del rA
@@ -463,30 +461,23 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     if np.bincount(run_codes, minlength=C).max() <= 1:  # each cluster is one run
         groups = run_codes.shape[0]
         indptr = np.concatenate(([0], run_starts, [n])).astype(itype)
-        cols = np.arange(n, dtype=itype)
-        ind = index.window_rows  # lo, hi interleaved
-        r_in = r
+        cols = index.row_ptr[:-1]
+        lo, hi, r_in = index.lo, index.hi, r
     else:
         groups, run_codes = C, None
         indptr = np.zeros(C + 1, dtype=itype)
         np.cumsum(np.bincount(cluster, minlength=C), out=indptr[1:])
         cols = np.argsort(cluster, kind="stable").astype(itype)
         pdata = pdata[cols]
-        ind = np.empty(2 * n, dtype=itype)
-        ind[0::2] = index.lo[cols]
-        ind[1::2] = index.hi[cols]
-        r_in = r[cols]
-    dat = np.empty(2 * n)
-    np.negative(r_in, out=dat[0::2])
-    dat[1::2] = r_in
-    del r_in
+        lo, hi, r_in = index.lo[cols], index.hi[cols], r[cols]
     P = sparse.csr_matrix((pdata, cols, indptr), shape=(groups, n), copy=False)
     U = P @ np.ascontiguousarray(X)
     np.negative(U, out=U)
     del P, pdata, cols
-    Q = sparse.csr_matrix((dat, ind, 2 * indptr), shape=(groups, CH.shape[0]), copy=False)
-    U += Q @ CH
-    del Q, dat, ind
+    K1 = CH.shape[0]
+    U += sparse.csr_matrix((r_in, hi, indptr), shape=(groups, K1), copy=False) @ CH
+    U -= sparse.csr_matrix((r_in, lo, indptr), shape=(groups, K1), copy=False) @ CH
+    del lo, hi, r_in
     if run_codes is not None:
         by_code = np.zeros((C, p))
         by_code[run_codes] = U
