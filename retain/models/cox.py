@@ -17,6 +17,9 @@ held at the column means of the design (centred, as is usual); retention for
 a profile :math:`x` is :math:`\exp\{-\hat H_0(t)\,e^{(x-\bar x)^\top\hat\beta}\}`.
 The baseline is flat after the last observed churn of a stratum, so any
 figure that reaches past it is flagged as extrapolated.
+:meth:`CoxFit.retention_interval` gives pointwise intervals on that curve,
+with the variance of the Breslow cumulative hazard including the uncertainty
+in :math:`\hat\beta` (Tsiatis 1981).
 """
 
 from __future__ import annotations
