@@ -9,8 +9,7 @@
 --   and a null placeholder <group>0 for each group (so every group exists).
 -- Produces: typed columns, the calendar day in the configured zone, our event,
 -- its same-day rank, the cause given by the reason, `reason` = the first
--- row-level quarantine reason (null = usable so far), `row_hash` (exact
--- duplicates are found by the duplicates step), and the keys the later steps
+-- row-level quarantine reason (null = usable so far), and the keys the later steps
 -- sort on: `ord`, one integer that orders a customer's events by (day, same-day
 -- rank, time, source row), and `day_ord`, the `ord` of the day's first possible
 -- event. Ignored events are kept with
@@ -112,10 +111,6 @@ final as (
         cast(cause_given as varchar) as cause_given,
         cast(ignored as boolean) as ignored,
         cast(row_reason as varchar) as reason,
-        -- a fingerprint of everything retain reads, to find exact duplicates
-        -- cheaply (the sequence step confirms them value by value)
-        cast(hash(customer_id, event_ts, event_raw, reason_raw,
-                  *columns('^[sv][cnr]__')) as ubigint) as row_hash,
         cast(ord as hugeint) as ord,
         cast(day_ord as hugeint) as day_ord,
         cast(columns('^([sv]c__.*)$') as varchar) as '\1',

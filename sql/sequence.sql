@@ -4,8 +4,7 @@
 -- flags; every other customer's rows are in order and unrepeated).
 -- Exact duplicates: rows identical in customer, time, event value, reason and
 -- every attribute (numbers compared as numbers); of each set the first (lowest
--- source row) is used. Candidates are found by grouping on `row_hash` (cheap);
--- the few that share a fingerprint are then compared value by value.
+-- source row) is used.
 -- Order: a spell is opened by `start` and closed by `end`. With the usable
 -- rows in the fixed order (day, same-day rank, time, source row) the state
 -- before a row is "open" exactly when the last start/end before it is a
@@ -17,13 +16,6 @@ with usable as (
     from troubled_events
 ),
 
-shared_fingerprints as (
-    select row_hash
-    from usable
-    group by row_hash
-    having count(*) > 1
-),
-
 copies as (
     select
         u.source_row,
@@ -33,7 +25,6 @@ copies as (
             order by u.source_row
         ) as copy_number
     from usable as u
-    semi join shared_fingerprints as f on u.row_hash = f.row_hash
 ),
 
 duplicates as (

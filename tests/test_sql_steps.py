@@ -40,7 +40,7 @@ def test_normalise_columns(con):
         ("event_ts", "TIMESTAMP WITH TIME ZONE"), ("event_raw", "VARCHAR"),
         ("reason_raw", "VARCHAR"), ("event", "VARCHAR"), ("event_rank", "INTEGER"),
         ("cause_given", "VARCHAR"), ("ignored", "BOOLEAN"), ("reason", "VARCHAR"),
-        ("row_hash", "UBIGINT"), ("ord", "HUGEINT"), ("day_ord", "HUGEINT"), *ATTRS, *NUMS]
+        ("ord", "HUGEINT"), ("day_ord", "HUGEINT"), *ATTRS, *NUMS]
 
 
 def test_ord_orders_a_customers_events_by_day_rank_time_and_row(con):
