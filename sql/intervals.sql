@@ -15,8 +15,8 @@
 --   * <attribute>_ratio = value / value on the spell's first day.
 -- One window per spell over its cuts and its end: an interval stops at the
 -- next cut, or at the exit; the end row (the last of its day, as `end` is the
--- day's last event) carries the cause. Rows come in no particular order; the
--- `row_order` step gives the order (customer_id, spell, start).
+-- day's last event) carries the cause. The window runs over all rows in the
+-- output order (customer_id, spell, start), which the rows keep.
 -- Parameters: $as_of (date), $window_start (date or null).
 with cuts as (
     select
@@ -35,12 +35,20 @@ with cuts as (
 walked as (
     select
         *,
-        lead(tenure) over by_tenure as next_tenure,
-        lead(cause) over by_tenure as next_cause,
-        columns('^(vr__.*)$') / nullif(first_value(columns('^(vr__.*)$')) over by_tenure, 0)
-            as 'ratio__\1'
-    from cuts
-    window by_tenure as (partition by customer_id, spell order by tenure)
+        -- one window over all rows in output order, so the rows come out sorted;
+        -- a neighbour counts only within the same spell
+        case when lead(spell_key) over in_order = spell_key
+             then lead(tenure) over in_order end as next_tenure,
+        case when lead(spell_key) over in_order = spell_key
+             then lead(cause) over in_order end as next_cause,
+        -- the spell's first day is a cut, so the last first-day value so far is its
+        -- base (NaN stands in for a missing value: numbers are finite here)
+        columns('^(vr__.*)$') / nullif(nullif(last_value(
+            case when day = start_day then coalesce(columns('^(vr__.*)$'), 'nan'::double) end
+            ignore nulls) over in_order, 'nan'::double), 0) as 'ratio__\1'
+    from (select *, row(customer_id, spell) as spell_key from cuts)
+    window in_order as (order by customer_id, spell, tenure
+                        rows between unbounded preceding and current row)
 ),
 
 kept as (

@@ -136,3 +136,18 @@ def test_compress_table_on_any_arrow_start_stop_table(con):
 ])
 def test_each_step_binds_exactly_its_parameters(step, params):
     assert step_parameters(step) == params
+
+
+def test_rows_come_out_ordered_and_the_fallback_sort_restores_the_order():
+    import duckdb
+
+    from retain.data.prepare import _in_order, _ordered_arrow
+
+    con = duckdb.connect()
+    con.execute("create table start_stop as select * from (values ('b', 1, 0.0), "
+                "('a', 2, 5.0), ('a', 1, 3.0), ('a', 1, 0.0)) t(customer_id, spell, start)")
+    assert not _in_order(con.table("start_stop").to_arrow_table())
+    out = _ordered_arrow(con)
+    assert list(zip(*(out.column(c).to_pylist() for c in ("customer_id", "spell", "start")),
+                    strict=True)) == [("a", 1, 0.0), ("a", 1, 3.0), ("a", 2, 5.0), ("b", 1, 0.0)]
+    assert _in_order(out)
