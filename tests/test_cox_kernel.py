@@ -221,6 +221,14 @@ def test_half_day_lookup_equals_searchsorted():
     np.testing.assert_array_equal(out, np.searchsorted(times, many, side="right"))
 
 
+def test_event_order_equals_stable_argsort():
+    """The radix path for half-day churn times gives argsort's stable order exactly."""
+    rng = np.random.default_rng(1)
+    for t in (rng.integers(1, 900, 20_000) / 2.0, rng.uniform(0, 300, 20_000),
+              rng.integers(0, 40_000, 20_000) / 1.0):
+        np.testing.assert_array_equal(K._event_order(t), np.argsort(t, kind="stable"))
+
+
 def test_centred_row_ordered_design_equals_default_minus_means():
     """The Cox fit codes its design centred and C-ordered (one copy of X); it must equal
     the default coding minus the weighted means, and raise the same collinearity error."""

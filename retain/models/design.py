@@ -296,8 +296,10 @@ def design_matrix(
             if c in reference:
                 raise DataError(where, f"a reference level is given for numeric covariate {c!r}",
                                 "reference levels apply to categorical covariates only")
-            _check_missing(where, c, ~np.isfinite(col))
-            if np.all(col == col[0]):
+            lowest, highest = float(col.min()), float(col.max())  # NaN/inf show up here
+            if not (np.isfinite(lowest) and np.isfinite(highest)):
+                _check_missing(where, c, ~np.isfinite(col))
+            if lowest == highest:
                 raise DataError(where, f"covariate {c!r} has no variation "
                                 f"(every row is {col[0]:g})",
                                 f"drop {c!r} from the covariates")
