@@ -203,8 +203,8 @@ def window_sum(index: RiskIndex, per_time: np.ndarray) -> np.ndarray:
     """
     c = np.zeros((per_time.shape[0] + 1,) + per_time.shape[1:])
     np.cumsum(per_time, axis=0, out=c[1:])
-    out = c[index.hi]
-    out -= c[index.lo]
+    out = np.take(c, index.hi, axis=0)  # take: faster than fancy indexing here
+    out -= np.take(c, index.lo, axis=0)
     return out
 
 

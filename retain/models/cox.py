@@ -709,7 +709,9 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
                         "a stratum gets its own baseline; drop it from the covariates")
     for s in strata_t:
         table.column(s)
-    n_events = table.n_events
+    w = table.weight
+    d = table.churned.astype(np.float64)
+    n_events = float(np.dot(w, d))
     if n_events <= 0:
         raise ModelError(where, "the table has no churns", "a hazard model needs churn events")
     # centred, C-ordered: the kernels stream over rows, and the fit keeps one copy of X;
@@ -728,9 +730,8 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
                             "check the offset column")
     warn: list[str] = []
     stratum, stratum_labels = _stratum_codes(table, strata_t)
-    w = table.weight
-    d = table.churned.astype(np.float64)
-    ev_by_stratum = np.bincount(stratum, weights=w * d, minlength=len(stratum_labels))
+    ev_by_stratum = (np.bincount(stratum, weights=w * d, minlength=len(stratum_labels))
+                     if strata_t else np.array([n_events]))
     for s, e in enumerate(ev_by_stratum):
         if e <= 0:
             warn.append(f"stratum {stratum_labels[s]} has no churns: its rows do not inform the "
