@@ -75,9 +75,9 @@ class Categorical:
         order = pc.sort_indices(dictionary).to_numpy()
         rank = np.empty(len(order), dtype=np.int32)
         rank[order] = np.arange(len(order), dtype=np.int32)
-        idx = encoded.indices
-        raw = idx.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int64)
-        codes = np.where(raw >= 0, rank[np.maximum(raw, 0)], -1).astype(np.int32)
+        raw = encoded.indices.fill_null(-1).to_numpy(zero_copy_only=False)
+        # a missing value's index -1 picks the appended -1
+        codes = np.append(rank, np.int32(-1))[raw]
         levels = tuple(dictionary.take(pa.array(order)).to_pylist())
         return cls(codes, levels)
 
@@ -452,7 +452,9 @@ class StartStop:
             if col.null_count:
                 col = pc.cast(col, pa.float64()).fill_null(np.nan)
             try:
-                return col.to_numpy().astype(np.float64)
+                arr = col.to_numpy().astype(np.float64, copy=False)
+                # an Arrow buffer seen through numpy is read-only: models may write
+                return arr if arr.flags.writeable else arr.copy()
             except (pa.ArrowInvalid, ValueError) as exc:
                 raise DataError(source, f"column {name!r} must be numeric", "check its type") from exc
 
@@ -514,6 +516,6 @@ def _coerce_covariate(name: str, values: Any) -> np.ndarray | Categorical:
         return Categorical.from_values(values)
     arr = np.asarray(values)
     if arr.dtype.kind in "biuf":
-        return arr.astype(np.float64)
+        return arr.astype(np.float64, copy=False)
     return Categorical.from_values(pa.array(arr.tolist(), type=pa.string()) if arr.dtype.kind == "O"
                                    else pa.array(arr.astype(str)))
