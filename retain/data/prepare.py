@@ -338,12 +338,12 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     timer.run("states", lambda: run_step(con, "states", params, create="first_pass"),
               "first_pass")
     # customers with a suspect row: checked row by row, then their states again
-    timer.run("troubled", lambda: run_step(con, "troubled", create="troubled_events"),
+    timer.run("rows to recheck", lambda: run_step(con, "troubled", create="troubled_events"),
               "troubled_events")
-    timer.run("sequence", lambda: run_step(con, "sequence", create="sequence_problems"),
+    timer.run("order checks", lambda: run_step(con, "sequence", create="sequence_problems"),
               "sequence_problems")
     run_step(con, "state_input_redo", create="state_input", view=True)
-    timer.run("states again", lambda: run_step(con, "states", params, create="redo"), "redo")
+    timer.run("states rechecked", lambda: run_step(con, "states", params, create="redo"), "redo")
     run_step(con, "spells", create="spells", view=True)
     timer.run("intervals", lambda: run_step(con, "intervals", params, create="start_stop"),
               "start_stop")
@@ -381,7 +381,7 @@ def prepare(config: Config, *, progress: Progress | None = None,
     con = connect(config)
     try:
         timer = run_steps(con, config, progress=progress)
-        arrow = timer.run("order rows", lambda: _ordered_arrow(con))
+        arrow = timer.run("row order", lambda: _ordered_arrow(con))
         quarantine = timer.run("quarantine", lambda: run_step(con, "quarantine").to_arrow_table())
         unknown = {v: int(n) for v, n in run_step(con, "unknown_events").fetchall()}
         reconciliation = _reconcile(con, config, arrow)
