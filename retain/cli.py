@@ -47,7 +47,7 @@ def stderr_progress(args: argparse.Namespace) -> Callable[[str, int, float], Non
         return None
 
     def show(step: str, rows: int, seconds: float) -> None:
-        print(f"  {step:<11} {rows:>12,} rows {seconds:8.2f} s", file=sys.stderr, flush=True)
+        print(f"  {step:<16} {rows:>12,} rows {seconds:8.2f} s", file=sys.stderr, flush=True)
 
     return show
 
