@@ -99,6 +99,10 @@ def test_kernel_matches_naive_loops(efron, whole, strata):
     U = K.score_residuals(index, X, weight, churned, beta, offset, efron, cl, cl.max() + 1)
     np.testing.assert_allclose(U, np.stack([np.bincount(cl, R0[:, j]) for j in range(3)], 1),
                                rtol=1e-9, atol=1e-10)
+    # in any row order (for the robust variance): the same sum of outer products
+    Ua = K.score_residuals(index, X, weight, churned, beta, offset, efron, cl, cl.max() + 1,
+                           any_order=True)
+    np.testing.assert_allclose(Ua.T @ Ua, U.T @ U, rtol=1e-9, atol=1e-10)
     # rows not grouped by cluster take the sorting path
     mixed = np.random.default_rng(7).integers(0, 25, start.shape[0])
     U = K.score_residuals(index, X, weight, churned, beta, offset, efron, mixed, 25)

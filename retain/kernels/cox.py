@@ -405,7 +405,7 @@ def breslow_increments(index: RiskIndex, X: np.ndarray, weight: np.ndarray, beta
 def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
                     beta: np.ndarray, offset: np.ndarray | None = None, efron: bool = True,
                     cluster: np.ndarray | None = None, n_clusters: int | None = None,
-                    state: RiskState | None = None) -> np.ndarray:
+                    state: RiskState | None = None, any_order: bool = False) -> np.ndarray:
     r"""Score residuals :math:`w_i L_i`, per row (n, p) or summed by cluster (C, p).
 
     Their column sums are the score. Start-stop form (Therneau & Grambsch
@@ -425,7 +425,9 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
 
     With ``cluster`` (int codes) the rows are summed by cluster through sparse
     products over the rows grouped by cluster, so no (n, p) array is formed. ``state`` (a
-    :class:`RiskState` at ``beta``) saves recomputing the risk sums.
+    :class:`RiskState` at ``beta``) saves recomputing the risk sums. With
+    ``any_order`` the cluster sums come in an unspecified row order (all a sum of
+    outer products such as the robust variance needs), which saves a scatter.
     """
     if state is None:
         state = risk_state(index, X, weight, beta, offset, efron)
@@ -488,13 +490,15 @@ def score_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned
     U += sparse.csr_matrix((r_in, hi, indptr), shape=(groups, K1), copy=False) @ CH
     U -= sparse.csr_matrix((r_in, lo, indptr), shape=(groups, K1), copy=False) @ CH
     del lo, hi, r_in
-    if run_codes is not None:
+    # churn-row constants go to their group: the run holding the row, or its cluster
+    owner = cluster[er] if run_codes is None else np.searchsorted(indptr, er, "right") - 1
+    G = sparse.csc_matrix((np.ones(er.shape[0]), owner, np.arange(er.shape[0] + 1)),
+                          shape=(groups, er.shape[0]))
+    U -= G @ ev_const
+    if run_codes is not None and not any_order:
         by_code = np.zeros((C, p))
         by_code[run_codes] = U
         U = by_code
-    G = sparse.csc_matrix((np.ones(er.shape[0]), cluster[er], np.arange(er.shape[0] + 1)),
-                          shape=(C, er.shape[0]))
-    U -= G @ ev_const
     return U
 
 

@@ -841,7 +841,7 @@ def _robust_cov(index: K.RiskIndex, Xc: np.ndarray, w: np.ndarray, d: np.ndarray
     """
     if cluster is not None:
         U = K.score_residuals(index, Xc, w, d, beta, off, efron, cluster,
-                              int(cluster.max()) + 1, state=state)
+                              int(cluster.max()) + 1, state=state, any_order=True)
         B = U.T @ U
     else:
         U = K.score_residuals(index, Xc, w, d, beta, off, efron, state=state)
