@@ -1,4 +1,5 @@
--- exposure_calendar: central exposure and churns by segment and calendar month.
+-- exposure_calendar: central exposure and churns by segment and calendar month
+-- (before the running sums: see exposure_running).
 --
 -- Reads the view exposure_input(segment varchar, start double, stop double,
 -- churned integer, cause varchar, weight double, start_date date).
@@ -153,35 +154,20 @@ grid as (
         months.month_days
     from (select distinct segment from summed) as segments
     cross join months
-),
-
-final as (
-    select
-        grid.segment,
-        grid.band,
-        coalesce(summed.exposure_days, 0.0)
-            + grid.month_days * sum(coalesce(summed.full_delta, 0.0)) over running
-            as exposure_days,
-        sum(coalesce(summed.force_delta, 0.0)) over running as in_force,
-        coalesce(summed.churns, 0.0) as churns,
-        coalesce(summed.churns_voluntary, 0.0) as churns_voluntary,
-        coalesce(summed.churns_involuntary, 0.0) as churns_involuntary
-    from grid
-    left join summed
-        on summed.segment = grid.segment and summed.band = grid.band
-    window running as (
-        partition by grid.segment order by grid.band
-        rows between unbounded preceding and current row
-    )
 )
 
+-- the grid with each band's totals (null where a band has none) and its width
+-- in days; the exposure_running step adds the running sums
 select
-    cast(segment as varchar) as segment,
-    cast(band as bigint) as band,
-    cast(exposure_days as double) as exposure_days,
-    cast(in_force as double) as in_force,
-    cast(churns as double) as churns,
-    cast(churns_voluntary as double) as churns_voluntary,
-    cast(churns_involuntary as double) as churns_involuntary
-from final
-order by segment, band
+    cast(grid.segment as varchar) as segment,
+    cast(grid.band as bigint) as band,
+    cast(grid.month_days as double) as month_days,
+    cast(summed.exposure_days as double) as exposure_days,
+    cast(summed.full_delta as double) as full_delta,
+    cast(summed.force_delta as double) as force_delta,
+    cast(summed.churns as double) as churns,
+    cast(summed.churns_voluntary as double) as churns_voluntary,
+    cast(summed.churns_involuntary as double) as churns_involuntary
+from grid
+left join summed
+    on summed.segment = grid.segment and summed.band = grid.band

@@ -311,6 +311,20 @@ def _month_first_day(month_number: np.ndarray) -> np.ndarray:
     return m.astype("datetime64[D]").astype(np.int64)
 
 
+def exposure_by_band(con: duckdb.DuckDBPyConnection, axis: str, n_bands: int) -> pd.DataFrame:
+    """Exposure and churns by segment and band of the view ``exposure_input`` on ``con``.
+
+    ``axis`` "tenure" (bands of ``DAYS_PER_MONTH`` days, the first ``n_bands``) or
+    "calendar" (calendar months). Two SQL steps: the band totals, then the running sums.
+    """
+    if axis == "tenure":
+        run_step(con, "exposure_tenure", {"days_per_month": DAYS_PER_MONTH, "n_bands": n_bands},
+                 create="exposure_bands")
+    else:
+        run_step(con, "exposure_calendar", create="exposure_bands")
+    return run_step(con, "exposure_running").df()
+
+
 def _duckdb_counts(source: Any, names: tuple[str, ...], axis: str, months: int | None,
                    con: duckdb.DuckDBPyConnection | None) -> tuple[pd.DataFrame, int, float, str]:
     own = con is None
@@ -319,13 +333,7 @@ def _duckdb_counts(source: Any, names: tuple[str, ...], axis: str, months: int |
     try:
         where = duckdb_input(con, source, names, need_start_date=axis == "calendar")
         facts = check_input(con, where)
-        if axis == "tenure":
-            rel = run_step(con, "exposure_tenure", {
-                "days_per_month": DAYS_PER_MONTH,
-                "n_bands": _UNLIMITED_BANDS if months is None else int(months)})
-        else:
-            rel = run_step(con, "exposure_calendar")
-        raw = rel.df()
+        raw = exposure_by_band(con, axis, _UNLIMITED_BANDS if months is None else int(months))
     finally:
         if own:
             con.close()

@@ -35,7 +35,6 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from retain.data.sqlsteps import run_step
 from retain.data.table import StartStop
 from retain.errors import DataError, ModelError
 from retain.kernels.exposure import split_at_edges
@@ -45,6 +44,7 @@ from retain.models.decrements import (
     _month_first_day,
     _month_number,
     check_input,
+    exposure_by_band,
     poisson_interval,
 )
 from retain.results import Result
@@ -347,8 +347,7 @@ def _duckdb_blocks(source: Any, basis: DecrementTable, dims: tuple[str, ...],
             where = duckdb_input(con, source, dim)
             if i == 0:
                 n_rows = int(check_input(con, where)[0])
-            raw = run_step(con, "exposure_tenure", {"days_per_month": DAYS_PER_MONTH,
-                                                    "n_bands": 10**9}).df()
+            raw = exposure_by_band(con, "tenure", 10**9)
             band = raw["band"].to_numpy()
             raw["expected"] = (raw["exposure_days"] / DAYS_PER_MONTH
                                * rates[np.minimum(band, rates.shape[0] - 1)])
