@@ -101,8 +101,8 @@ def check_equal(toml: Path) -> str:
     """Both sides on one log: the same table and quarantine, or SystemExit."""
     import numpy as np
     import pandas as pd
-
     from prepare_pandas import prepare_pandas
+
     from retain.data.config import load_config
     from retain.data.prepare import prepare
 

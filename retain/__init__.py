@@ -3,7 +3,12 @@
 The public names live here; everything else is private by default.
 """
 
+from retain.data.config import load_config
+from retain.data.prepare import prepare, write_outputs
 from retain.data.table import Categorical, StartStop
+from retain.decisions.experiments import experiment_verdict
+from retain.decisions.planning import events_needed, plan_experiment
+from retain.decisions.value import finance_export, lifetime_value, residual_value
 from retain.errors import (
     BuildError,
     ConfigError,
@@ -13,12 +18,6 @@ from retain.errors import (
     ReconciliationError,
     RetainError,
 )
-
-from retain.data.config import load_config
-from retain.data.prepare import prepare, write_outputs
-from retain.decisions.experiments import experiment_verdict
-from retain.decisions.planning import events_needed, plan_experiment
-from retain.decisions.value import finance_export, lifetime_value, residual_value
 from retain.models.competing import cause_specific_cox, cumulative_incidence
 from retain.models.cox import fit_cox
 from retain.models.curves import (

@@ -8,7 +8,7 @@ relations that an earlier step (or the caller) registered on the connection.
 from __future__ import annotations
 
 import re
-from functools import lru_cache
+from functools import cache
 from typing import Any
 
 import duckdb
@@ -19,7 +19,7 @@ from retain.paths import SQL_DIR
 _PARAM = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
 
 
-@lru_cache(maxsize=None)
+@cache
 def load_step(name: str) -> str:
     """The text of ``sql/<name>.sql`` (``name`` without the extension)."""
     path = SQL_DIR / f"{name}.sql"

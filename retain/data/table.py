@@ -99,7 +99,8 @@ def _as_float(name: str, values: Any) -> np.ndarray:
     try:
         arr = np.asarray(values, dtype=np.float64)
     except (TypeError, ValueError) as exc:
-        raise DataError(f"column {name!r}", "must be numeric", "check the start-stop table") from exc
+        raise DataError(f"column {name!r}", "must be numeric",
+                        "check the start-stop table") from exc
     return arr
 
 
@@ -163,7 +164,8 @@ class StartStop:
             self.customer = customer_id
         else:
             self.customer = Categorical.from_values(customer_id)
-        self.spell = np.ones(n, dtype=np.int64) if spell is None else np.asarray(spell, dtype=np.int64)
+        self.spell = (np.ones(n, dtype=np.int64) if spell is None
+                      else np.asarray(spell, dtype=np.int64))
         if cause is None:
             cause = Categorical(np.full(n, -1, dtype=np.int32), ())
         elif not isinstance(cause, Categorical):
@@ -177,7 +179,8 @@ class StartStop:
             cause = Categorical(remap[cause.codes], levels)
             del empty
         self.cause = cause
-        self.start_date = None if start_date is None else np.asarray(start_date, dtype="datetime64[D]")
+        self.start_date = (None if start_date is None
+                           else np.asarray(start_date, dtype="datetime64[D]"))
         self.covariates: dict[str, np.ndarray | Categorical] = {}
         for name, values in (covariates or {}).items():
             self.covariates[name] = _coerce_covariate(name, values)
@@ -206,7 +209,8 @@ class StartStop:
             bad = ~np.isfinite(arr)
             if bad.any():
                 raise DataError(where, f"column {name!r} is missing or not finite on "
-                                f"{int(bad.sum())} rows (first: {self._who(np.flatnonzero(bad)[0])})",
+                                f"{int(bad.sum())} rows "
+                                f"(first: {self._who(np.flatnonzero(bad)[0])})",
                                 "every row needs a finite start and stop")
         bad = self.start >= self.stop
         if bad.any():
@@ -456,7 +460,8 @@ class StartStop:
                 # an Arrow buffer seen through numpy is read-only: models may write
                 return arr if arr.flags.writeable else arr.copy()
             except (pa.ArrowInvalid, ValueError) as exc:
-                raise DataError(source, f"column {name!r} must be numeric", "check its type") from exc
+                raise DataError(source, f"column {name!r} must be numeric",
+                                "check its type") from exc
 
         kwargs: dict[str, Any] = {
             "start": num("start"), "stop": num("stop"), "churned": num("churned"),
@@ -496,7 +501,8 @@ class StartStop:
     def from_parquet(cls, path: str | Path) -> StartStop:
         path = Path(path)
         if not path.exists():
-            raise DataError(str(path), "file not found", "run `retain prepare` first or fix the path")
+            raise DataError(str(path), "file not found",
+                            "run `retain prepare` first or fix the path")
         return cls.from_arrow(pq.read_table(path), source=str(path))
 
     @classmethod
