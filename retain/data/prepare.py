@@ -285,6 +285,17 @@ def _strict_checks(con: duckdb.DuckDBPyConnection, config: Config) -> None:
                             f"in {config.path}")
 
 
+def _count_runs(table: pa.Table) -> tuple[int, int]:
+    """Customers and spells of a start-stop table in (customer_id, spell) order."""
+    n = table.num_rows
+    if n == 0:
+        return 0, 0
+    cid, spell = table.column("customer_id"), table.column("spell")
+    new_customer = pc.not_equal(cid.slice(1), cid.slice(0, n - 1))
+    new_spell = pc.or_(new_customer, pc.not_equal(spell.slice(1), spell.slice(0, n - 1)))
+    return 1 + (pc.sum(new_customer).as_py() or 0), 1 + (pc.sum(new_spell).as_py() or 0)
+
+
 def _reconcile(con: duckdb.DuckDBPyConnection, config: Config, table: pa.Table) -> Reconciliation:
     rows_in = int(con.execute("select count(*) from raw").fetchall()[0][0])
     lines = run_step(con, "reconcile").fetchall()
@@ -303,12 +314,10 @@ def _reconcile(con: duckdb.DuckDBPyConnection, config: Config, table: pa.Table) 
             f"rows in ({rows_in}) != used ({counts['used']}) + outside window "
             f"({counts['outside window']}) + ignored ({counts['ignored']}) + quarantined "
             f"({quarantined})", "this is a bug in retain: please report it with the log")
-    spells, customers = con.execute(
-        "select count(*), count(distinct customer_id) from "
-        "(select distinct customer_id, spell from start_stop)").fetchall()[0]
-    churn_rows = con.execute("select cause, count(*) from start_stop where churned = 1 "
-                             "group by cause order by cause").fetchall()
-    by_cause = {c: int(n) for c, n in churn_rows}
+    customers, spells = _count_runs(table)
+    churned = pc.equal(table.column("churned"), 1)
+    counted = pc.value_counts(pc.filter(table.column("cause"), churned)).to_pylist()
+    by_cause = {d["values"]: int(d["counts"]) for d in sorted(counted, key=lambda d: d["values"])}
     return Reconciliation(source=config.source.label, rows_in=rows_in, used=counts["used"],
                           outside_window=counts["outside window"], ignored=counts["ignored"],
                           quarantined=quarantined, by_reason=by_reason,
