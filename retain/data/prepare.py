@@ -296,7 +296,16 @@ def _count_runs(table: pa.Table) -> tuple[int, int]:
     return 1 + (pc.sum(new_customer).as_py() or 0), 1 + (pc.sum(new_spell).as_py() or 0)
 
 
-def _reconcile(con: duckdb.DuckDBPyConnection, config: Config, table: pa.Table) -> Reconciliation:
+@dataclass(frozen=True)
+class _Fates:
+    """What became of every input row (the reconciliation before the table exists)."""
+
+    rows_in: int
+    counts: dict[str, int]
+    by_reason: dict[str, int]
+
+
+def _row_fates(con: duckdb.DuckDBPyConnection, config: Config) -> _Fates:
     rows_in = int(con.execute("select count(*) from raw").fetchall()[0][0])
     lines = run_step(con, "reconcile").fetchall()
     by_reason: dict[str, int] = {}
@@ -314,13 +323,18 @@ def _reconcile(con: duckdb.DuckDBPyConnection, config: Config, table: pa.Table) 
             f"rows in ({rows_in}) != used ({counts['used']}) + outside window "
             f"({counts['outside window']}) + ignored ({counts['ignored']}) + quarantined "
             f"({quarantined})", "this is a bug in retain: please report it with the log")
+    return _Fates(rows_in, counts, by_reason)
+
+
+def _reconciliation(config: Config, fates: _Fates, table: pa.Table) -> Reconciliation:
     customers, spells = _count_runs(table)
     churned = pc.equal(table.column("churned"), 1)
     counted = pc.value_counts(pc.filter(table.column("cause"), churned)).to_pylist()
     by_cause = {d["values"]: int(d["counts"]) for d in sorted(counted, key=lambda d: d["values"])}
-    return Reconciliation(source=config.source.label, rows_in=rows_in, used=counts["used"],
+    counts = fates.counts
+    return Reconciliation(source=config.source.label, rows_in=fates.rows_in, used=counts["used"],
                           outside_window=counts["outside window"], ignored=counts["ignored"],
-                          quarantined=quarantined, by_reason=by_reason,
+                          quarantined=sum(fates.by_reason.values()), by_reason=fates.by_reason,
                           n_customers=int(customers), n_spells=int(spells),
                           n_intervals=table.num_rows, n_churns=sum(by_cause.values()),
                           churns_by_cause=by_cause)
@@ -328,13 +342,15 @@ def _reconcile(con: duckdb.DuckDBPyConnection, config: Config, table: pa.Table) 
 
 # ---------------------------------------------------------------------- entry points
 def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
-              progress: Progress | None = None) -> _Timer:
+              progress: Progress | None = None,
+              before_intervals: Callable[[_Timer], None] | None = None) -> _Timer:
     """Run the preparation steps on ``con``, leaving their tables on it.
 
     Tables: ``raw`` (the log as text), ``events`` (normalise),
     ``sequence_problems``, ``spells`` and ``start_stop`` (intervals; columns
     still carry the SQL steps' group prefixes). Used by :func:`prepare` and by
-    tests that inspect one step.
+    tests that inspect one step. ``before_intervals(timer)`` runs once every row's
+    fate is known, before the last step (prepare uses it to free memory).
     """
     timer = _Timer(con, progress)
     params = _params(config)
@@ -354,6 +370,8 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     run_step(con, "state_input_redo", create="state_input", view=True)
     timer.run("states rechecked", lambda: run_step(con, "states", params, create="redo"), "redo")
     run_step(con, "spells", create="spells", view=True)
+    if before_intervals is not None:
+        before_intervals(timer)
     timer.run("intervals", lambda: run_step(con, "intervals", params, create="start_stop"),
               "start_stop")
     return timer
@@ -388,12 +406,24 @@ def prepare(config: Config, *, progress: Progress | None = None,
     """
     compress = config.output.compress if compress is None else compress
     con = connect(config)
+    found: dict[str, Any] = {}
+
+    def settle(timer: _Timer) -> None:
+        # every row's fate is known: keep what the outputs need, free the log's copies
+        found["quarantine"] = timer.run(
+            "quarantine", lambda: run_step(con, "quarantine").to_arrow_table())
+        found["unknown"] = {v: int(n) for v, n in run_step(con, "unknown_events").fetchall()}
+        found["fates"] = _row_fates(con, config)
+        for view in ("state_input", "source_events"):
+            con.execute(f"drop view if exists {view}")
+        for table in ("troubled_events", "events", "raw"):
+            con.execute(f"drop table if exists {table}")
+
     try:
-        timer = run_steps(con, config, progress=progress)
+        timer = run_steps(con, config, progress=progress, before_intervals=settle)
         arrow = timer.run("row order", lambda: _ordered_arrow(con))
-        quarantine = timer.run("quarantine", lambda: run_step(con, "quarantine").to_arrow_table())
-        unknown = {v: int(n) for v, n in run_step(con, "unknown_events").fetchall()}
-        reconciliation = _reconcile(con, config, arrow)
+        quarantine, unknown = found["quarantine"], found["unknown"]
+        reconciliation = _reconciliation(config, found["fates"], arrow)
         compressed = None
         if compress:
             compressed = timer.run("compress", lambda: _public_names(
