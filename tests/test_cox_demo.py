@@ -22,8 +22,6 @@ in_recovery (voluntary 0.5, involuntary 6.2) far outside it, which is checked.
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pytest
 
@@ -41,14 +39,8 @@ pytestmark = pytest.mark.skipif(not (TOML.exists() and TRUTH.exists()),
 
 
 @pytest.fixture(scope="module")
-def demo():
-    prep = pytest.importorskip("retain.data.prepare",
-                               reason="retain.data.prepare (foundation) not available")
-    from retain.data.config import load_config
-
-    table = prep.prepare(load_config(TOML)).table
-    truth = json.loads(TRUTH.read_text())["voluntary"]
-    return table, truth
+def demo(demo_prepared, demo_truth):
+    return demo_prepared.table, demo_truth["voluntary"]
 
 
 @pytest.fixture(scope="module")

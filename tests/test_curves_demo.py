@@ -22,8 +22,6 @@ the simulated log and truth.json, not in the curves.
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pytest
 
@@ -38,14 +36,8 @@ pytestmark = pytest.mark.skipif(not (TOML.exists() and TRUTH.exists()),
 
 
 @pytest.fixture(scope="module")
-def demo():
-    prep = pytest.importorskip("retain.data.prepare",
-                               reason="retain.data.prepare (foundation) not available")
-    from retain.data.config import load_config
-
-    table = prep.prepare(load_config(TOML)).table
-    truth = json.loads(TRUTH.read_text())["reference_values"]["retention"]["first_spells"]
-    return table, truth
+def demo(demo_prepared, demo_truth):
+    return demo_prepared.table, demo_truth["reference_values"]["retention"]["first_spells"]
 
 
 def _z_scores(table, truth):

@@ -18,7 +18,6 @@ import statsmodels.api as sm
 from statsmodels.duration.hazard_regression import PHReg
 
 from retain import demo_business as db
-from retain.paths import DEMO_DIR
 
 
 @pytest.fixture(scope="module")
@@ -26,13 +25,10 @@ def truth_table():
     return db.true_start_stop().to_pandas()
 
 
-def test_prepared_log_equals_the_simulated_start_stop(truth_table):
+def test_prepared_log_equals_the_simulated_start_stop(truth_table, demo_prepared):
     """Every row, value for value (floats to 1e-12 relative): the log carries exactly the
     covariate paths and ends the generator drew, and the defects are all quarantined."""
-    from retain.data.config import load_config
-    from retain.data.prepare import prepare
-
-    prep = prepare(load_config(DEMO_DIR / "retain.toml"))
+    prep = demo_prepared
     got = prep.arrow.drop_columns(["weight"]).to_pandas().reset_index(drop=True)
     want = truth_table.drop(columns=["latent_time"]).reset_index(drop=True)
     assert list(got.columns) == list(want.columns)

@@ -19,7 +19,6 @@ outside it, which is checked.
 
 from __future__ import annotations
 
-import json
 import math
 
 import numpy as np
@@ -37,14 +36,8 @@ pytestmark = pytest.mark.skipif(not (TOML.exists() and TRUTH.exists()),
 
 
 @pytest.fixture(scope="module")
-def demo():
-    prep = pytest.importorskip("retain.data.prepare",
-                               reason="retain.data.prepare (foundation) not available")
-    from retain.data.config import load_config
-
-    table = prep.prepare(load_config(TOML)).table
-    truth = json.loads(TRUTH.read_text())["voluntary"]
-    return table, truth
+def demo(demo_prepared, demo_truth):
+    return demo_prepared.table, demo_truth["voluntary"]
 
 
 def _fit(table, truth):
