@@ -326,13 +326,26 @@ def _row_fates(con: duckdb.DuckDBPyConnection, config: Config) -> _Fates:
     return _Fates(rows_in, counts, by_reason)
 
 
+def _shown_source(config: Config) -> str:
+    """The log as the project file names it: relative to its folder when inside it, so
+    published pages and results do not change when the project folder moves."""
+    src = config.source
+    base = Path(config.path).resolve().parent
+    target = src.duckdb if src.format == "duckdb" else src.path
+    try:
+        shown = str(Path(target).resolve().relative_to(base))
+    except (TypeError, ValueError):
+        return src.label
+    return f"{shown} table {src.table}" if src.format == "duckdb" else shown
+
+
 def _reconciliation(config: Config, fates: _Fates, table: pa.Table) -> Reconciliation:
     customers, spells = _count_runs(table)
     churned = pc.equal(table.column("churned"), 1)
     counted = pc.value_counts(pc.filter(table.column("cause"), churned)).to_pylist()
     by_cause = {d["values"]: int(d["counts"]) for d in sorted(counted, key=lambda d: d["values"])}
     counts = fates.counts
-    return Reconciliation(source=config.source.label, rows_in=fates.rows_in, used=counts["used"],
+    return Reconciliation(source=_shown_source(config), rows_in=fates.rows_in, used=counts["used"],
                           outside_window=counts["outside window"], ignored=counts["ignored"],
                           quarantined=sum(fates.by_reason.values()), by_reason=fates.by_reason,
                           n_customers=int(customers), n_spells=int(spells),
