@@ -117,3 +117,9 @@ def test_price_ratio_levels_are_the_documented_prices(truth_table):
     # a spell that starts inside the window starts at ratio 1
     inside = truth_table[truth_table["start"] == 0]
     assert (inside["price_ratio"] == 1.0).all()
+
+
+def test_outputs_name_the_log_as_the_project_file_does(demo_prepared):
+    """Relative to the project folder, so pages and results do not change when it moves."""
+    assert demo_prepared.reconciliation.source == "quillfern_events.csv.gz"
+    assert demo_prepared.table.source == "start-stop table of quillfern_events.csv.gz"

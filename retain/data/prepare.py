@@ -106,7 +106,7 @@ class Prepared:
     @cached_property
     def table(self) -> StartStop:
         return StartStop.from_arrow(self.arrow,
-                                    source=f"start-stop table of {self.config.source.label}")
+                                    source=f"start-stop table of {_shown_source(self.config)}")
 
 
 # ---------------------------------------------------------------------- helpers
