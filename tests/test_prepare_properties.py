@@ -65,10 +65,11 @@ def naive_prepare(rows, *, window_start=None):
             fates["ignored"] += 1
             continue
         cid = r["account"]
-        try:
-            day = dt.date.fromisoformat(_text(r["occurred_at"]) or "")
+        try:  # a date, or a date and a wall-clock time (no offset: the zone is UTC)
+            ts = dt.datetime.fromisoformat(_text(r["occurred_at"]) or "")
+            day = ts.date()
         except ValueError:
-            day = None
+            ts = day = None
         event = MAP.get(raw)
         price, bad_price = _number(r["monthly_price"])
         reason = _text(r["cancel_reason"])
@@ -87,7 +88,7 @@ def naive_prepare(rows, *, window_start=None):
             why = "unknown churn reason"
         else:
             why = None
-        key = (cid, day, raw, reason, _text(r["plan"]), _text(r["channel"]),
+        key = (cid, ts, raw, reason, _text(r["plan"]), _text(r["channel"]),
                _text(r["region"]), _text(r["arm"]), price)  # numbers compared as numbers
         if why is None and key in seen:
             why = "exact duplicate"
@@ -96,7 +97,7 @@ def naive_prepare(rows, *, window_start=None):
             fates["quarantined: " + why] += 1
             continue
         cause = None if reason in REASON_IGNORE else REASONS.get(reason)
-        candidates.append(dict(cid=cid, day=day, event=event, rank=RANK[event], row=i,
+        candidates.append(dict(cid=cid, day=day, ts=ts, event=event, rank=RANK[event], row=i,
                                plan=_text(r["plan"]), price=price, cause=cause,
                                static=(_text(r["channel"]), _text(r["region"]),
                                        _text(r["arm"]))))
@@ -105,7 +106,7 @@ def naive_prepare(rows, *, window_start=None):
         by_customer.setdefault(c["cid"], []).append(c)
     out = []
     for cid in sorted(by_customer):
-        evs = sorted(by_customer[cid], key=lambda c: (c["day"], c["rank"], c["row"]))
+        evs = sorted(by_customer[cid], key=lambda c: (c["day"], c["rank"], c["ts"], c["row"]))
         used = []
         is_open = started = False
         for e in evs:
@@ -199,15 +200,17 @@ row_strategy = st.tuples(
 )
 
 
+TIMES = st.sampled_from(["", " 08:00", " 12:30", " 12:30", " 23:59"])
 KINDS = ["plan_change", "price_change", "payment_failed", "payment_recovered", "pause",
          "resume", "cancel", "reactivate", "email_opened"]
 
 
 @st.composite
 def customer_history(draw, cid):
-    """A plausible history: signup, then events on non-decreasing days."""
+    """A plausible history: signup, then events on non-decreasing days, some at a time of
+    day (same-day events then keep their order by time; equal times are ties)."""
     day = draw(st.integers(0, 20))
-    rows = [(cid, (DAY0 + dt.timedelta(day)).isoformat(), "signup", None,
+    rows = [(cid, (DAY0 + dt.timedelta(day)).isoformat() + draw(TIMES), "signup", None,
              draw(st.sampled_from(["Seedling", "Bloom"])), draw(st.sampled_from(["10", "20"])),
              "search", "north", "standard")]
     for _ in range(draw(st.integers(0, 8))):
@@ -219,8 +222,8 @@ def customer_history(draw, cid):
             if kind in ("plan_change", "reactivate") else None
         price = draw(st.sampled_from([None, "12.5", "30"])) \
             if kind in ("price_change", "plan_change", "reactivate") else None
-        rows.append((cid, (DAY0 + dt.timedelta(day)).isoformat(), kind, reason, plan, price,
-                     None, None, None))
+        rows.append((cid, (DAY0 + dt.timedelta(day)).isoformat() + draw(TIMES), kind, reason,
+                     plan, price, None, None, None))
     return rows
 
 
@@ -282,7 +285,7 @@ def _check_no_value_before_its_event(rows, log):
         assert any(lr[0] == r[0] and lr[4] is not None and lr[4].strip() == r[11]
                    and MAP.get(lr[2]) in ("start", "update")
                    and lr[1] not in (None, "bad", "2024-02-30")
-                   and dt.date.fromisoformat(lr[1]) <= row_day for lr in log)
+                   and dt.date.fromisoformat(lr[1][:10]) <= row_day for lr in log)
 
 
 def _check_compression(p):
