@@ -99,7 +99,20 @@ def prepare_pandas(config: Config) -> dict[str, object]:
     dup = ev.duplicated(["customer_id", "event_ts", "event_raw", "reason_raw", *attr_names])
     quarantine["exact duplicate"] = int(dup.sum())
     ev = ev[~dup.to_numpy()]
-    ev = ev.sort_values(["customer_id", "day", "event_rank", "event_ts", "source_row"],
+    # a day that begins with a spell open and holds an end: its starts come last
+    step = np.where(ev["event"] == "start", 1, np.where(ev["event"] == "end", -1, 0))
+    per_day = (pd.DataFrame({"customer_id": ev["customer_id"].to_numpy(),
+                             "day": ev["day"].to_numpy(), "step": step,
+                             "end": (ev["event"] == "end").to_numpy()})
+               .groupby(["customer_id", "day"], sort=True)
+               .agg(step=("step", "sum"), has_end=("end", "any")).reset_index())
+    per_day["open_at_start"] = (per_day.groupby("customer_id")["step"].cumsum()
+                                - per_day["step"]) > 0
+    ev = ev.merge(per_day[["customer_id", "day", "open_at_start", "has_end"]],
+                  on=["customer_id", "day"], how="left")
+    ev["order"] = np.where((ev["event"] == "start") & ev["open_at_start"] & ev["has_end"], 7,
+                           ev["event_rank"])
+    ev = ev.sort_values(["customer_id", "day", "order", "event_ts", "source_row"],
                         kind="stable", ignore_index=True)
     g = ev.groupby("customer_id", sort=False)
     boundary = ev["event"].where(ev["event"].isin(["start", "end"]))
@@ -149,7 +162,8 @@ def prepare_pandas(config: Config) -> dict[str, object]:
         wday, outside, quarantine_outside = None, np.zeros(len(ev), bool), 0
 
     # ---- intervals: one row per change of state, (start, stop] in days of tenure
-    d = ev[last_of_day & ~outside].reset_index(drop=True)
+    # the day's last row, and every end (a reactivation may follow it on its day)
+    d = ev[(last_of_day | is_end.to_numpy()) & ~outside].reset_index(drop=True)
     d["tenure"] = d["day"] - d["start_day"]
     keys = [d["customer_id"], d["spell"]]
     gs = d.groupby(["customer_id", "spell"], sort=False)

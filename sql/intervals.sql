@@ -13,9 +13,9 @@
 --     tenure on that day; rows before it are cut off; spells that ended on or
 --     before it were set aside as outside_window by the states step;
 --   * <attribute>_ratio = value / value on the spell's first day.
--- One window per spell over its cuts and its end: an interval stops at the
--- next cut, or at the exit; the end row (the last of its day, as `end` is the
--- day's last event) carries the cause. The window runs over all rows in the
+-- One window over the cuts and the end rows: an interval stops at the next cut
+-- of its spell, or at the exit; the end row carries the cause (it is the last
+-- event of its day unless a reactivation follows it on that day). The window runs over all rows in the
 -- output order (customer_id, spell, start), which the rows keep.
 -- Parameters: $as_of (date), $window_start (date or null).
 with cuts as (
@@ -29,7 +29,7 @@ with cuts as (
         greatest(coalesce(date_diff('day', start_day, cast($window_start as date)), 0), 0)
             as entry_time
     from spells
-    where last_of_day and not outside_window and (changed or event_rank = 6)
+    where not outside_window and ((last_of_day and changed) or event_rank = 6)
 ),
 
 walked as (

@@ -1,39 +1,15 @@
--- sequence: usable rows that are exact duplicates or out of order.
+-- sequence: usable rows that cannot be used because of the rows around them.
 --
--- Reads `troubled_events` (the usable rows of the customers the states step
--- flags; every other customer's rows are in order and unrepeated).
--- Exact duplicates: rows identical in customer, time, event value, reason and
--- every attribute (numbers compared as numbers); of each set the first (lowest
--- source row) is used.
--- Order: a spell is opened by `start` and closed by `end`. With the usable
--- rows in the fixed order (day, same-day rank, time, source row) the state
--- before a row is "open" exactly when the last start/end before it is a
--- start: in a run of starts only the first opens a spell, in a run of ends
--- only the first closes it, and the state after a run is its kind.
+-- Reads `troubled_repeats` (exact repeats) and `troubled_ordered` (the flagged
+-- customers' other rows, in the order of the reorder step; every other
+-- customer's rows are in order and unrepeated).
+-- Order: a spell is opened by `start` and closed by `end`. With the rows in
+-- the order `ord` the state before a row is "open" exactly when the last
+-- start/end before it is a start: in a run of starts only the first opens a
+-- spell, in a run of ends only the first closes it, and the state after a run
+-- is its kind.
 -- Produces one row per problem: source_row, reason.
-with usable as (
-    select *
-    from troubled_events
-),
-
-copies as (
-    select
-        u.source_row,
-        row_number() over (
-            partition by u.customer_id, u.event_ts, u.event_raw, u.reason_raw,
-                         row(*columns('^[sv][cnr]__'))
-            order by u.source_row
-        ) as copy_number
-    from usable as u
-),
-
-duplicates as (
-    select source_row, 'exact duplicate' as reason
-    from copies
-    where copy_number > 1
-),
-
-ordered as (
+with ordered as (
     select
         u.source_row,
         u.event,
@@ -42,11 +18,9 @@ ordered as (
         last_value(case when u.event in ('start', 'end') then u.event end ignore nulls)
             over before_row as previous_boundary,
         coalesce(bool_or(u.event = 'start') over before_row, false) as started_before
-    from usable as u
-    anti join duplicates as d on u.source_row = d.source_row
+    from troubled_ordered as u
     window before_row as (
-        partition by u.customer_id
-        order by u.day, u.event_rank, u.event_ts, u.source_row
+        partition by u.customer_id order by u.ord
         rows between unbounded preceding and 1 preceding
     )
 ),
@@ -70,7 +44,7 @@ final as (
     where reason is not null
     union all
     select cast(source_row as bigint) as source_row, cast(reason as varchar) as reason
-    from duplicates
+    from troubled_repeats
 )
 
 select * from final

@@ -106,7 +106,16 @@ def naive_prepare(rows, *, window_start=None):
         by_customer.setdefault(c["cid"], []).append(c)
     out = []
     for cid in sorted(by_customer):
-        evs = sorted(by_customer[cid], key=lambda c: (c["day"], c["rank"], c["ts"], c["row"]))
+        evs = by_customer[cid]
+        # a day that opens with a spell open and holds an end: its ends come before its
+        # starts (a cancel, then a reactivation); "open" counts starts and ends of
+        # earlier days
+        for e in evs:
+            before = [x["event"] for x in evs if x["day"] < e["day"]]
+            is_open_then = before.count("start") > before.count("end")
+            has_end = any(x["event"] == "end" and x["day"] == e["day"] for x in evs)
+            e["order"] = 7 if (e["event"] == "start" and is_open_then and has_end) else e["rank"]
+        evs = sorted(evs, key=lambda c: (c["day"], c["order"], c["ts"], c["row"]))
         used = []
         is_open = started = False
         for e in evs:
@@ -224,6 +233,10 @@ def customer_history(draw, cid):
             if kind in ("price_change", "plan_change", "reactivate") else None
         rows.append((cid, (DAY0 + dt.timedelta(day)).isoformat() + draw(TIMES), kind, reason,
                      plan, price, None, None, None))
+        if kind == "cancel" and draw(st.booleans()):  # and a reactivation on the same day
+            rows.append((cid, (DAY0 + dt.timedelta(day)).isoformat() + draw(TIMES),
+                         "reactivate", None, draw(st.sampled_from([None, "Orchard"])), None,
+                         None, None, None))
     return rows
 
 

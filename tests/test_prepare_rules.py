@@ -256,3 +256,20 @@ def test_a_customer_with_a_repeat_and_a_stray_start_keeps_the_rest(tmp_path):
         (0.0, 4.0, 0, 0.0), (4.0, 8.0, 0, 1.0), (8.0, 20.0, 1, 0.0)]
     assert p.reconciliation.by_reason == {"exact duplicate": 1,
                                           "start during an open spell": 1}
+
+
+def test_cancel_and_reactivation_on_one_day_end_one_spell_and_open_the_next(tmp_path):
+    """A spell is open when the day begins, and the day holds a cancel and a reactivation:
+    the cancel applies first, so spell 1 churns on that day and spell 2 starts on it. (A
+    signup and a cancel on one day keep the fixed order: start, then end.)"""
+    p = run(tmp_path, [signup("a", "2024-01-01"),
+                       ("a", "2024-01-11 15:00", "reactivate", None, "Bloom", "20"),
+                       ("a", "2024-01-11 10:00", "cancel", "too_expensive"),
+                       ("a", "2024-01-21", "cancel"),
+                       signup("b", "2024-01-05 09:00"), ("b", "2024-01-05 17:00", "cancel")])
+    assert rows_of(p, ("customer_id", "spell", "start", "stop", "churned", "cause", "plan",
+                       "prior_spells")) == [
+        ("a", 1, 0.0, 10.0, 1, "voluntary", "Seedling", 0.0),
+        ("a", 2, 0.0, 10.0, 1, "voluntary", "Bloom", 1.0),
+        ("b", 1, 0.0, 0.5, 1, "voluntary", "Seedling", 0.0)]
+    assert p.reconciliation.quarantined == 0

@@ -130,7 +130,7 @@ def test_compress_table_on_any_arrow_start_stop_table(con):
                    "reason_to", "reason_ignore"}),
     ("states", {"window_start"}), ("troubled", set()), ("sequence", set()), ("spells", set()),
     ("state_input_all", set()), ("state_input_redo", set()), ("row_order", set()),
-    ("exposure_running", set()),
+    ("exposure_running", set()), ("repeats", set()), ("reorder", set()),
     ("intervals", {"as_of", "window_start"}),
     ("compress", set()), ("quarantine", set()), ("reconcile", set()),
     ("import_csv", {"path"}), ("import_parquet", {"path"}), ("import_table", set()),

@@ -9,7 +9,10 @@
 ``states``    one window per customer: each event's state, and
               whether it may be out of order or repeated      -> ``first_pass``
 ``troubled``  the usable rows of customers with such a row    -> ``troubled_events``
-``sequence``  their exact repeats and rows out of order       -> ``sequence_problems``
+``repeats``   their exact repeats                             -> ``troubled_repeats``
+``reorder``   the rest in rule order (a same-day cancel, then
+              reactivation)                                   -> ``troubled_ordered``
+``sequence``  repeats and rows out of order                   -> ``sequence_problems``
 ``states``    again, on their used rows                       -> ``redo``
 ``spells``    every used event with its customer's state      -> ``spells`` (view)
 ``intervals`` the start-stop rows                             -> ``start_stop``
@@ -378,6 +381,8 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     # customers with a suspect row: checked row by row, then their states again
     timer.run("rows to recheck", lambda: run_step(con, "troubled", create="troubled_events"),
               "troubled_events")
+    run_step(con, "repeats", create="troubled_repeats")
+    run_step(con, "reorder", create="troubled_ordered")
     timer.run("order checks", lambda: run_step(con, "sequence", create="sequence_problems"),
               "sequence_problems")
     run_step(con, "state_input_redo", create="state_input", view=True)
@@ -429,7 +434,7 @@ def prepare(config: Config, *, progress: Progress | None = None,
         found["fates"] = _row_fates(con, config)
         for view in ("state_input", "source_events"):
             con.execute(f"drop view if exists {view}")
-        for table in ("troubled_events", "events", "raw"):
+        for table in ("troubled_ordered", "troubled_events", "events", "raw"):
             con.execute(f"drop table if exists {table}")
 
     try:
