@@ -100,17 +100,14 @@ def prepare_pandas(config: Config) -> dict[str, object]:
     quarantine["exact duplicate"] = int(dup.sum())
     ev = ev[~dup.to_numpy()]
     # a day that begins with a spell open and holds an end: its starts come last
-    step = np.where(ev["event"] == "start", 1, np.where(ev["event"] == "end", -1, 0))
-    per_day = (pd.DataFrame({"customer_id": ev["customer_id"].to_numpy(),
-                             "day": ev["day"].to_numpy(), "step": step,
-                             "end": (ev["event"] == "end").to_numpy()})
-               .groupby(["customer_id", "day"], sort=True)
-               .agg(step=("step", "sum"), has_end=("end", "any")).reset_index())
-    per_day["open_at_start"] = (per_day.groupby("customer_id")["step"].cumsum()
-                                - per_day["step"]) > 0
-    ev = ev.merge(per_day[["customer_id", "day", "open_at_start", "has_end"]],
-                  on=["customer_id", "day"], how="left")
-    ev["order"] = np.where((ev["event"] == "start") & ev["open_at_start"] & ev["has_end"], 7,
+    ev = ev.sort_values(["customer_id", "day"], kind="stable", ignore_index=True)
+    step = pd.Series(np.where(ev["event"] == "start", 1, np.where(ev["event"] == "end", -1, 0)))
+    by_day = [ev["customer_id"], ev["day"]]
+    running = step.groupby(ev["customer_id"], sort=False).cumsum()
+    open_at_start = (running.groupby(by_day, sort=False).transform("last")
+                     - step.groupby(by_day, sort=False).transform("sum")) > 0
+    has_end = (ev["event"] == "end").groupby(by_day, sort=False).transform("any")
+    ev["order"] = np.where((ev["event"] == "start") & open_at_start & has_end, 7,
                            ev["event_rank"])
     ev = ev.sort_values(["customer_id", "day", "order", "event_ts", "source_row"],
                         kind="stable", ignore_index=True)
