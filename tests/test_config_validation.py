@@ -72,6 +72,14 @@ def test_a_valid_file_is_read(folder):
                                        "prior_spells")
 
 
+def test_an_experiment_can_state_the_effect_it_was_sized_for(folder):
+    text = BASE.replace('cohorts = ["2025-03"]',
+                        'cohorts = ["2025-03"]\ntarget_hazard_ratio = 0.8\npower = 0.9')
+    spec = load(folder, text).experiments[0]
+    assert (spec.target_hazard_ratio, spec.power) == (0.8, 0.9)
+    assert load(folder, BASE).experiments[0].target_hazard_ratio is None
+
+
 def test_the_demo_file_is_valid():
     cfg = load_config(DEMO_DIR / "retain.toml")
     assert cfg.window.start == dt.date(2024, 1, 1)
@@ -188,6 +196,14 @@ CASES = [
      BASE.replace('arm = "arm"\ncontrol', 'arm = "group"\ncontrol'),
      "retain.toml: [experiments.intro] arm: 'group' is not a categorical attribute -- allowed "
      "values: arm, channel, plan, region"),
+    ("target hazard ratio of no effect",
+     BASE.replace('cohorts = ["2025-03"]', 'cohorts = ["2025-03"]\ntarget_hazard_ratio = 1'),
+     "retain.toml: [experiments.intro] target_hazard_ratio: 1 is no effect: no number of churns "
+     "can detect it -- give the effect sized for, e.g. 0.8"),
+    ("power out of range",
+     BASE.replace('cohorts = ["2025-03"]', 'cohorts = ["2025-03"]\npower = 1.5'),
+     "retain.toml: [experiments.intro] power: must be between 0.5 and 0.99, got 1.5 -- choose a "
+     "value in that range"),
     ("bad memory limit",
      BASE.replace('memory_limit = "1GB"', 'memory_limit = "lots"'),
      "retain.toml: [engine] memory_limit: 'lots' is not a memory size -- write it like \"4GB\" "

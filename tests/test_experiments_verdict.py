@@ -209,3 +209,19 @@ def test_demo_truth_inside_the_reported_intervals(demo) -> None:
             < arms.loc[arm, "retained_upper"]
     assert v.adjusted and v.adjusted[0].hazard_ratio > 1
     assert not v.balance["unbalanced"].any()
+
+
+def test_the_spec_target_hazard_ratio_drives_the_too_few_events_warning(whas_trial: StartStop):
+    """A target in [experiments.<name>] (target_hazard_ratio, power) is used when none is
+    passed: the same warning and Schoenfeld (1983) numbers as passing it directly."""
+    spec = ExperimentSpec(name="whas", arm="arm", control="0", cohorts=("2025-03",),
+                          horizon_days=365, target_hazard_ratio=0.95, power=0.8)
+    from_spec = experiment_verdict(whas_trial, spec, as_of="2026-11-30", n_boot=20)
+    plain = ExperimentSpec(name="whas", arm="arm", control="0", cohorts=("2025-03",),
+                           horizon_days=365)
+    direct = experiment_verdict(whas_trial, plain, as_of="2026-11-30", n_boot=20,
+                                target_hazard_ratio=0.95)
+    assert from_spec.power == direct.power
+    assert any(w.startswith("too few events for 1") for w in from_spec.warnings)
+    silent = experiment_verdict(whas_trial, plain, as_of="2026-11-30", n_boot=20)
+    assert not any(w.startswith("too few events") for w in silent.warnings)

@@ -139,6 +139,8 @@ class ExperimentSpec:
     signup_to: dt.date | None = None
     horizon_days: int = 365
     covariates: tuple[str, ...] = ()
+    target_hazard_ratio: float | None = None  # the effect the experiment was sized for
+    power: float = 0.8
 
 
 @dataclass(frozen=True)
@@ -595,7 +597,7 @@ def _experiments(file: str, data: Any, attributes: tuple[AttributeSpec, ...],
     for name, body in data.items():
         s = _Section(file, f"experiments.{name}", body,
                      ("arm", "control", "treatment", "cohorts", "signup_from", "signup_to",
-                      "horizon_days", "covariates"))
+                      "horizon_days", "covariates", "target_hazard_ratio", "power"))
         arm = s.text("arm", required=True)
         if arm not in cats:
             raise ConfigError(s.where("arm"), f"{arm!r} is not a categorical attribute",
@@ -622,11 +624,16 @@ def _experiments(file: str, data: Any, attributes: tuple[AttributeSpec, ...],
                               "swap them")
         covs = s.texts("covariates")
         _known(s, "covariates", covs, names)
+        target = s.number("target_hazard_ratio", low=0.01, high=100.0)
+        if target == 1.0:
+            raise ConfigError(s.where("target_hazard_ratio"), "1 is no effect: no number of "
+                              "churns can detect it", "give the effect sized for, e.g. 0.8")
         out.append(ExperimentSpec(name=name, arm=arm, control=control, treatment=treatment,
                                   cohorts=cohorts, signup_from=lo, signup_to=hi,
                                   horizon_days=s.number("horizon_days", default=365, low=1,
                                                         integer=True),
-                                  covariates=covs))
+                                  covariates=covs, target_hazard_ratio=target,
+                                  power=s.number("power", default=0.8, low=0.5, high=0.99)))
     return tuple(out)
 
 

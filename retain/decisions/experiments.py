@@ -431,7 +431,8 @@ def experiment_verdict(
     price : str
         Numeric column with the monthly price on each row.
     target_hazard_ratio, power, alpha
-        The effect the experiment was sized for; with a target, a warning is
+        The effect the experiment was sized for (default: the spec's
+        ``target_hazard_ratio`` and ``power``); with a target, a warning is
         raised when the events observed are fewer than Schoenfeld's (1983)
         number. The smallest hazard ratio detectable with the events observed
         is always reported.
@@ -440,6 +441,9 @@ def experiment_verdict(
     """
     name = spec_value(spec, "name", "experiment")
     where = f"experiment {name!r}"
+    if target_hazard_ratio is None:
+        target_hazard_ratio = spec_value(spec, "target_hazard_ratio")
+        power = float(spec_value(spec, "power", power))
     if not table.has_customers:
         raise DataError(where, "the table has no customer_id", "use the uncompressed table")
     if not 0.5 <= conf < 1.0:
