@@ -238,31 +238,47 @@ def _public_names(table: pa.Table) -> pa.Table:
 
 
 def _ordered_arrow(con: duckdb.DuckDBPyConnection) -> pa.Table:
-    """The start-stop table as Arrow, rows in (customer_id, spell, start) order.
+    """The start-stop table as Arrow, rows in (customer_id, spell, start) order."""
+    return _ordered_and_counted(con)[0]
 
-    The intervals step emits its rows in that order; this checks it (one pass) and
-    sorts on the keys alone (``row_order``) should an engine change ever break it.
+
+def _ordered_and_counted(con: duckdb.DuckDBPyConnection) -> tuple[pa.Table, int, int]:
+    """The ordered start-stop table, its customers and its spells.
+
+    The intervals step emits its rows in order; one pass over the keys checks it and
+    counts the customers and spells. Should an engine change ever break the order, the
+    rows are sorted on the keys alone (``row_order``) and counted again.
     """
     table = con.table("start_stop").to_arrow_table()
-    if not _in_order(table):
+    ordered, customers, spells = _key_runs(table)
+    if not ordered:
         position = run_step(con, "row_order").to_arrow_table().column(0)
         table = table.take(position)
-    return _public_names(table)
+        _, customers, spells = _key_runs(table)
+    return _public_names(table), customers, spells
+
+
+def _key_runs(table: pa.Table) -> tuple[bool, int, int]:
+    """Whether rows are in (customer_id, spell, start) order, and (if so) how many
+    customers and spells they hold, from one comparison of each row with the next."""
+    n = table.num_rows
+    if n < 2:
+        return True, n, n
+    cid, spell, start = (table.column(c) for c in ("customer_id", "spell", "start"))
+    head, tail = (lambda c: c.slice(0, n - 1)), (lambda c: c.slice(1))
+    new_customer = pc.not_equal(tail(cid), head(cid))
+    new_spell = pc.or_(new_customer, pc.not_equal(tail(spell), head(spell)))
+    ok = pc.or_(pc.greater(tail(cid), head(cid)),
+                pc.and_(pc.invert(new_customer),
+                        pc.or_(pc.greater(tail(spell), head(spell)),
+                               pc.and_(pc.invert(new_spell),
+                                       pc.greater(tail(start), head(start))))))
+    return (bool(pc.all(ok).as_py()), 1 + (pc.sum(new_customer).as_py() or 0),
+            1 + (pc.sum(new_spell).as_py() or 0))
 
 
 def _in_order(table: pa.Table) -> bool:
-    n = table.num_rows
-    if n < 2:
-        return True
-    cid, spell, start = (table.column(c) for c in ("customer_id", "spell", "start"))
-    head, tail = (lambda c: c.slice(0, n - 1)), (lambda c: c.slice(1))
-    later = pc.greater(tail(cid), head(cid))
-    same = pc.equal(tail(cid), head(cid))
-    s_later = pc.greater(tail(spell), head(spell))
-    s_same = pc.equal(tail(spell), head(spell))
-    t_later = pc.greater(tail(start), head(start))
-    ok = pc.or_(later, pc.and_(same, pc.or_(s_later, pc.and_(s_same, t_later))))
-    return bool(pc.all(ok).as_py())
+    return _key_runs(table)[0]
 
 
 def _strict_checks(con: duckdb.DuckDBPyConnection, config: Config) -> None:
@@ -286,17 +302,6 @@ def _strict_checks(con: duckdb.DuckDBPyConnection, config: Config) -> None:
                             "unknown churn reasons: " + ", ".join(repr(v[0]) for v in vals),
                             f"map them in [reasons] map or list them in [reasons] ignore "
                             f"in {config.path}")
-
-
-def _count_runs(table: pa.Table) -> tuple[int, int]:
-    """Customers and spells of a start-stop table in (customer_id, spell) order."""
-    n = table.num_rows
-    if n == 0:
-        return 0, 0
-    cid, spell = table.column("customer_id"), table.column("spell")
-    new_customer = pc.not_equal(cid.slice(1), cid.slice(0, n - 1))
-    new_spell = pc.or_(new_customer, pc.not_equal(spell.slice(1), spell.slice(0, n - 1)))
-    return 1 + (pc.sum(new_customer).as_py() or 0), 1 + (pc.sum(new_spell).as_py() or 0)
 
 
 @dataclass(frozen=True)
@@ -342,8 +347,8 @@ def _shown_source(config: Config) -> str:
     return f"{shown} table {src.table}" if src.format == "duckdb" else shown
 
 
-def _reconciliation(config: Config, fates: _Fates, table: pa.Table) -> Reconciliation:
-    customers, spells = _count_runs(table)
+def _reconciliation(config: Config, fates: _Fates, table: pa.Table, customers: int,
+                    spells: int) -> Reconciliation:
     churned = pc.equal(table.column("churned"), 1)
     counted = pc.value_counts(pc.filter(table.column("cause"), churned)).to_pylist()
     by_cause = {d["values"]: int(d["counts"]) for d in sorted(counted, key=lambda d: d["values"])}
@@ -439,9 +444,10 @@ def prepare(config: Config, *, progress: Progress | None = None,
 
     try:
         timer = run_steps(con, config, progress=progress, before_intervals=settle)
-        arrow = timer.run("row order", lambda: _ordered_arrow(con))
+        arrow, customers, spells = timer.run("row order", lambda: _ordered_and_counted(con),
+                                             "start_stop")
         quarantine, unknown = found["quarantine"], found["unknown"]
-        reconciliation = _reconciliation(config, found["fates"], arrow)
+        reconciliation = _reconciliation(config, found["fates"], arrow, customers, spells)
         compressed = None
         if compress:
             compressed = timer.run("compress", lambda: _public_names(
