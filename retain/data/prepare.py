@@ -49,6 +49,8 @@ from retain.results import Result
 Progress = Callable[[str, int, float], None]
 
 _GROUPS = ("sc__", "sn__", "vc__", "vn__", "vr__")
+#: the start-stop table's row order
+_KEYS = ("customer_id", "spell", "start")
 
 
 # ---------------------------------------------------------------------- results
@@ -144,12 +146,14 @@ class _Timer:
         self.con = con
         self.progress = progress
         self.times: dict[str, float] = {}
+        self.outputs: dict[str, Any] = {}
 
     def run(self, step: str, fn: Callable[[], Any], table: str | None = None) -> Any:
         t0 = time.perf_counter()
         out = fn()
         dt = time.perf_counter() - t0
         self.times[step] = dt
+        self.outputs[step] = out
         if self.progress is not None:
             if table is not None:
                 rows = self.con.execute(f"select count(*) from {table}").fetchall()[0][0]
@@ -237,22 +241,22 @@ def _public_names(table: pa.Table) -> pa.Table:
     return table.select(keep).rename_columns(names)
 
 
-def _ordered_arrow(con: duckdb.DuckDBPyConnection) -> pa.Table:
-    """The start-stop table as Arrow, rows in (customer_id, spell, start) order."""
-    return _ordered_and_counted(con)[0]
+def _ordered_arrow(table: pa.Table) -> pa.Table:
+    """The start-stop table with its rows in (customer_id, spell, start) order."""
+    return _ordered_and_counted(table)[0]
 
 
-def _ordered_and_counted(con: duckdb.DuckDBPyConnection) -> tuple[pa.Table, int, int]:
+def _ordered_and_counted(table: pa.Table) -> tuple[pa.Table, int, int]:
     """The ordered start-stop table, its customers and its spells.
 
     The intervals step emits its rows in order; one pass over the keys checks it and
     counts the customers and spells. Should an engine change ever break the order, the
-    rows are sorted on the keys alone (``row_order``) and counted again.
+    rows are sorted on the keys alone (in Arrow, byte order as the check) and counted
+    again.
     """
-    table = con.table("start_stop").to_arrow_table()
     ordered, customers, spells = _key_runs(table)
     if not ordered:
-        position = run_step(con, "row_order").to_arrow_table().column(0)
+        position = pc.sort_indices(table, sort_keys=[(k, "ascending") for k in _KEYS])
         table = table.take(position)
         _, customers, spells = _key_runs(table)
     return _public_names(table), customers, spells
@@ -264,7 +268,7 @@ def _key_runs(table: pa.Table) -> tuple[bool, int, int]:
     n = table.num_rows
     if n < 2:
         return True, n, n
-    cid, spell, start = (table.column(c) for c in ("customer_id", "spell", "start"))
+    cid, spell, start = (table.column(c) for c in _KEYS)
     head, tail = (lambda c: c.slice(0, n - 1)), (lambda c: c.slice(1))
     new_customer = pc.not_equal(tail(cid), head(cid))
     new_spell = pc.or_(new_customer, pc.not_equal(tail(spell), head(spell)))
@@ -368,9 +372,10 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     """Run the preparation steps on ``con``, leaving their tables on it.
 
     Tables: ``raw`` (the log as text), ``events`` (normalise),
-    ``sequence_problems``, ``spells`` and ``start_stop`` (intervals; columns
-    still carry the SQL steps' group prefixes). Used by :func:`prepare` and by
-    tests that inspect one step. ``before_intervals(timer)`` runs once every row's
+    ``sequence_problems``, ``spells`` and ``start_stop`` (intervals: an Arrow table,
+    also ``timer.outputs["intervals"]``, registered on ``con``; columns still carry
+    the SQL steps' group prefixes). Used by :func:`prepare` and by tests that
+    inspect one step. ``before_intervals(timer)`` runs once every row's
     fate is known, before the last step (prepare uses it to free memory).
     """
     timer = _Timer(con, progress)
@@ -395,8 +400,14 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     run_step(con, "spells", create="spells", view=True)
     if before_intervals is not None:
         before_intervals(timer)
-    timer.run("intervals", lambda: run_step(con, "intervals", params, create="start_stop"),
-              "start_stop")
+    # straight into Arrow (a table in DuckDB first would cost a second copy of the rows),
+    # then registered as ``start_stop`` for the steps that read it
+    def intervals() -> pa.Table:
+        arrow = run_step(con, "intervals", params).to_arrow_table()
+        con.register("start_stop", arrow)
+        return arrow
+
+    timer.run("intervals", intervals)
     return timer
 
 
@@ -444,8 +455,8 @@ def prepare(config: Config, *, progress: Progress | None = None,
 
     try:
         timer = run_steps(con, config, progress=progress, before_intervals=settle)
-        arrow, customers, spells = timer.run("row order", lambda: _ordered_and_counted(con),
-                                             "start_stop")
+        arrow, customers, spells = timer.run(
+            "row order", lambda: _ordered_and_counted(timer.outputs["intervals"]), "start_stop")
         quarantine, unknown = found["quarantine"], found["unknown"]
         reconciliation = _reconciliation(config, found["fates"], arrow, customers, spells)
         compressed = None
