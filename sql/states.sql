@@ -40,6 +40,7 @@ with keyed as (
         event_rank,
         cause_given,
         ord,
+        day_ord,
         -- the RANGE offset that ends a frame just before the day's first event
         ord - day_ord + 1 as since_day_start,
         -- starts in the high bits, ends in the low bits: one running sum gives both
@@ -61,6 +62,7 @@ walked as (
         event_rank,
         cause_given,
         ord,
+        day_ord,
         sum(boundary_code) over upto as boundaries,
         last_value(columns('^set__(start_day|paused|in_recovery|v[cnr]__[A-Za-z].*)$')
                    ignore nulls) over upto as '\1',
@@ -88,9 +90,11 @@ packed as (
         *,
         boundaries >> 32 as spell,
         (boundaries >> 32) - (boundaries & 4294967295) as open_spells,
-        -- the fields of ord above the source row: day, rank and time
-        ord // cast(2 ^ 40 as hugeint) as moment,
-        next_ord // cast(2 ^ 40 as hugeint) as next_moment,
+        -- the next row falls on a later day (day_ord steps by 2^81 a day)
+        coalesce(next_ord >= day_ord + cast(2 ^ 81 as hugeint), true) as is_last_of_day,
+        -- the next row has the same day, rank and time (the fields of ord above the
+        -- source row, which is below 2^40)
+        coalesce(next_ord - ord + source_row < cast(2 ^ 40 as hugeint), false) as same_moment,
         row(*columns('^(v[cnr]__[A-Za-z].*|paused|in_recovery)$')) as state_after,
         row(*columns('^before__.*$')) as state_before,
         cast(null as varchar) as vc__0,
@@ -115,8 +119,7 @@ final as (
             when in_recovery = 1 then 'involuntary'
             else 'voluntary'
         end as varchar) as cause,
-        cast(next_moment is null or next_moment // cast(2 ^ 41 as hugeint)
-             <> moment // cast(2 ^ 41 as hugeint) as boolean) as last_of_day,
+        cast(is_last_of_day as boolean) as last_of_day,
         cast(day = start_day or state_after is distinct from state_before as boolean)
             as changed,
         cast(end_day as date) as end_day,
@@ -127,7 +130,7 @@ final as (
         columns('^v[cnr]__.*$'),  -- typed by normalise: text or double
         columns('^s[cn]__.*$'),
         cast(case when event_rank = 6 then open_spells <> 0 else open_spells <> 1 end
-             or moment = next_moment as boolean) as suspect
+             or same_moment as boolean) as suspect
     from packed
 )
 
