@@ -35,18 +35,21 @@ with cuts as (
 walked as (
     select
         *,
-        -- one window over all rows in output order, so the rows come out sorted;
-        -- a neighbour counts only within the same spell
-        case when lead(spell_key) over in_order = spell_key
-             then lead(tenure) over in_order end as next_tenure,
-        case when lead(spell_key) over in_order = spell_key
-             then lead(cause) over in_order end as next_cause,
+        -- one window over all rows in output order, so the rows come out sorted. A
+        -- spell's first row has tenure 0 and its later rows a larger tenure (one cut a
+        -- day; an end that is not its day's last row is its spell's last row), so the
+        -- next row belongs to the same spell exactly when its tenure is above 0
+        case when lead(tenure) over in_order > 0 then lead(tenure) over in_order end
+            as next_tenure,
+        case when lead(tenure) over in_order > 0 then lead(cause) over in_order end
+            as next_cause,
         -- the spell's first day is a cut, so the last first-day value so far is its
         -- base (NaN stands in for a missing value: numbers are finite here)
-        columns('^(vr__.*)$') / nullif(nullif(last_value(
-            case when day = start_day then coalesce(columns('^(vr__.*)$'), 'nan'::double) end
-            ignore nulls) over in_order, 'nan'::double), 0) as 'ratio__\1'
-    from (select *, row(customer_id, spell) as spell_key from cuts)
+        columns('^(vr__[A-Za-z].*)$') / nullif(nullif(last_value(
+            case when day = start_day then coalesce(columns('^(vr__[A-Za-z].*)$'), 'nan'::double)
+            end ignore nulls) over in_order, 'nan'::double), 0) as 'ratio__\1',
+        cast(null as double) as ratio__vr__0
+    from cuts
     window in_order as (order by customer_id, spell, tenure
                         rows between unbounded preceding and current row)
 ),
