@@ -25,7 +25,8 @@ with imported as (
         try_cast(nullif(trim(event_time), '') as timestamptz) as event_ts,
         nullif(trim(event), '') as event_raw,
         nullif(trim(reason), '') as reason_raw,
-        nullif(trim(columns('^([sv]c__.*)$')), '') as '\1',
+        -- categorical values as members of the ENUM type `category` (categories.sql)
+        cast(nullif(trim(columns('^([sv]c__.*)$')), '') as category) as '\1',
         nullif(trim(columns('^([sv][nr]__.*)$')), '') as 'text__\1'
     from source_events
 ),
@@ -113,7 +114,7 @@ final as (
         cast(row_reason as varchar) as reason,
         cast(ord as hugeint) as ord,
         cast(day_ord as hugeint) as day_ord,
-        cast(columns('^([sv]c__.*)$') as varchar) as '\1',
+        cast(columns('^([sv]c__.*)$') as category) as '\1',
         cast(columns('^[sv][nr]__.*$') as double)
     from keyed
 )

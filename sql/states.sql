@@ -97,7 +97,7 @@ packed as (
         coalesce(next_ord - ord + source_row < cast(2 ^ 40 as hugeint), false) as same_moment,
         row(*columns('^(v[cnr]__[A-Za-z].*|paused|in_recovery)$')) as state_after,
         row(*columns('^before__.*$')) as state_before,
-        cast(null as varchar) as vc__0,
+        cast(null as category) as vc__0,
         cast(null as double) as vn__0,
         cast(null as double) as vr__0,
         cast(null as double) as sn__0
@@ -127,7 +127,7 @@ final as (
             as outside_window,
         cast(coalesce(paused, 0) as integer) as paused,
         cast(coalesce(in_recovery, 0) as integer) as in_recovery,
-        columns('^v[cnr]__.*$'),  -- typed by normalise: text or double
+        columns('^v[cnr]__.*$'),  -- typed by normalise: category or double
         columns('^s[cn]__.*$'),
         cast(case when event_rank = 6 then open_spells <> 0 else open_spells <> 1 end
              or same_moment as boolean) as suspect

@@ -29,9 +29,25 @@ def schema(con, relation):
     return [(r[0], r[1]) for r in con.execute(f"describe {relation}").fetchall()]
 
 
-ATTRS = [("vc__plan", "VARCHAR"), ("sc__channel", "VARCHAR"), ("sc__region", "VARCHAR"),
-         ("sc__arm", "VARCHAR"), ("sc__0", "VARCHAR"), ("vc__0", "VARCHAR")]
+def category(con):
+    """The DESCRIBE text of the ENUM type ``category`` (categories.sql)."""
+    return con.execute("select typeof(cast(null as category))").fetchall()[0][0]
+
+
+def attrs(con):
+    cat = category(con)
+    return [("vc__plan", cat), ("sc__channel", cat), ("sc__region", cat), ("sc__arm", cat),
+            ("sc__0", cat), ("vc__0", cat)]
+
+
 NUMS = [("vr__price", "DOUBLE"), ("sn__0", "DOUBLE"), ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE")]
+
+
+def test_categories_are_the_distinct_trimmed_categorical_values(con):
+    members = con.execute("select unnest(enum_range(cast(null as category)))").fetchall()
+    assert sorted(m[0] for m in members) == sorted(["Seedling", *S])
+    assert schema(con, "(" + run_step(con, "categories").sql_query() + ")") == [
+        ("value", "VARCHAR")]
 
 
 def test_normalise_columns(con):
@@ -40,7 +56,7 @@ def test_normalise_columns(con):
         ("event_ts", "TIMESTAMP WITH TIME ZONE"), ("event_raw", "VARCHAR"),
         ("reason_raw", "VARCHAR"), ("event", "VARCHAR"), ("event_rank", "INTEGER"),
         ("cause_given", "VARCHAR"), ("ignored", "BOOLEAN"), ("reason", "VARCHAR"),
-        ("ord", "HUGEINT"), ("day_ord", "HUGEINT"), *ATTRS, *NUMS]
+        ("ord", "HUGEINT"), ("day_ord", "HUGEINT"), *attrs(con), *NUMS]
 
 
 def test_ord_orders_a_customers_events_by_day_rank_time_and_row(con):
@@ -58,17 +74,20 @@ def test_sequence_columns(con):
         (4, "event before the customer's first start")]
 
 
-STATE_COLUMNS = [
-    ("customer_id", "VARCHAR"), ("source_row", "BIGINT"), ("spell", "BIGINT"),
-    ("start_day", "DATE"), ("day", "DATE"), ("tenure", "INTEGER"), ("event_rank", "INTEGER"),
-    ("cause", "VARCHAR"), ("last_of_day", "BOOLEAN"), ("changed", "BOOLEAN"),
-    ("end_day", "DATE"), ("outside_window", "BOOLEAN"), ("paused", "INTEGER"),
-    ("in_recovery", "INTEGER"), ("vc__plan", "VARCHAR"), ("vr__price", "DOUBLE"),
-    ("vc__0", "VARCHAR"), ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE"), ("sc__channel", "VARCHAR"),
-    ("sc__region", "VARCHAR"), ("sc__arm", "VARCHAR"), ("sc__0", "VARCHAR"), ("sn__0", "DOUBLE")]
+def state_columns(con):
+    cat = category(con)
+    return [
+        ("customer_id", "VARCHAR"), ("source_row", "BIGINT"), ("spell", "BIGINT"),
+        ("start_day", "DATE"), ("day", "DATE"), ("tenure", "INTEGER"), ("event_rank", "INTEGER"),
+        ("cause", "VARCHAR"), ("last_of_day", "BOOLEAN"), ("changed", "BOOLEAN"),
+        ("end_day", "DATE"), ("outside_window", "BOOLEAN"), ("paused", "INTEGER"),
+        ("in_recovery", "INTEGER"), ("vc__plan", cat), ("vr__price", "DOUBLE"),
+        ("vc__0", cat), ("vn__0", "DOUBLE"), ("vr__0", "DOUBLE"), ("sc__channel", cat),
+        ("sc__region", cat), ("sc__arm", cat), ("sc__0", cat), ("sn__0", "DOUBLE")]
 
 
 def test_states_troubled_and_spells_columns(con):
+    STATE_COLUMNS = state_columns(con)
     assert schema(con, "first_pass") == STATE_COLUMNS + [("suspect", "BOOLEAN")]
     assert schema(con, "redo") == STATE_COLUMNS + [("suspect", "BOOLEAN")]
     assert schema(con, "troubled_events") == schema(con, "events")

@@ -4,6 +4,7 @@
 "Preparation rules"):
 
 ``import_*``  the log as text (CSV, Parquet or a DuckDB table) -> ``raw``
+``categories`` the categorical values, as ENUM type           -> ``category``
 ``normalise`` our column names, the day in the configured zone, our events,
               typed attributes, row-level quarantine reasons  -> ``events``
 ``states``    one window per customer: each event's state, and
@@ -382,6 +383,7 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     params = _params(config)
     timer.run("import", lambda: _import(con, config), "raw")
     _source_view(con, config)
+    timer.run("categories", lambda: run_step(con, "categories", create="category", enum=True))
     timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
               "events")
     _strict_checks(con, config)

@@ -36,14 +36,15 @@ def step_parameters(name: str) -> set[str]:
 
 
 def run_step(con: duckdb.DuckDBPyConnection, name: str, params: dict[str, Any] | None = None,
-             *, create: str | None = None, view: bool = False
+             *, create: str | None = None, view: bool = False, enum: bool = False
              ) -> duckdb.DuckDBPyRelation | None:
     """Run step ``name`` with only the parameters it uses.
 
     With ``create="t"`` the result is materialised as table ``t`` on the
     connection (``create or replace table t as ...``; a view instead with
-    ``view=True``, for a step without parameters) and None is returned;
-    otherwise the relation is returned for the caller to read.
+    ``view=True``, for a step without parameters; with ``enum=True`` an ENUM type
+    ``t`` whose members are the step's one text column, distinct and not null)
+    and None is returned; otherwise the relation is returned for the caller to read.
     """
     params = dict(params or {})
     used = step_parameters(name)
@@ -56,10 +57,13 @@ def run_step(con: duckdb.DuckDBPyConnection, name: str, params: dict[str, Any] |
     if create is not None:
         if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", create):
             raise RetainError("run_step", f"bad table name {create!r}", "use a plain identifier")
-        if view and bound:
-            raise RetainError(f"sql/{name}.sql", "a view cannot hold bound parameters",
+        if (view or enum) and bound:
+            raise RetainError(f"sql/{name}.sql", "a view or type cannot hold bound parameters",
                               "this is a bug in retain: materialise the step as a table")
-        kind = "view" if view else "table"
-        con.execute(f"create or replace {kind} {create} as {sql}", bound)
+        if enum:
+            con.execute(f"create or replace type {create} as enum ({sql})")
+        else:
+            kind = "view" if view else "table"
+            con.execute(f"create or replace {kind} {create} as {sql}", bound)
         return None
     return con.sql(sql, params=bound) if bound else con.sql(sql)
