@@ -20,14 +20,9 @@
 -- Parameters: $as_of (date), $window_start (date or null).
 with cuts as (
     select
-        *,
-        greatest(
-            case
-                when end_day is not null then date_diff('day', start_day, end_day)
-                else date_diff('day', start_day, $as_of)
-            end, 0.5) as exit_time,
-        greatest(coalesce(date_diff('day', start_day, cast($window_start as date)), 0), 0)
-            as entry_time
+        -- the placeholders are null: they come back after the window, which need not
+        -- carry them (every column the window carries costs in its sort)
+        * exclude (vc__0, vn__0, vr__0, sc__0, sn__0)
     from spells
     where not outside_window and ((last_of_day and changed) or event_rank = 6)
 ),
@@ -48,10 +43,29 @@ walked as (
         columns('^(vr__[A-Za-z].*)$') / nullif(nullif(last_value(
             case when day = start_day then coalesce(columns('^(vr__[A-Za-z].*)$'), 'nan'::double)
             end ignore nulls) over in_order, 'nan'::double), 0) as 'ratio__\1',
-        cast(null as double) as ratio__vr__0
+        cast(null as double) as ratio__vr__0,
+        cast(null as category) as vc__0,
+        cast(null as double) as vn__0,
+        cast(null as double) as vr__0,
+        cast(null as category) as sc__0,
+        cast(null as double) as sn__0
     from cuts
     window in_order as (order by customer_id, spell, tenure
                         rows between unbounded preceding and current row)
+),
+
+timed as (
+    -- the spell's exit and entry tenure, after the window for the same reason
+    select
+        *,
+        greatest(
+            case
+                when end_day is not null then date_diff('day', start_day, end_day)
+                else date_diff('day', start_day, $as_of)
+            end, 0.5) as exit_time,
+        greatest(coalesce(date_diff('day', start_day, cast($window_start as date)), 0), 0)
+            as entry_time
+    from walked
 ),
 
 kept as (
@@ -60,7 +74,7 @@ kept as (
         next_tenure is null or next_tenure >= exit_time as is_last,
         case when next_tenure is null or next_tenure >= exit_time then exit_time
              else next_tenure end as stop_time
-    from walked
+    from timed
     where changed and tenure < exit_time
 ),
 
