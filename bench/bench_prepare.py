@@ -228,10 +228,12 @@ def write(out: list[dict], agreement: str, args: argparse.Namespace,
     if big_run["pandas"]:
         r, pd_ = big_run["retain"], big_run["pandas"]
         ratio = pd_["wall_s"] / r["wall_s"]
-        met = r["wall_s"] < 15 and ratio >= 4
-        lines += ["", f"Against the target (10M events in under 15 s and at least 4x the pandas "
-                  f"version): {r['wall_s']:.1f} s and {ratio:.1f}x at {big_run['events']:,} "
-                  f"events: {'met' if met else 'not met'}."]
+        # the project's rule: where a target gives both a ratio and seconds, the ratio
+        # rules (the machine is shared and noisy)
+        lines += ["", f"Against the target (10M events at least 4x faster than the pandas "
+                  f"version and in under 15 s; the ratio rules): {ratio:.1f}x at "
+                  f"{big_run['events']:,} events, {'met' if ratio >= 4 else 'not met'}; "
+                  f"{r['wall_s']:.1f} s, {'met' if r['wall_s'] < 15 else 'not met'}."]
     lines += ["", f"Machine: {platform.machine()}, Python {platform.python_version()}, "
               f"measured {time.strftime('%Y-%m-%d')} on a shared 2-core machine (compare "
               "the ratios)."]
