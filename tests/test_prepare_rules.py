@@ -188,6 +188,42 @@ def test_timezone_turns_times_into_local_days(tmp_path):
     assert rows_of(p, ("start", "stop", "start_date")) == [(0.0, 10.0, dt.date(2024, 1, 1))]
 
 
+def test_utc_days_at_the_day_boundary(tmp_path):
+    """In UTC the day comes straight from the instant (no zone conversion): a time
+    with an offset counts on its UTC day, a microsecond before midnight on the day
+    before."""
+    p = run(tmp_path, [signup("a", "2023-12-31T22:30:00-02:00"),
+                       ("a", "2024-01-10 23:59:59.999999", "cancel"),
+                       signup("b", "2024-01-01T01:00:00+02:00"), ("b", "2024-01-05", "cancel")],
+            timezone="UTC")
+    assert rows_of(p, ("customer_id", "start", "stop", "start_date")) == [
+        ("a", 0.0, 9.0, dt.date(2024, 1, 1)), ("b", 0.0, 5.0, dt.date(2023, 12, 31))]
+
+
+def test_utc_day_matches_duckdbs_zone_conversion():
+    """Reference: DuckDB's own timezone('UTC', t) over instants every 7h 13m from 1900
+    to 2100 and around midnights before and after 1970."""
+    import duckdb
+
+    con = duckdb.connect()
+    con.execute("set TimeZone = 'UTC'")
+    rows = con.execute("""
+        with t as (
+            select unnest(range(timestamptz '1900-01-01 00:00:00+00',
+                                timestamptz '2100-01-01 00:00:00+00', interval 433 minute)) as ts
+            union all
+            select timestamptz '1970-01-01 00:00:00+00' + to_microseconds(d) as ts
+            from range(-3, 3) as r(d)
+            union all
+            select timestamptz '1969-12-31 23:59:59.999999+00'
+        )
+        select count(*), count(*) filter (
+            where cast(make_timestamp(epoch_us(ts)) as date) <> cast(timezone('UTC', ts) as date))
+        from t""").fetchall()
+    con.close()
+    assert rows[0][0] > 200_000 and rows[0][1] == 0
+
+
 def test_rows_are_sorted_and_typed(tmp_path):
     p = run(tmp_path, [signup("b", "2024-01-01"), signup("a", "2024-02-01"),
                        ("a", "2024-03-01", "cancel"), signup("a", "2024-04-01", kind="reactivate")])
