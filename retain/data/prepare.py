@@ -383,7 +383,9 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     params = _params(config)
     timer.run("import", lambda: _import(con, config), "raw")
     _source_view(con, config)
-    timer.run("categories", lambda: run_step(con, "categories", create="category", enum=True))
+    # progress counts the type's members
+    timer.run("categories", lambda: run_step(con, "categories", create="category", enum=True),
+              "(select unnest(enum_range(cast(null as category))))")
     timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
               "events")
     _strict_checks(con, config)
