@@ -384,12 +384,12 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     timer.run("import", lambda: _import(con, config), "raw")
     _source_view(con, config)
     # progress counts the type's members
-    timer.run("categories", lambda: run_step(con, "categories", create="category", enum=True),
+    timer.run("categories", lambda: run_step(con, "categories", create="category", kind="enum"),
               "(select unnest(enum_range(cast(null as category))))")
     timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
               "events")
     _strict_checks(con, config)
-    run_step(con, "state_input_all", create="state_input", view=True)
+    run_step(con, "state_input_all", create="state_input", kind="view")
     timer.run("states", lambda: run_step(con, "states", params, create="first_pass"),
               "first_pass")
     # customers with a suspect row: checked row by row, then their states again
@@ -399,9 +399,9 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     run_step(con, "reorder", create="troubled_ordered")
     timer.run("order checks", lambda: run_step(con, "sequence", create="sequence_problems"),
               "sequence_problems")
-    run_step(con, "state_input_redo", create="state_input", view=True)
+    run_step(con, "state_input_redo", create="state_input", kind="view")
     timer.run("states rechecked", lambda: run_step(con, "states", params, create="redo"), "redo")
-    run_step(con, "spells", create="spells", view=True)
+    run_step(con, "spells", create="spells", kind="view")
     if before_intervals is not None:
         before_intervals(timer)
     # straight into Arrow (a table in DuckDB first would cost a second copy of the rows),

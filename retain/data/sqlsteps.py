@@ -16,6 +16,12 @@ import duckdb
 from retain.errors import RetainError
 from retain.paths import SQL_DIR
 
+#: what ``run_step(create=...)`` makes, by kind
+_KINDS = {
+    "table": "create or replace table {name} as {sql}",
+    "view": "create or replace view {name} as {sql}",
+    "enum": "create or replace type {name} as enum ({sql})",
+}
 _PARAM = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
 
 
@@ -36,15 +42,15 @@ def step_parameters(name: str) -> set[str]:
 
 
 def run_step(con: duckdb.DuckDBPyConnection, name: str, params: dict[str, Any] | None = None,
-             *, create: str | None = None, view: bool = False, enum: bool = False
+             *, create: str | None = None, kind: str = "table"
              ) -> duckdb.DuckDBPyRelation | None:
     """Run step ``name`` with only the parameters it uses.
 
-    With ``create="t"`` the result is materialised as table ``t`` on the
-    connection (``create or replace table t as ...``; a view instead with
-    ``view=True``, for a step without parameters; with ``enum=True`` an ENUM type
-    ``t`` whose members are the step's one text column, distinct and not null)
-    and None is returned; otherwise the relation is returned for the caller to read.
+    With ``create="t"`` the result is materialised on the connection as ``kind``:
+    ``"table"`` (``create or replace table t as ...``), ``"view"`` (for a step
+    without parameters) or ``"enum"`` (an ENUM type ``t`` whose members are the
+    step's one text column, distinct and not null, also without parameters), and
+    None is returned; otherwise the relation is returned for the caller to read.
     """
     params = dict(params or {})
     used = step_parameters(name)
@@ -57,13 +63,12 @@ def run_step(con: duckdb.DuckDBPyConnection, name: str, params: dict[str, Any] |
     if create is not None:
         if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", create):
             raise RetainError("run_step", f"bad table name {create!r}", "use a plain identifier")
-        if (view or enum) and bound:
-            raise RetainError(f"sql/{name}.sql", "a view or type cannot hold bound parameters",
+        if kind not in _KINDS:
+            raise RetainError("run_step", f"unknown kind {kind!r}",
+                              f"use one of: {', '.join(_KINDS)}")
+        if kind != "table" and bound:
+            raise RetainError(f"sql/{name}.sql", f"a {kind} cannot hold bound parameters",
                               "this is a bug in retain: materialise the step as a table")
-        if enum:
-            con.execute(f"create or replace type {create} as enum ({sql})")
-        else:
-            kind = "view" if view else "table"
-            con.execute(f"create or replace {kind} {create} as {sql}", bound)
+        con.execute(_KINDS[kind].format(name=create, sql=sql), bound)
         return None
     return con.sql(sql, params=bound) if bound else con.sql(sql)
