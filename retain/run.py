@@ -78,6 +78,9 @@ class RunOptions:
     covariates: tuple[str, ...] = ()
     strata: tuple[str, ...] = ()
     reference: Mapping[str, str] = field(default_factory=dict)
+    missing: str = "stop"  # rule for missing covariate values (retain.models.missing)
+    piecewise_cuts: tuple[float, ...] | None = None  # days; None: the default bands
+    decrement_edges: tuple[float, ...] | None = None  # days; None: 30.44-day months
     value: Mapping[str, Any] = field(default_factory=dict)
     experiments: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
     cohort_months: int = 24
@@ -210,7 +213,9 @@ def options_from_config(config: Any) -> RunOptions:
         title=f"Retention review: {name}", source=str(name),
         as_of=config.window.as_of.isoformat(), segments=tuple(config.segments.by),
         covariates=tuple(config.model.covariates), strata=tuple(config.model.strata),
-        reference=dict(config.model.reference), value=dataclasses.asdict(config.value),
+        reference=dict(config.model.reference), missing=config.model.missing,
+        piecewise_cuts=config.model.piecewise_cuts, decrement_edges=config.model.decrement_edges,
+        value=dataclasses.asdict(config.value),
         experiments=experiments)
 
 
@@ -254,8 +259,12 @@ def _model_steps(table: StartStop, options: RunOptions,
     first_segment = options.segments[0] if options.segments else None
     grid = np.arange(0.0, float(table.stop.max()) + 1e-9, DAYS_PER_MONTH / 2)
 
+    miss = options.missing
+    cuts = options.piecewise_cuts
+
     def cox_fit() -> Any:
-        return cox.fit_cox(table, cov, strata=list(options.strata) or None, reference=ref)
+        return cox.fit_cox(table, cov, strata=list(options.strata) or None, reference=ref,
+                           missing=miss)
 
     def after(name: str, what: Callable[[Any], Any]) -> Callable[[], Any]:
         def run() -> Any:
@@ -277,20 +286,21 @@ def _model_steps(table: StartStop, options: RunOptions,
         ("cohorts", lambda: curves.cohort_retention(table, months=options.cohort_months)),
         ("fit:exponential", lambda: parametric.fit_exponential(table)),
         ("fit:weibull", lambda: parametric.fit_weibull(table)),
-        ("compare", lambda: parametric.compare_models(table, cov, reference=ref)),
+        ("compare", lambda: parametric.compare_models(table, cov, cuts, reference=ref,
+                                                      missing=miss)),
         ("weibull", lambda: done["compare"].value.fits["weibull"] if done["compare"].ok
-         else parametric.fit_weibull(table, cov, reference=ref)),
+         else parametric.fit_weibull(table, cov, reference=ref, missing=miss)),
         ("loglog", lambda: parametric.loglog_diagnostic(table, first_segment)),
         ("cox", cox_fit),
         ("cox:ph", from_cox(lambda f: f.proportional_hazards_test())),
         ("cox:concordance", from_cox(lambda f: f.concordance())),
-        ("cox:curve", from_cox(lambda f: f.segment_retention(table, grid))),
+        ("cox:curve", from_cox(lambda f: f.segment_retention(f.fitted_table, grid))),
         ("decrements", lambda: decrements.decrement_table(table)),
         ("graduation", after("decrements", lambda d: decrements.graduate(d))),
         ("ae", after("decrements", lambda d: _actual_vs_expected(table, d, options))),
         ("incidence", lambda: competing.cumulative_incidence(table)),
         ("cause-cox", lambda: competing.cause_specific_cox(
-            table, cov, strata=list(options.strata) or None, reference=ref)),
+            table, cov, strata=list(options.strata) or None, reference=ref, missing=miss)),
     ]
     steps += _decision_steps(table, options, done)
     return steps
@@ -345,5 +355,5 @@ def _decision_steps(table: StartStop, options: RunOptions,
     price = str(spec.get("price") or "price")
     for name, exp in options.experiments.items():
         steps.append((f"experiment:{name}", lambda exp=exp: experiments.experiment_verdict(
-            table, exp, as_of=options.as_of, price=price)))
+            table, exp, as_of=options.as_of, price=price, missing=options.missing)))
     return steps

@@ -30,6 +30,10 @@ EVENTS = ("start", "update", "pause", "resume", "payment_failed", "payment_recov
 KINDS = ("categorical", "numeric")
 CURVES = ("weibull", "exponential", "cox", "km_weibull_tail", "renewal")
 FORMATS = ("csv", "parquet")
+#: text encodings DuckDB's CSV reader knows without an extension
+ENCODINGS = ("utf-8", "utf-16", "latin-1")
+#: keys of [source] that only a CSV log takes
+CSV_KEYS = ("delimiter", "quote", "escape", "header", "encoding")
 #: Columns the start-stop table always has (an attribute may not take these names).
 CORE_OUTPUT = ("customer_id", "spell", "start", "stop", "churned", "cause", "weight",
                "start_date", "cohort")
@@ -42,19 +46,51 @@ _COHORT = re.compile(r"^\d{4}-(0[1-9]|1[0-2])$")
 
 # ---------------------------------------------------------------------- sections
 @dataclass(frozen=True)
+class CsvDialect:
+    """How a CSV log is read: pinned, never guessed (no comment character, ever)."""
+
+    delimiter: str = ","
+    quote: str = '"'
+    escape: str = '"'
+    header: bool = True
+    encoding: str = "utf-8"
+
+    def describe(self) -> str:
+        """One line for ``retain check``."""
+        head = "first row is the header" if self.header else "no header row (column1, column2, ...)"
+        return (f"CSV, delimiter {self.delimiter!r}, quote {self.quote!r}, escape "
+                f"{self.escape!r}, {head}, encoding {self.encoding}, no comment character")
+
+
+@dataclass(frozen=True)
 class SourceConfig:
-    """Where the event log is: a file (or glob) or a table in a DuckDB file."""
+    """Where the event log is: a file (or glob), a table in a DuckDB file, or an
+    object in memory (a DataFrame, an Arrow table or a DuckDB relation)."""
 
     path: Path | None
     duckdb: Path | None
     table: str | None
-    format: str  # "csv", "parquet" or "duckdb"
+    format: str  # "csv", "parquet", "duckdb" or "memory"
+    dialect: CsvDialect = field(default_factory=CsvDialect)
+    data: Any = field(default=None, compare=False, repr=False)  # format "memory" only
 
     @property
     def label(self) -> str:
         if self.format == "duckdb":
             return f"{self.duckdb} table {self.table}"
+        if self.format == "memory":
+            return f"the {type(self.data).__name__} given as source"
         return str(self.path)
+
+    def describe(self) -> str:
+        """How the log is read, in one line (``retain check`` prints it)."""
+        if self.format == "csv":
+            return self.dialect.describe()
+        if self.format == "parquet":
+            return "Parquet, every column read as text"
+        if self.format == "duckdb":
+            return "DuckDB table, every column read as text"
+        return f"{type(self.data).__name__} in memory, every column read as text"
 
 
 @dataclass(frozen=True)
@@ -116,6 +152,9 @@ class ModelConfig:
     covariates: tuple[str, ...] = ()
     strata: tuple[str, ...] = ()
     reference: Mapping[str, str] = field(default_factory=dict)
+    missing: str = "stop"  # stop | complete_cases | missing_level (retain.models.missing)
+    piecewise_cuts: tuple[float, ...] | None = None  # days of tenure; None: the default bands
+    decrement_edges: tuple[float, ...] | None = None  # days of tenure; None: 30.44-day months
 
 
 @dataclass(frozen=True)
@@ -359,7 +398,7 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
                               f"add a [{required}] section (see DEVELOPERS.md)")
 
     source = _source(_Section(file, "source", data["source"],
-                              ("path", "duckdb", "table", "format")), base)
+                              ("path", "duckdb", "table", "format", *CSV_KEYS)), base)
     columns = _columns(_Section(file, "columns", data["columns"],
                                 ("customer_id", "event_time", "event", "reason")))
     events = _events(_Section(file, "events", data["events"], ("map", "ignore", "strict")))
@@ -371,7 +410,8 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
     categorical = {a.name for a in attributes if a.kind == "categorical"} | {"cohort"}
     segments = _segments(_Section(file, "segments", data.get("segments", {}), ("by",)), names)
     model = _model(_Section(file, "model", data.get("model", {}),
-                            ("covariates", "strata", "reference")), names, categorical)
+                            ("covariates", "strata", "reference", "missing", "piecewise_cuts",
+                             "decrement_edges")), names, categorical)
     value = _value(_Section(file, "value", data.get("value", {}),
                             ("price", "margin_rate", "margin_per_month", "annual_discount_rate",
                              "horizon_months", "curve")), attributes)
@@ -422,11 +462,46 @@ def _source(s: _Section, base: Path) -> SourceConfig:
         else:
             raise ConfigError(s.where("path"), f"cannot tell the format of {p!r}",
                               f'add format = one of: {", ".join(FORMATS)}')
+    dialect = _dialect(s, fmt)
     if not any(ch in p for ch in "*?[") and not full.is_file():
         raise ConfigError(s.where("path"), f"file not found: {full}", "fix the path")
     if any(ch in p for ch in "*?[") and not list(full.parent.glob(full.name)):
         raise ConfigError(s.where("path"), f"no file matches {full}", "fix the pattern")
-    return SourceConfig(path=full, duckdb=None, table=None, format=fmt)
+    return SourceConfig(path=full, duckdb=None, table=None, format=fmt, dialect=dialect)
+
+
+def _one_character(s: _Section, key: str, default: str) -> str:
+    value = s.data.get(key, default)
+    if not isinstance(value, str) or len(value) != 1 or value in "\r\n":
+        raise ConfigError(s.where(key), f"must be one character, got {value!r}",
+                          f'write it as {key} = "{default}" (a tab is "\\t")')
+    return value
+
+
+def _dialect(s: _Section, fmt: str) -> CsvDialect:
+    """The CSV dialect from [source] (only a CSV log takes these keys)."""
+    if fmt != "csv":
+        for key in CSV_KEYS:
+            if s.has(key):
+                raise ConfigError(s.where(key), f"only applies to a CSV log (format is {fmt})",
+                                  f"remove {key}")
+        return CsvDialect()
+    delimiter = _one_character(s, "delimiter", ",")
+    quote = _one_character(s, "quote", '"')
+    escape = _one_character(s, "escape", quote)
+    if delimiter == quote:
+        raise ConfigError(s.where("quote"), f"is the same character as the delimiter "
+                          f"({delimiter!r})", "give the quote and the delimiter different "
+                          "characters")
+    encoding = s.text("encoding", default="utf-8").lower().replace("_", "-")
+    encoding = {"utf8": "utf-8", "utf16": "utf-16", "latin1": "latin-1",
+                "iso-8859-1": "latin-1"}.get(encoding, encoding)
+    if encoding not in ENCODINGS:
+        raise ConfigError(s.where("encoding"), f"{s.data['encoding']!r} is not an encoding "
+                          "retain can read", f"allowed values: {', '.join(ENCODINGS)} (or "
+                          "convert the file to UTF-8)")
+    return CsvDialect(delimiter=delimiter, quote=quote, escape=escape,
+                      header=s.boolean("header", True), encoding=encoding)
 
 
 def _columns(s: _Section) -> ColumnMap:
@@ -561,7 +636,26 @@ def _model(s: _Section, names: set[str], categorical: set[str]) -> ModelConfig:
         if k not in categorical:
             raise ConfigError(s.where(f"reference.{k}"), f"{k!r} is not a categorical column",
                               f"allowed keys: {', '.join(sorted(categorical))}")
-    return ModelConfig(covariates=covs, strata=strata, reference=ref)
+
+    def days(key: str) -> tuple[float, ...] | None:
+        """An increasing list of positive tenures in days (whole or fractional)."""
+        value = s.data.get(key)
+        if value is None:
+            return None
+        ok = isinstance(value, list) and value and all(
+            isinstance(v, (int, float)) and not isinstance(v, bool) for v in value)
+        out = tuple(float(v) for v in value) if ok else ()
+        if not ok or any(not (0 < v < float("inf")) for v in out) \
+                or any(b <= a for a, b in zip(out, out[1:], strict=False)):
+            raise ConfigError(s.where(key), "must be a list of increasing positive tenures in "
+                              f"days, got {value!r}", f"write it as {key} = [30, 91, 182, 365]")
+        return out
+
+    return ModelConfig(covariates=covs, strata=strata, reference=ref,
+                       missing=s.text("missing", default="stop",
+                                      allowed=("stop", "complete_cases", "missing_level")),
+                       piecewise_cuts=days("piecewise_cuts"),
+                       decrement_edges=days("decrement_edges"))
 
 
 def _value(s: _Section, attributes: tuple[AttributeSpec, ...]) -> ValueConfig:

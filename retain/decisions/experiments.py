@@ -123,12 +123,13 @@ class ExperimentVerdict(Result):
     power: dict[str, Any]
     conf: float
     warnings: tuple[str, ...] = ()
+    missing: Any = None  # MissingCovariates of the adjusted Cox fit (rows left out)
 
     def to_dict(self) -> dict[str, Any]:
         out = {k: to_jsonable(getattr(self, k)) for k in (
             "name", "arm", "control", "treatments", "selection", "as_of",
             "planned_horizon_days", "analysis_horizon_days", "interim", "arms", "adjusted",
-            "revenue", "balance", "power", "conf", "warnings")}
+            "revenue", "balance", "power", "conf", "warnings", "missing")}
         out["logrank"] = self.logrank.to_dict()
         out["rmst"] = [to_jsonable({"treatment": r.other.label, "difference": r.difference,
                                     "lower": r.lower, "upper": r.upper, "se": r.se,
@@ -376,17 +377,19 @@ def revenue_per_customer(table: StartStop, price: str, horizon_days: float, *,
 
 
 def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
-                            treatments: Sequence[str], covariates: Sequence[str], conf: float
-                            ) -> tuple[tuple[AdjustedHazardRatio, ...], list[str]]:
+                            treatments: Sequence[str], covariates: Sequence[str], conf: float,
+                            missing: str = "stop"
+                            ) -> tuple[tuple[AdjustedHazardRatio, ...], list[str], Any]:
     head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
     # pre-assignment covariates are read at the start of the spell
     fixed = {name: (sub.column(name).take(head) if isinstance(sub.column(name), Categorical)
                     else sub.column(name)[head]) for name in (arm, *covariates)}
     table = sub.with_columns(**fixed)
     try:
-        fit = fit_cox(table, [arm, *covariates], reference={arm: control}, conf=conf)
+        fit = fit_cox(table, [arm, *covariates], reference={arm: control}, conf=conf,
+                      missing=missing)
     except ModelError as exc:
-        return (), [f"no adjusted hazard ratio: {exc.message}"]
+        return (), [f"no adjusted hazard ratio: {exc.message}"], None
     frame = fit.hazard_ratios
     out = []
     for t in treatments:
@@ -398,7 +401,7 @@ def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
         out.append(AdjustedHazardRatio(t, float(r["hazard_ratio"]), float(r["hr_low"]),
                                        float(r["hr_high"]), float(r["p_value"]),
                                        tuple(covariates), label))
-    return tuple(out), list(getattr(fit, "warnings", ()))
+    return tuple(out), list(getattr(fit, "warnings", ())), fit.missing
 
 
 # ---------------------------------------------------------------- verdict
@@ -416,6 +419,7 @@ def experiment_verdict(
     alpha: float = 0.05,
     n_boot: int = DEFAULT_BOOT,
     seed: int = DEFAULT_SEED,
+    missing: str = "stop",
 ) -> ExperimentVerdict:
     """Verdict on one pricing experiment (see the module docstring for what it holds).
 
@@ -438,6 +442,10 @@ def experiment_verdict(
         is always reported.
     n_boot, seed
         Bootstrap replicates (over customers) for the revenue interval.
+    missing : {"stop", "complete_cases", "missing_level"}
+        The missing-value rule for the adjusted hazard ratio's covariates
+        (:mod:`retain.models.missing`); what it left out is in ``missing`` and
+        ``warnings``. Curves, restricted means and revenue use every row.
     """
     name = spec_value(spec, "name", "experiment")
     where = f"experiment {name!r}"
@@ -486,7 +494,8 @@ def experiment_verdict(
     logrank = compare_groups(sub, arm)
     warnings.extend(logrank.warnings)
     covariates = tuple(spec_value(spec, "covariates", ()) or ())
-    adjusted, cox_warn = _adjusted_hazard_ratios(sub, arm, control, treatments, covariates, conf)
+    adjusted, cox_warn, dropped = _adjusted_hazard_ratios(sub, arm, control, treatments,
+                                                          covariates, conf, missing)
     warnings.extend(cox_warn)
 
     # per-arm tables
@@ -571,4 +580,4 @@ def experiment_verdict(
         as_of=None if as_of_d is None else as_of_d.isoformat(), planned_horizon_days=planned,
         analysis_horizon_days=analysis, interim=interim, arms=arms, curves=curves,
         logrank=logrank, adjusted=adjusted, rmst=tuple(rmst), revenue=tuple(revenue),
-        balance=balance, power=power_info, conf=conf, warnings=tuple(warnings))
+        balance=balance, power=power_info, conf=conf, warnings=tuple(warnings), missing=dropped)

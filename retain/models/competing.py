@@ -232,6 +232,7 @@ class CauseSpecificCox(Result):
     events: dict
     method: str = "cause-specific hazards: Cox PH per cause, other causes treated as censored"
     warnings: tuple[str, ...] = field(default_factory=tuple)
+    missing: Any = None  # MissingCovariates: rows left out (or recoded) for missing values
 
     def to_frame(self) -> pd.DataFrame:
         return self.frame.copy()
@@ -251,6 +252,7 @@ def cause_specific_cox(
     covariates: Sequence[str],
     *,
     causes: Sequence[str] | None = None,
+    missing: str = "stop",
     **options: object,
 ) -> CauseSpecificCox:
     """Fit a Cox model for each churn cause with the other causes censored.
@@ -263,15 +265,25 @@ def cause_specific_cox(
         The same covariates for every cause.
     causes : optional
         Which causes (default: every cause present).
+    missing : {"stop", "complete_cases", "missing_level"}
+        The missing-value rule (:mod:`retain.models.missing`), applied once to
+        the covariates and strata so every cause's model fits the same rows.
     **options
         Passed to :func:`retain.models.cox.fit_cox` (strata, ties, reference,
         penalty, robust, conf, ...).
     """
     from retain.models.cox import fit_cox
+    from retain.models.missing import apply_missing_rule
 
     if not isinstance(table, StartStop):
         raise DataError("cause_specific_cox", f"needs a StartStop, not {type(table).__name__}",
                         "build one with StartStop.from_parquet / from_frame")
+    covariates = [covariates] if isinstance(covariates, str) else list(covariates)
+    strata = options.get("strata")
+    strata_cols = [] if strata is None else ([strata] if isinstance(strata, str) else
+                                             list(strata))  # type: ignore[arg-type]
+    table, dropped, _ = apply_missing_rule(table, covariates + strata_cols, missing,
+                                           f"cause-specific Cox on {table.source}")
     present = [c for c in CAUSES if c in table.cause.levels
                and bool(np.any((table.cause.codes == table.cause.levels.index(c))
                                & (table.churned == 1)))]
@@ -286,10 +298,11 @@ def cause_specific_cox(
     if not chosen:
         raise ModelError(table.source, "there are no churns with a cause",
                          "cause-specific models need the cause column")
-    fits, frames, events, warnings = {}, [], {}, []
-    missing = int(np.sum((table.churned == 1) & (table.cause.codes < 0)))
-    if missing:
-        warnings.append(f"{missing} churn rows carry no cause; every cause's model treats them "
+    fits, frames, events = {}, [], {}
+    warnings = [dropped.summary()] if dropped.any else []
+    no_cause = int(np.sum((table.churned == 1) & (table.cause.codes < 0)))
+    if no_cause:
+        warnings.append(f"{no_cause} churn rows carry no cause; every cause's model treats them "
                         "as censored")
     for c in chosen:
         sub = table.for_cause(c)
@@ -302,7 +315,8 @@ def cause_specific_cox(
         warnings.extend(f"{c}: {w}" for w in fit.warnings)
     return CauseSpecificCox(fits=fits, frame=pd.concat(frames, ignore_index=True),
                             causes=tuple(chosen), covariates=tuple(covariates),
-                            n_rows=table.n_rows, events=events, warnings=tuple(warnings))
+                            n_rows=table.n_rows, events=events, warnings=tuple(warnings),
+                            missing=dropped)
 
 
 # ---------------------------------------------------------------- Fine–Gray

@@ -38,6 +38,7 @@ from retain.data.table import Categorical, StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import cox as K
 from retain.models.design import Design, check_collinear_matrix, design_matrix
+from retain.models.missing import MissingCovariates, apply_missing_rule
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
@@ -208,6 +209,7 @@ class CoxFit(Result):
     _xbar: np.ndarray = field(repr=False)  # (K, p) risk-weighted means S1/S0 at each churn time
     _table: StartStop = field(repr=False)
     _cluster: np.ndarray | None = field(repr=False)
+    missing: MissingCovariates | None = None  # rows left out (or recoded) for missing values
 
     # ---------------------------------------------------------------- conversion
     def to_dict(self) -> dict[str, Any]:
@@ -215,6 +217,11 @@ class CoxFit(Result):
                if f.name not in _PRIVATE}
         out["hazard_ratios"] = to_jsonable(self.hazard_ratios)
         return out
+
+    @property
+    def fitted_table(self) -> StartStop:
+        """The rows the model was fitted on (after the missing-value rule)."""
+        return self._table
 
     @property
     def hazard_ratio(self) -> np.ndarray:
@@ -642,6 +649,7 @@ def fit_cox(
     robust: bool = True,
     conf: float = 0.95,
     max_iter: int = 50,
+    missing: str = "stop",
 ) -> CoxFit:
     r"""Fit a Cox proportional-hazards model to a start-stop table.
 
@@ -672,6 +680,11 @@ def fit_cox(
         Confidence level of the intervals.
     max_iter : int
         Newton–Raphson iterations allowed.
+    missing : {"stop", "complete_cases", "missing_level"}
+        What to do with rows whose covariates or strata have no value (see
+        :mod:`retain.models.missing`): refuse (default), fit on the complete
+        rows, or give a categorical column a ``"(missing)"`` level. What was
+        dropped is in ``missing`` and ``warnings``.
 
     Raises
     ------
@@ -686,13 +699,13 @@ def fit_cox(
     with _single_blas_thread():
         return _fit_cox(table, covariates, strata=strata, ties=ties, offset=offset,
                         penalty=penalty, reference=reference, robust=robust, conf=conf,
-                        max_iter=max_iter)
+                        max_iter=max_iter, missing=missing)
 
 
 def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Sequence[str] | None,
              ties: str, offset: str | np.ndarray | None, penalty: float,
              reference: Mapping[str, str] | None, robust: bool, conf: float,
-             max_iter: int) -> CoxFit:
+             max_iter: int, missing: str = "stop") -> CoxFit:
     where = f"Cox model on {table.source}"
     if ties not in TIES:
         raise ModelError(where, f"unknown tie method {ties!r}", "use 'efron' or 'breslow'")
@@ -709,6 +722,12 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
                         "a stratum gets its own baseline; drop it from the covariates")
     for s in strata_t:
         table.column(s)
+    n_in = table.n_rows
+    table, dropped, kept = apply_missing_rule(table, [*covariates, *strata_t], missing, where)
+    if offset is not None and not isinstance(offset, str) and dropped.rows:
+        offset = np.asarray(offset, dtype=np.float64)
+        if offset.shape == (n_in,):
+            offset = offset[kept]
     w = table.weight
     d = table.churned.astype(np.float64)
     n_events = float(np.dot(w, d))
@@ -728,7 +747,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         if off.shape != (table.n_rows,) or not np.all(np.isfinite(off)):
             raise DataError(where, "the offset must be finite with one value per row",
                             "check the offset column")
-    warn: list[str] = []
+    warn: list[str] = [dropped.summary()] if dropped.any else []
     stratum, stratum_labels = _stratum_codes(table, strata_t)
     ev_by_stratum = (np.bincount(stratum, weights=w * d, minlength=len(stratum_labels))
                      if strata_t else np.array([n_events]))
@@ -823,7 +842,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         iterations=res.iterations, history=tuple(tuple(h) for h in res.history),
         warnings=tuple(warn), source=table.source, design=design, _index=index, _Xc=Xc,
         _weight=w, _churned=d, _offset=off, _stratum=stratum, _dH0=dH0, _xbar=xbar, _table=table,
-        _cluster=cluster,
+        _cluster=cluster, missing=dropped,
     )
 
 

@@ -54,6 +54,7 @@ from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import parametric as K
 from retain.models.design import Design, design_matrix
+from retain.models.missing import MissingCovariates, apply_missing_rule
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
@@ -288,6 +289,7 @@ class ParametricFit(Result):
     exponential_loglik: float | None
     design: Design
     warnings: tuple[str, ...] = ()
+    missing: MissingCovariates | None = None  # rows left out (or recoded) for missing values
 
     # ------------------------------------------------------------ basics
     def to_dict(self) -> dict[str, Any]:
@@ -702,17 +704,20 @@ class _Prepared:
     Xc: np.ndarray
     scale: float
     where: str
+    table: StartStop  # the rows the model fits (after the missing-value rule)
+    missing: MissingCovariates
 
 
 def _prepare(table: StartStop, covariates: Sequence[str], reference: Mapping[str, str] | None,
-             where: str) -> _Prepared:
+             where: str, missing: str = "stop") -> _Prepared:
     table = _check_table(table, where)
     if isinstance(covariates, str):
         covariates = [covariates]
+    table, dropped, _ = apply_missing_rule(table, list(covariates), missing, where)
     design = design_matrix(table, list(covariates), reference=reference)
     Xc = design.centred() if design.n_columns else np.zeros((table.n_rows, 0))
     scale = float(np.average(table.stop, weights=table.weight))
-    return _Prepared(design, Xc, scale, where)
+    return _Prepared(design, Xc, scale, where, table, dropped)
 
 
 def _one_blas_thread() -> Any:
@@ -775,7 +780,7 @@ def _fit_exponential_core(rows: K.SurvivalRows, prep: _Prepared, max_iter: int
 
 def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
                     reference: Mapping[str, str] | None = None, conf: float = 0.95,
-                    max_iter: int = 100) -> ParametricFit:
+                    max_iter: int = 100, missing: str = "stop") -> ParametricFit:
     """Exponential (constant-hazard) proportional-hazards model.
 
     h(t | x) = exp(b0 + x'b) per day; log-likelihood
@@ -791,6 +796,10 @@ def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
         Reference level per categorical covariate (default: the most common).
     conf : float
         Level of every interval (default 0.95).
+    missing : {"stop", "complete_cases", "missing_level"}
+        Rows whose covariates have no value: refuse (default), fit on the
+        complete rows, or give a categorical covariate a ``"(missing)"`` level
+        (:mod:`retain.models.missing`); the result's ``missing`` counts them.
 
     Returns
     -------
@@ -798,7 +807,8 @@ def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
     """
     where = "exponential model"
     _z(conf, where)
-    prep = _prepare(table, covariates, reference, where)
+    prep = _prepare(table, covariates, reference, where, missing)
+    table = prep.table
     theta_i, ll_i, hess_i, history = _fit_exponential_core(_survival_rows(table, prep), prep,
                                                            max_iter)
     return _finish("exponential", table, prep, theta_i, ll_i, hess_i, history, conf,
@@ -807,7 +817,8 @@ def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
 
 def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
                 reference: Mapping[str, str] | None = None, shape: float | None = None,
-                conf: float = 0.95, max_iter: int = 100) -> ParametricFit:
+                conf: float = 0.95, max_iter: int = 100, missing: str = "stop"
+                ) -> ParametricFit:
     """Weibull proportional-hazards model on start-stop data.
 
     h(t | x) = alpha exp(b0 + x'b) t**(alpha - 1), H(t | x) = exp(b0 + x'b) t**alpha
@@ -825,6 +836,10 @@ def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
         default: estimate it.
     conf : float
         Level of every interval.
+    missing : {"stop", "complete_cases", "missing_level"}
+        Rows whose covariates have no value: refuse (default), fit on the
+        complete rows, or give a categorical covariate a ``"(missing)"`` level
+        (:mod:`retain.models.missing`); the result's ``missing`` counts them.
 
     Returns
     -------
@@ -836,7 +851,8 @@ def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
     if shape is not None and not (math.isfinite(shape) and shape > 0):
         raise ModelError(where, f"a fixed shape must be a positive number, got {shape!r}",
                          "leave shape=None to estimate it")
-    prep = _prepare(table, covariates, reference, where)
+    prep = _prepare(table, covariates, reference, where, missing)
+    table = prep.table
     s = prep.scale
     # the exponential fit: starting values and the null model of the shape test
     rows = _survival_rows(table, prep)
@@ -913,14 +929,15 @@ def _finish(model: str, table: StartStop, prep: _Prepared, theta_i: np.ndarray, 
     # log-likelihood in days: every churn's log hazard gains -log(s)
     ll = ll_i - table.n_events * math.log(s)
     n_params = len(free)
-    warnings: list[str] = []
+    warnings: list[str] = [prep.missing.summary()] if prep.missing.any else []
     return ParametricFit(
         model=model, params=theta, cov=cov, param_names=tuple(names),
         columns=design.columns, labels=design.labels, covariates=design.covariates,
         reference=dict(design.reference), cuts=tuple(float(c) for c in cuts),
         fixed_shape=fixed_shape, loglik=float(ll), n_params=int(n_params), **_facts(table),
         conf=float(conf), converged=True, iterations=len(history), history=tuple(history),
-        exponential_loglik=exp_ll, design=_strip(design), warnings=tuple(warnings))
+        exponential_loglik=exp_ll, design=_strip(design), warnings=tuple(warnings),
+        missing=prep.missing)
 
 
 def _check_cuts(cuts: Sequence[float] | None, table: StartStop, where: str) -> np.ndarray:
@@ -938,7 +955,7 @@ def _check_cuts(cuts: Sequence[float] | None, table: StartStop, where: str) -> n
 def fit_piecewise(table: StartStop, bands: Sequence[float] | None = None,
                   covariates: Sequence[str] = (), *,
                   reference: Mapping[str, str] | None = None, conf: float = 0.95,
-                  max_iter: int = 100) -> ParametricFit:
+                  max_iter: int = 100, missing: str = "stop") -> ParametricFit:
     """Piecewise-constant hazard model on tenure bands.
 
     h(t | x) = exp(a_k + x'b) for t in band k = (c_{k-1}, c_k] (Friedman 1982).
@@ -954,9 +971,9 @@ def fit_piecewise(table: StartStop, bands: Sequence[float] | None = None,
     """
     where = "piecewise-constant hazard model"
     _z(conf, where)
-    table = _check_table(table, where)
+    prep = _prepare(table, covariates, reference, where, missing)
+    table = prep.table
     cuts = _check_cuts(bands, table, where)
-    prep = _prepare(table, covariates, reference, where)
     s = prep.scale
     rows = K.PiecewiseRows.build(prep.Xc, table.start / s, table.stop / s, table.churned,
                                  table.weight, cuts / s)
@@ -995,6 +1012,7 @@ class ModelComparison(Result):
     n_events: float
     shape_test: ShapeTest
     warnings: tuple[str, ...] = ()
+    missing: MissingCovariates | None = None  # rows left out (or recoded) for missing values
 
     def to_frame(self) -> pd.DataFrame:
         rows = []
@@ -1023,20 +1041,31 @@ class ModelComparison(Result):
 def compare_models(table: StartStop, covariates: Sequence[str] = (),
                    bands: Sequence[float] | None = None, *,
                    reference: Mapping[str, str] | None = None,
-                   conf: float = 0.95) -> ModelComparison:
+                   conf: float = 0.95, missing: str = "stop") -> ModelComparison:
     """Fit exponential, Weibull and piecewise-constant models with the same covariates.
 
     The piecewise model nests the exponential (equal band hazards); the
     Weibull nests it too (shape 1). BIC uses the number of churns as n
-    (Volinsky & Raftery 2000).
+    (Volinsky & Raftery 2000). ``missing`` applies one missing-value rule
+    (:mod:`retain.models.missing`) before all three fits, so they share their rows.
     """
+    covs = [covariates] if isinstance(covariates, str) else list(covariates)
+    table, dropped, _ = apply_missing_rule(_check_table(table, "model comparison"), covs,
+                                           missing, "model comparison")
     fits = {
-        "exponential": fit_exponential(table, covariates, reference=reference, conf=conf),
-        "weibull": fit_weibull(table, covariates, reference=reference, conf=conf),
-        "piecewise": fit_piecewise(table, bands, covariates, reference=reference, conf=conf),
+        "exponential": fit_exponential(table, covs, reference=reference, conf=conf),
+        "weibull": fit_weibull(table, covs, reference=reference, conf=conf),
+        "piecewise": fit_piecewise(table, bands, covs, reference=reference, conf=conf),
     }
-    return ModelComparison(fits=fits, covariates=tuple(covariates),
-                           n_events=table.n_events, shape_test=fits["weibull"].shape_test)
+    warnings = [dropped.summary()] if dropped.any else []
+    for name, fit in fits.items():
+        warnings += [f"{name}: {w}" for w in fit.warnings]
+    fits = {k: dataclasses.replace(f, missing=dropped,
+                                   warnings=((dropped.summary(),) if dropped.any else ())
+                                   + f.warnings) for k, f in fits.items()}
+    return ModelComparison(fits=fits, covariates=tuple(covs), n_events=table.n_events,
+                           shape_test=fits["weibull"].shape_test, warnings=tuple(warnings),
+                           missing=dropped)
 
 
 # --------------------------------------------------------------------------- diagnostic

@@ -554,6 +554,7 @@ def fit_page(run: Any) -> Page:
                                 "BIC is better, and a difference under about 2 is no real "
                                 "difference (common practice).",
                                 facts=(Fact("Lowest AIC", best, "", "best-aic", None),),
+                                bullets=tuple(comp.warnings),
                                 figures=(Figure(
             key="fit-criteria", title="Log-likelihood, AIC and BIC",
             guide="One row per model. delta_aic and delta_bic are the distance to the best "
