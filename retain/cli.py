@@ -18,6 +18,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+from retain import __version__
 from retain.errors import RetainError
 
 EXIT_ERROR = 2
@@ -187,6 +188,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="retain", parents=[common],
         description="Survival analysis of a subscription business's event log.")
+    parser.add_argument("--version", action="version", version=f"retain {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="command")
     sub.required = True
     for cmd in COMMANDS.values():
