@@ -95,6 +95,7 @@ def _args_config(parser: argparse.ArgumentParser) -> None:
 
 def _cmd_check(args: argparse.Namespace) -> int:
     prepared = _prepare(args, args.config)
+    print(f"Read as: {prepared.config.source.describe()}")
     print_reconciliation(prepared)
     return 0
 

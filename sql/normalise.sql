@@ -2,6 +2,7 @@
 --
 -- Reads the view `source_events` that prepare.py defines over the imported log:
 --   source_row, customer_id, event_time, event, reason  (text)
+--   malformed (a CSV record that did not split into the file's columns)
 --   one text column per attribute, named by group:
 --     sc__<name> static categorical   sn__<name> static numeric
 --     vc__<name> varying categorical  vn__<name> varying numeric
@@ -19,6 +20,7 @@
 with imported as (
     select
         source_row,
+        malformed,
         customer_id,
         -- a time without an offset is a wall-clock time in the session zone,
         -- which prepare.py sets to $timezone
@@ -69,6 +71,7 @@ flagged as (
     select
         *,
         case
+            when malformed then 'malformed CSV record'
             when ignored then null
             when customer_id is null or trim(customer_id) = '' then 'missing id'
             when event_ts is null then 'unparseable time'

@@ -156,7 +156,8 @@ def test_compress_table_on_any_arrow_start_stop_table(con):
     ("exposure_running", set()), ("repeats", set()), ("reorder", set()),
     ("intervals", {"as_of", "window_start"}),
     ("compress", set()), ("quarantine", set()), ("reconcile", set()),
-    ("import_csv", {"path"}), ("import_parquet", {"path"}), ("import_table", set()),
+    ("import_csv", {"path", "delimiter", "quote", "escape", "header", "encoding", "columns"}),
+    ("import_parquet", {"path"}), ("import_table", set()),
 ])
 def test_each_step_binds_exactly_its_parameters(step, params):
     assert step_parameters(step) == params

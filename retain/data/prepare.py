@@ -41,6 +41,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
 from retain.data.config import Config
+from retain.data.source import MALFORMED, import_csv
 from retain.data.sqlsteps import run_step
 from retain.data.table import StartStop
 from retain.errors import DataError, ReconciliationError
@@ -176,7 +177,7 @@ def _import(con: duckdb.DuckDBPyConnection, config: Config) -> None:
         elif src.format == "parquet":
             run_step(con, "import_parquet", {"path": str(src.path)}, create="raw")
         else:
-            run_step(con, "import_csv", {"path": str(src.path)}, create="raw")
+            import_csv(con, config)
     except duckdb.Error as exc:
         first = str(exc).strip().splitlines()[0]
         raise DataError(src.label, f"cannot be read as {src.format} ({first})",
@@ -201,6 +202,9 @@ def _source_view(con: duckdb.DuckDBPyConnection, config: Config) -> None:
                             f"columns found: {', '.join(found)}")
     select = ["rowid + 1 as source_row"]
     select += [f"{_ident(theirs)} as {_ident(ours)}" for ours, theirs, _ in wanted]
+    # a CSV record that did not split into the columns (see retain/data/source.py)
+    select.append(f"{_ident(MALFORMED)} is not null as malformed" if MALFORMED in found
+                  else "false as malformed")
     if cols.reason is None:
         select.append("cast(null as varchar) as reason")
     select += [f"cast(null as varchar) as {g}0" for g in _GROUPS]
