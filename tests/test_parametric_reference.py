@@ -144,14 +144,18 @@ def test_weibull_ph_and_aft_readings_satisfy_the_exact_relation():
     assert -res.fun == pytest.approx(fit.loglik, rel=1e-9)
 
 
-def test_piecewise_band_without_churn_is_refused_with_its_name():
+def test_piecewise_band_without_churn_is_merged_and_named():
     """Three rows: (0,10] churn, (5,25] censored, (0,40] churn; cut points 20, 30 leave the
-    band 20-30 days with exposure 15 and no churn: its hazard MLE is 0 (log -inf)."""
-    from retain import ModelError
-
+    band 20-30 days with exposure 15 and no churn: its hazard MLE is 0 (log -inf), so it
+    merges with the band after it, giving the bands of cut point 20 alone (hand-worked
+    below: exposure 45 and 25, churns 1 and 1)."""
     table = StartStop([0.0, 5.0, 0.0], [10.0, 25.0, 40.0], [1, 0, 1])
-    with pytest.raises(ModelError, match="no churns .* in band"):
-        fit_piecewise(table, [20.0, 30.0])
+    fit = fit_piecewise(table, [20.0, 30.0])
+    assert fit.cuts == (20.0,) and fit.requested_cuts == (20.0, 30.0)
+    np.testing.assert_allclose(np.exp(fit.params), [1 / 45, 1 / 25], rtol=1e-12)
+    assert fit.merged_bands == ("20 to 30 days + over 30 days -> over 20 days (no churns or "
+                                "no time at risk in 20 to 30 days)",)
+    assert any("bands merged" in w for w in fit.warnings)
 
 
 def test_piecewise_hand_worked():

@@ -361,6 +361,38 @@ def piecewise_closed_form(rows: PiecewiseRows) -> tuple[np.ndarray, np.ndarray]:
     return events, exposure
 
 
+def merge_empty_bands(events: np.ndarray, exposure: np.ndarray) -> np.ndarray:
+    """Which interior cut points to keep so that every band has churns and time at risk.
+
+    Band k lies between cut k-1 and cut k (cut j separates bands j and j+1).
+    While some band has ``events <= 0`` or ``exposure <= 0``, the first such
+    band is merged with the band after it (the last band with the one before
+    it) by removing the cut between them; sums of events and exposure over
+    merged bands are sums over their parts, so no row is read again. The
+    piecewise-constant MLE exists exactly when every band has events > 0 and
+    exposure > 0 (Holford 1976: rate = events / exposure, log rate finite).
+
+    Returns
+    -------
+    kept : int array, the indices (into the interior cuts) of the cuts kept,
+    increasing. When one band is left it may still have no events; the caller
+    decides what that means.
+    """
+    ev = [float(x) for x in events]
+    ex = [float(x) for x in exposure]
+    kept = list(range(len(ev) - 1))
+    while len(ev) > 1:
+        empty = [k for k in range(len(ev)) if ev[k] <= 0 or ex[k] <= 0]
+        if not empty:
+            break
+        k = empty[0]
+        j = k if k < len(ev) - 1 else k - 1  # merge bands j and j + 1: drop cut j
+        ev[j] += ev.pop(j + 1)
+        ex[j] += ex.pop(j + 1)
+        del kept[j]
+    return np.asarray(kept, dtype=np.int64)
+
+
 def piecewise_loglik(theta: np.ndarray, rows: PiecewiseRows, *, derivatives: bool = True
                      ) -> tuple[float, np.ndarray | None, np.ndarray | None]:
     """Piecewise-constant PH log-likelihood with covariates.

@@ -290,6 +290,8 @@ class ParametricFit(Result):
     design: Design
     warnings: tuple[str, ...] = ()
     missing: MissingCovariates | None = None  # rows left out (or recoded) for missing values
+    requested_cuts: tuple[float, ...] = ()  # piecewise: the cut points asked for (days)
+    merged_bands: tuple[str, ...] = ()  # piecewise: "a + b -> c" for each band made by merging
 
     # ------------------------------------------------------------ basics
     def to_dict(self) -> dict[str, Any]:
@@ -691,10 +693,20 @@ class ParametricFit(Result):
         return table.weight * h0 * np.exp(lin)
 
 
+def _whole_months(days: float) -> bool:
+    m = days / DAYS_PER_MONTH
+    return abs(2 * m - round(2 * m)) < 1e-9
+
+
 def _band_label(lo: float, hi: float) -> str:
+    """A band's name: in months when its ends are whole (or half) months, else in days."""
+    if all(_whole_months(x) for x in (lo, hi) if math.isfinite(x)):
+        if not math.isfinite(hi):
+            return f"over {_months(lo):g} months"
+        return f"{_months(lo):g} to {_months(hi):g} months"
     if not math.isfinite(hi):
-        return f"over {_months(lo):g} months"
-    return f"{_months(lo):g} to {_months(hi):g} months"
+        return f"over {lo:g} days"
+    return f"{lo:g} to {hi:g} days"
 
 
 # --------------------------------------------------------------------------- fitting
@@ -941,6 +953,8 @@ def _finish(model: str, table: StartStop, prep: _Prepared, theta_i: np.ndarray, 
 
 
 def _check_cuts(cuts: Sequence[float] | None, table: StartStop, where: str) -> np.ndarray:
+    if isinstance(cuts, (int, float)) and not isinstance(cuts, bool):
+        cuts = [cuts]
     if cuts is None:
         c = np.asarray(DEFAULT_BAND_MONTHS) * DAYS_PER_MONTH
         c = c[c < table.stop.max()]
@@ -952,39 +966,66 @@ def _check_cuts(cuts: Sequence[float] | None, table: StartStop, where: str) -> n
     return c
 
 
-def fit_piecewise(table: StartStop, bands: Sequence[float] | None = None,
+def fit_piecewise(table: StartStop, cuts: Sequence[float] | None = None,
                   covariates: Sequence[str] = (), *,
                   reference: Mapping[str, str] | None = None, conf: float = 0.95,
                   max_iter: int = 100, missing: str = "stop") -> ParametricFit:
     """Piecewise-constant hazard model on tenure bands.
 
-    h(t | x) = exp(a_k + x'b) for t in band k = (c_{k-1}, c_k] (Friedman 1982).
-    Without covariates the estimate is closed form: churns / exposure in each
-    band (Holford 1976); with covariates, Newton on (a, b).
+    h(t | x) = exp(a_k + x'b) for t in band k = (c_{k-1}, c_k] (Friedman 1982):
+    a churn exactly on a cut point c_k belongs to the band that ends there, and
+    the row's time at risk (start, stop] is split at the cuts. Without
+    covariates the estimate is closed form: churns / exposure in each band
+    (Holford 1976); with covariates, Newton on (a, b).
+
+    A band with no churn or no time at risk has no finite estimate; it is
+    merged with the band after it (the last band with the one before) until
+    every band has both (:func:`retain.kernels.parametric.merge_empty_bands`).
+    ``requested_cuts`` keeps the cut points asked for, ``cuts`` those used,
+    ``merged_bands`` and ``warnings`` say which bands were merged.
 
     Parameters
     ----------
-    bands : sequence of float, optional
-        Interior cut points in days (the first band starts at 0, the last is
-        open). Default: 1, 3, 6, 12 and 24 months, those below the longest
-        observed tenure.
+    cuts : sequence of float, optional
+        Interior cut points in days of tenure, increasing and positive (the
+        first band starts at 0, the last is open); the project file's
+        ``[model] piecewise_cuts``. Default: 1, 3, 6, 12 and 24 months
+        (30.44-day months), those below the longest observed tenure.
+    covariates, reference, conf, max_iter
+        As for :func:`fit_weibull`.
+    missing : {"stop", "complete_cases", "missing_level"}
+        The missing-value rule (:mod:`retain.models.missing`).
     """
     where = "piecewise-constant hazard model"
     _z(conf, where)
     prep = _prepare(table, covariates, reference, where, missing)
     table = prep.table
-    cuts = _check_cuts(bands, table, where)
+    asked = _check_cuts(cuts, table, where)
     s = prep.scale
     rows = K.PiecewiseRows.build(prep.Xc, table.start / s, table.stop / s, table.churned,
-                                 table.weight, cuts / s)
+                                 table.weight, asked / s)
     events, exposure = K.piecewise_closed_form(rows)
-    empty = [i for i in range(rows.n_bands) if events[i] <= 0 or exposure[i] <= 0]
-    if empty:
-        lo = np.concatenate(([0.0], cuts))
-        hi = np.concatenate((cuts, [np.inf]))
-        names = ", ".join(_band_label(lo[i], hi[i]) for i in empty)
-        raise ModelError(where, f"no churns (or no time at risk) in band(s): {names}",
-                         "merge those bands with a neighbour (fewer cut points)")
+    kept = K.merge_empty_bands(events, exposure)
+    used = asked[kept]
+    merged: list[str] = []
+    if used.shape[0] < asked.shape[0]:
+        lo_a = np.concatenate(([0.0], asked))
+        hi_a = np.concatenate((asked, [np.inf]))
+        lo_u = np.concatenate(([0.0], used))
+        hi_u = np.concatenate((used, [np.inf]))
+        for a, b in zip(lo_u, hi_u, strict=True):
+            parts = [i for i in range(lo_a.shape[0]) if lo_a[i] >= a and hi_a[i] <= b]
+            if len(parts) > 1:
+                empty = [_band_label(lo_a[i], hi_a[i]) for i in parts
+                         if events[i] <= 0 or exposure[i] <= 0]
+                merged.append(f"{' + '.join(_band_label(lo_a[i], hi_a[i]) for i in parts)} "
+                              f"-> {_band_label(a, b)} (no churns or no time at risk in "
+                              f"{', '.join(empty)})")
+        rows = K.PiecewiseRows.build(prep.Xc, table.start / s, table.stop / s, table.churned,
+                                     table.weight, used / s)
+        events, exposure = K.piecewise_closed_form(rows)
+    if np.any(events <= 0) or np.any(exposure <= 0):
+        raise ModelError(where, "the table has no churns", "a hazard model needs churn events")
     a0 = np.log(events / exposure)
     if prep.Xc.shape[1] == 0:
         # closed form: the information is diag(events)
@@ -998,8 +1039,12 @@ def fit_piecewise(table: StartStop, bands: Sequence[float] | None = None,
             return K.piecewise_loglik(th, rows, derivatives=derivatives)
 
         theta_i, ll_i, hess_i, history = _newton(fun, theta0, where, max_iter)
-    return _finish("piecewise", table, prep, theta_i, ll_i, hess_i, history, conf,
-                   fixed_shape=None, exp_ll=None, cuts=cuts)
+    fit = _finish("piecewise", table, prep, theta_i, ll_i, hess_i, history, conf,
+                  fixed_shape=None, exp_ll=None, cuts=used)
+    note = (("bands merged for lack of churns or time at risk: " + "; ".join(merged),)
+            if merged else ())
+    return dataclasses.replace(fit, requested_cuts=tuple(float(c) for c in asked),
+                               merged_bands=tuple(merged), warnings=fit.warnings + note)
 
 
 # --------------------------------------------------------------------------- comparison
@@ -1039,15 +1084,17 @@ class ModelComparison(Result):
 
 
 def compare_models(table: StartStop, covariates: Sequence[str] = (),
-                   bands: Sequence[float] | None = None, *,
+                   cuts: Sequence[float] | None = None, *,
                    reference: Mapping[str, str] | None = None,
                    conf: float = 0.95, missing: str = "stop") -> ModelComparison:
     """Fit exponential, Weibull and piecewise-constant models with the same covariates.
 
     The piecewise model nests the exponential (equal band hazards); the
     Weibull nests it too (shape 1). BIC uses the number of churns as n
-    (Volinsky & Raftery 2000). ``missing`` applies one missing-value rule
-    (:mod:`retain.models.missing`) before all three fits, so they share their rows.
+    (Volinsky & Raftery 2000). ``cuts`` are the piecewise model's cut points in
+    days (see :func:`fit_piecewise`; empty bands merge by themselves).
+    ``missing`` applies one missing-value rule (:mod:`retain.models.missing`)
+    before all three fits, so they share their rows.
     """
     covs = [covariates] if isinstance(covariates, str) else list(covariates)
     table, dropped, _ = apply_missing_rule(_check_table(table, "model comparison"), covs,
@@ -1055,7 +1102,7 @@ def compare_models(table: StartStop, covariates: Sequence[str] = (),
     fits = {
         "exponential": fit_exponential(table, covs, reference=reference, conf=conf),
         "weibull": fit_weibull(table, covs, reference=reference, conf=conf),
-        "piecewise": fit_piecewise(table, bands, covs, reference=reference, conf=conf),
+        "piecewise": fit_piecewise(table, cuts, covs, reference=reference, conf=conf),
     }
     warnings = [dropped.summary()] if dropped.any else []
     for name, fit in fits.items():
