@@ -161,6 +161,41 @@ def rank_scores(at_risk: np.ndarray, events: np.ndarray,
     return u, v
 
 
+def logrank_weights(at_risk: np.ndarray, events: np.ndarray, kind: str, p: float = 0.0,
+                    q: float = 0.0) -> np.ndarray:
+    """Time weights of a weighted log-rank test from the pooled counts at each churn time.
+
+    ``at_risk`` (n_j) and ``events`` (d_j) are the pooled (weighted) counts at
+    the ordered churn times of one stratum.
+
+    * ``"logrank"``: w_j = 1 (Mantel 1966).
+    * ``"gehan-breslow"``: w_j = n_j, the number at risk (Gehan 1965; Breslow
+      1970: the generalised Wilcoxon test).
+    * ``"tarone-ware"``: w_j = sqrt(n_j) (Tarone & Ware 1977).
+    * ``"peto-peto"``: w_j = prod_{i <= j} (1 - d_i / (n_i + 1)) (Peto & Peto
+      1972; Klein & Moeschberger 2003, sec. 7.3).
+    * ``"fleming-harrington"``: w_j = S(t_j-)^p (1 - S(t_j-))^q with the pooled
+      Kaplan–Meier left limit (Harrington & Fleming 1982).
+    """
+    n = np.asarray(at_risk, dtype=np.float64)
+    d = np.asarray(events, dtype=np.float64)
+    if kind == "logrank":
+        return np.ones_like(n)
+    if kind == "gehan-breslow":
+        return n.copy()
+    if kind == "tarone-ware":
+        return np.sqrt(n)
+    if kind == "peto-peto":
+        return np.cumprod(1.0 - d / (n + 1.0))
+    if kind == "fleming-harrington":
+        if p == 0.0 and q == 0.0:
+            return np.ones_like(n)
+        s, _ = product_limit(n, d)
+        left = np.concatenate(([1.0], s[:-1]))
+        return left ** p * (1.0 - left) ** q
+    raise ValueError(f"unknown weight kind {kind!r}")
+
+
 def chi_square(u: np.ndarray, v: np.ndarray) -> tuple[float, int]:
     """Quadratic form ``U' V^- U`` over the first k-1 groups and its degrees of freedom.
 

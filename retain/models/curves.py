@@ -837,37 +837,24 @@ class GroupTest(Result):
                 f"{self.df} df, p = {self.p_value:.3g}")
 
 
-def _parse_weighting(weighting: object, where: str) -> tuple[str, float, float]:
-    if weighting == "logrank":
-        return "log-rank", 0.0, 0.0
-    if weighting == "peto-peto":
-        return "Peto–Peto", math.nan, math.nan
+_WEIGHTINGS = {"logrank": "log-rank", "gehan-breslow": "Gehan–Breslow",
+               "tarone-ware": "Tarone–Ware", "peto-peto": "Peto–Peto"}
+
+
+def _parse_weighting(weighting: object, where: str) -> tuple[str, str, float, float]:
+    """(label, kind, p, q) of a weighting option (see :func:`retain.kernels.km.logrank_weights`)."""
+    if isinstance(weighting, str) and weighting in _WEIGHTINGS:
+        return _WEIGHTINGS[weighting], weighting, 0.0, 0.0
     if (isinstance(weighting, tuple) and len(weighting) == 3
             and weighting[0] == "fleming-harrington"):
         p, q = float(weighting[1]), float(weighting[2])
         if p < 0 or q < 0 or not (math.isfinite(p) and math.isfinite(q)):
             raise ModelError(where, f"Fleming–Harrington exponents must be >= 0, got {p}, {q}",
                              "e.g. ('fleming-harrington', 1, 0)")
-        return f"Fleming–Harrington({p:g}, {q:g})", p, q
+        return f"Fleming–Harrington({p:g}, {q:g})", "fleming-harrington", p, q
     raise ModelError(where, f"unknown weighting {weighting!r}",
-                     "use 'logrank', 'peto-peto' or ('fleming-harrington', p, q)")
-
-
-def _time_weights(n: np.ndarray, d: np.ndarray, p: float, q: float) -> np.ndarray:
-    """Time weights from the pooled counts at each event time.
-
-    Fleming–Harrington G(p, q) (Harrington & Fleming 1982):
-    :math:`w_j = \\hat S(t_j-)^p (1 - \\hat S(t_j-))^q` with the pooled
-    Kaplan–Meier left limit. Peto–Peto (Peto & Peto 1972; Klein & Moeschberger
-    2003, sec. 7.3): :math:`w_j = \\tilde S(t_j) = \\prod_{i \\le j}(1 - d_i/(n_i + 1))`.
-    """
-    if math.isnan(p):
-        return np.cumprod(1.0 - d / (n + 1.0))
-    if p == 0.0 and q == 0.0:
-        return np.ones_like(n)
-    s, _ = K.product_limit(n, d)
-    left = np.concatenate(([1.0], s[:-1]))
-    return left ** p * (1.0 - left) ** q
+                     "use 'logrank', 'gehan-breslow', 'tarone-ware', 'peto-peto' or "
+                     "('fleming-harrington', p, q)")
 
 
 def compare_groups(table: StartStop, by: str, *, strata: str | None = None,
@@ -886,13 +873,19 @@ def compare_groups(table: StartStop, by: str, *, strata: str | None = None,
         Column defining the groups (two or more values).
     strata : str, optional
         Column defining strata.
-    weighting : "logrank" | "peto-peto" | ("fleming-harrington", p, q)
-        Time weights (see :func:`retain.kernels.km.rank_scores`). Peto–Peto and
-        Fleming–Harrington(1, 0) emphasise early differences; (0, 1) late ones.
+    weighting : str or ("fleming-harrington", p, q)
+        "logrank", "gehan-breslow", "tarone-ware", "peto-peto", or the tuple.
+        Time weights w_j at each churn time (formulas and sources in
+        :func:`retain.kernels.km.logrank_weights`; scores in
+        :func:`retain.kernels.km.rank_scores`): 1; the number at risk n_j
+        (Gehan 1965, Breslow 1970); sqrt(n_j) (Tarone & Ware 1977); a
+        survival estimate (Peto & Peto 1972); S^p (1 - S)^q. Gehan–Breslow,
+        Tarone–Ware, Peto–Peto and Fleming–Harrington(1, 0) emphasise early
+        differences; (0, 1) late ones. With strata, n_j is each stratum's own.
     """
     where = f"comparison of retention by {by!r}"
     table = _check_table(table, where)
-    label, p, q = _parse_weighting(weighting, where)
+    label, kind, p, q = _parse_weighting(weighting, where)
     codes, levels, _ = spell_start_codes(table, by)
     k = len(levels)
     if strata is not None:
@@ -925,7 +918,7 @@ def compare_groups(table: StartStop, by: str, *, strata: str | None = None,
         used_strata += 1
         n_all = rt.at_risk.sum(axis=1)
         d_all = rt.events.sum(axis=1)
-        tw = _time_weights(n_all, d_all, p, q)
+        tw = K.logrank_weights(n_all, d_all, kind, p, q)
         uu, vv = K.rank_scores(rt.at_risk, rt.events, tw)
         u += uu
         v += vv
