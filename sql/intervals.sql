@@ -39,10 +39,13 @@ walked as (
         case when lead(tenure) over in_order > 0 then lead(cause) over in_order end
             as next_cause,
         -- the spell's first day is a cut, so the last first-day value so far is its
-        -- base (NaN stands in for a missing value: numbers are finite here)
-        columns('^(vr__[A-Za-z].*)$') / nullif(nullif(last_value(
-            case when day = start_day then coalesce(columns('^(vr__[A-Za-z].*)$'), 'nan'::double)
-            end ignore nulls) over in_order, 'nan'::double), 0) as 'ratio__\1',
+        -- base (NaN stands in for a missing value: numbers are finite here). The
+        -- pattern also matches `spell` so that it matches at least once in a project
+        -- without a ratio attribute; `ratio__spell` is never selected after.
+        columns('^(vr__[A-Za-z].*|spell)$') / nullif(nullif(last_value(
+            case when day = start_day
+                then coalesce(columns('^(vr__[A-Za-z].*|spell)$'), 'nan'::double) end
+            ignore nulls) over in_order, 'nan'::double), 0) as 'ratio__\1',
         cast(null as double) as ratio__vr__0,
         cast(null as category) as vc__0,
         cast(null as double) as vn__0,
@@ -98,7 +101,7 @@ final as (
         cast(columns('^(sn__.*)$') as double) as '\1',
         cast(columns('^(vc__.*)$') as varchar) as '\1',
         cast(columns('^(v[nr]__.*)$') as double) as '\1',
-        cast(columns('^(ratio__.*)$') as double) as '\1',
+        cast(columns('^(ratio__vr__.*)$') as double) as '\1',
         cast(k.in_recovery as double) as in_recovery,
         cast(k.paused as double) as paused,
         cast(k.spell - 1 as double) as prior_spells

@@ -15,6 +15,8 @@ from __future__ import annotations
 
 import datetime as dt
 from collections import Counter
+from dataclasses import dataclass, field
+from zoneinfo import ZoneInfo
 
 import pytest
 from hypothesis import HealthCheck, given, settings
@@ -35,6 +37,66 @@ RANK = {e: i for i, e in enumerate(("start", "update", "pause", "resume", "payme
                                     "payment_recovered", "end"))}
 DAY0 = dt.date(2024, 1, 1)
 AS_OF = dt.date(2024, 2, 5)
+CORE_COLS = ("customer_id", "spell", "start", "stop", "churned", "cause", "start_date",
+             "cohort")
+
+
+@dataclass(frozen=True)
+class Attr:
+    """One [attributes.<name>] table of the project file."""
+
+    name: str
+    column: str
+    kind: str  # "categorical" | "numeric"
+    varies: bool
+    ratio: bool = False
+
+
+@dataclass(frozen=True)
+class Shape:
+    """What a project file says about the log: its columns and how they map."""
+
+    attributes: tuple[Attr, ...]
+    reason_column: str | None = "cancel_reason"
+    events: dict = field(default_factory=lambda: dict(MAP))
+    ignore: frozenset = frozenset(IGNORE)
+    reasons: dict = field(default_factory=lambda: dict(REASONS))
+    reason_ignore: frozenset = frozenset(REASON_IGNORE)
+    timezone: str = "UTC"
+    as_of: dt.date = AS_OF
+
+    @property
+    def header(self) -> tuple[str, ...]:
+        cols = ["account", "occurred_at", "kind"]
+        if self.reason_column is not None:
+            cols.append(self.reason_column)
+        for a in self.attributes:
+            if a.column not in cols:
+                cols.append(a.column)
+        return tuple(cols)
+
+    @property
+    def static(self) -> tuple[Attr, ...]:
+        return tuple(a for a in self.attributes if not a.varies)
+
+    @property
+    def varying(self) -> tuple[Attr, ...]:
+        return tuple(a for a in self.attributes if a.varies)
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        """The start-stop columns :func:`naive_prepare` returns, in its tuple order."""
+        return (*CORE_COLS, *(a.name for a in self.static), *(a.name for a in self.varying),
+                *(a.name + "_ratio" for a in self.varying if a.ratio),
+                "in_recovery", "paused", "prior_spells")
+
+
+#: the shape of test_prepare_support's project file
+DEMO = Shape(attributes=(Attr("plan", "plan", "categorical", True),
+                         Attr("price", "monthly_price", "numeric", True, ratio=True),
+                         Attr("channel", "channel", "categorical", False),
+                         Attr("region", "region", "categorical", False),
+                         Attr("arm", "arm", "categorical", False)))
 
 
 def _text(v):
@@ -53,69 +115,90 @@ def _number(v):
     return (x, False) if abs(x) != float("inf") and x == x else (None, True)
 
 
-def naive_prepare(rows, *, window_start=None):
-    """Plain-loop reference: returns (start-stop rows, fates Counter)."""
+def _instant(text, zone):
+    """(instant, local day) of an ISO time; a time without an offset is a wall-clock
+    time in ``zone``. (None, None) when it does not parse."""
+    try:
+        ts = dt.datetime.fromisoformat(_text(text) or "")
+    except ValueError:
+        return None, None
+    if ts.tzinfo is None:
+        return ts.replace(tzinfo=zone), ts.date()
+    return ts, ts.astimezone(zone).date()
+
+
+def _apply_order(evs):
+    """Each event's place on its day (the "order" key), by the same-day rules: the fixed
+    order, except that on a day that begins with a spell open (starts of earlier days
+    outnumber their ends) and holds an end, the day's starts come after its events."""
+    for e in evs:
+        before = [x["event"] for x in evs if x["day"] < e["day"]]
+        is_open_then = before.count("start") > before.count("end")
+        has_end = any(x["event"] == "end" and x["day"] == e["day"] for x in evs)
+        order = 7 if (e["event"] == "start" and is_open_then and has_end) else e["rank"]
+        e["key"] = (e["day"], order, e["ts"], e["row"])
+
+
+def naive_prepare(rows, *, window_start=None, shape=DEMO):
+    """Plain-loop reference: returns (start-stop rows as tuples in ``shape.columns``
+    order, fates Counter)."""
+    zone = ZoneInfo(shape.timezone)
     fates = Counter()
     seen = set()
     candidates = []
     for i, r in enumerate(rows, 1):
-        r = dict(zip(HEADER, r, strict=True))
+        r = dict(zip(shape.header, r, strict=True))
         raw = _text(r["kind"])
-        if raw in IGNORE:
+        if raw in shape.ignore:
             fates["ignored"] += 1
             continue
         cid = r["account"]
-        try:  # a date, or a date and a wall-clock time (no offset: the zone is UTC)
-            ts = dt.datetime.fromisoformat(_text(r["occurred_at"]) or "")
-            day = ts.date()
-        except ValueError:
-            ts = day = None
-        event = MAP.get(raw)
-        price, bad_price = _number(r["monthly_price"])
-        reason = _text(r["cancel_reason"])
+        ts, day = _instant(r["occurred_at"], zone)
+        event = shape.events.get(raw)
+        values, bad_number = [], False
+        for a in shape.attributes:
+            if a.kind == "numeric":
+                x, bad = _number(r[a.column])
+                values.append(x)
+                bad_number |= bad
+            else:
+                values.append(_text(r[a.column]))
+        reason = None if shape.reason_column is None else _text(r[shape.reason_column])
         if cid is None or cid.strip() == "":
             why = "missing id"
         elif day is None:
             why = "unparseable time"
         elif event is None:
             why = "unknown event"
-        elif day > AS_OF:
+        elif day > shape.as_of:
             why = "time after the as-of date"
-        elif bad_price:
+        elif bad_number:
             why = "non-numeric value in a numeric attribute"
-        elif event == "end" and reason is not None and reason not in REASONS \
-                and reason not in REASON_IGNORE:
+        elif event == "end" and reason is not None and reason not in shape.reasons \
+                and reason not in shape.reason_ignore:
             why = "unknown churn reason"
         else:
             why = None
-        key = (cid, ts, raw, reason, _text(r["plan"]), _text(r["channel"]),
-               _text(r["region"]), _text(r["arm"]), price)  # numbers compared as numbers
+        # numbers compared as numbers, times as instants
+        key = (cid, ts, raw, reason, *values)
         if why is None and key in seen:
             why = "exact duplicate"
-        seen.add(key)
         if why is not None:
             fates["quarantined: " + why] += 1
             continue
-        cause = None if reason in REASON_IGNORE else REASONS.get(reason)
+        seen.add(key)
+        cause = None if reason in shape.reason_ignore else shape.reasons.get(reason)
         candidates.append(dict(cid=cid, day=day, ts=ts, event=event, rank=RANK[event], row=i,
-                               plan=_text(r["plan"]), price=price, cause=cause,
-                               static=(_text(r["channel"]), _text(r["region"]),
-                                       _text(r["arm"]))))
+                               values=dict(zip((a.name for a in shape.attributes), values,
+                                               strict=True)), cause=cause))
     by_customer = {}
     for c in candidates:
         by_customer.setdefault(c["cid"], []).append(c)
     out = []
     for cid in sorted(by_customer):
         evs = by_customer[cid]
-        # a day that opens with a spell open and holds an end: its ends come before its
-        # starts (a cancel, then a reactivation); "open" counts starts and ends of
-        # earlier days
-        for e in evs:
-            before = [x["event"] for x in evs if x["day"] < e["day"]]
-            is_open_then = before.count("start") > before.count("end")
-            has_end = any(x["event"] == "end" and x["day"] == e["day"] for x in evs)
-            e["order"] = 7 if (e["event"] == "start" and is_open_then and has_end) else e["rank"]
-        evs = sorted(evs, key=lambda c: (c["day"], c["order"], c["ts"], c["row"]))
+        _apply_order(evs)
+        evs = sorted(evs, key=lambda c: c["key"])
         used = []
         is_open = started = False
         for e in evs:
@@ -137,27 +220,29 @@ def naive_prepare(rows, *, window_start=None):
         if not used:
             continue
         static = []
-        for k in range(3):
-            vals = [e["static"][k] for e in used if e["static"][k] is not None]
+        for a in shape.static:
+            vals = [e["values"][a.name] for e in used if e["values"][a.name] is not None]
             static.append(vals[0] if vals else None)
         # walk the used events keeping the customer's state
-        plan = price = None
+        varying = {a.name: None for a in shape.varying}
         spells = []
         for e in used:
             if e["event"] == "start":
                 spells.append(dict(start_day=e["day"], days={}, end=None, n=0))
                 paused = recovery = 0
             if e["event"] in ("start", "update"):
-                plan = e["plan"] if e["plan"] is not None else plan
-                price = e["price"] if e["price"] is not None else price
+                for name in varying:
+                    if e["values"][name] is not None:
+                        varying[name] = e["values"][name]
             paused = {"pause": 1, "resume": 0}.get(e["event"], paused)
             recovery = {"payment_failed": 1, "payment_recovered": 0}.get(e["event"], recovery)
             sp = spells[-1]
             sp["n"] += 1
             tenure = (e["day"] - sp["start_day"]).days
-            sp["days"][tenure] = (plan, price, paused, recovery)
+            sp["days"][tenure] = (*varying.values(), paused, recovery)
             if e["event"] == "end":
                 sp["end"] = (tenure, e["cause"] or ("involuntary" if recovery else "voluntary"))
+        ratios = [k for k, a in enumerate(shape.varying) if a.ratio]
         for number, sp in enumerate(spells, 1):
             ws = window_start
             end_day = None if sp["end"] is None else sp["start_day"] + dt.timedelta(sp["end"][0])
@@ -165,7 +250,7 @@ def naive_prepare(rows, *, window_start=None):
                 fates["outside window"] += sp["n"]
                 continue
             fates["used"] += sp["n"]
-            exit_t = sp["end"][0] if sp["end"] else (AS_OF - sp["start_day"]).days
+            exit_t = sp["end"][0] if sp["end"] else (shape.as_of - sp["start_day"]).days
             exit_t = max(exit_t, 0.5)
             entry = max((ws - sp["start_day"]).days, 0) if ws is not None else 0
             cuts = []
@@ -175,24 +260,24 @@ def naive_prepare(rows, *, window_start=None):
                 if state != last_state and t < exit_t:
                     cuts.append((t, state))
                 last_state = state
-            base = cuts[0][1][1]
-            for k, (t, (pl, pr, pa, rc)) in enumerate(cuts):
+            base = cuts[0][1]
+            for k, (t, state) in enumerate(cuts):
                 stop = cuts[k + 1][0] if k + 1 < len(cuts) else exit_t
                 last = k + 1 == len(cuts)
                 if stop <= entry:
                     continue
                 churned = int(last and sp["end"] is not None)
-                ratio = None if pr is None or not base else pr / base
+                ratio = [None if state[j] is None or not base[j] else state[j] / base[j]
+                         for j in ratios]
+                *values, pa, rc = state
                 out.append((cid, number, float(max(t, entry)), float(stop), churned,
                             sp["end"][1] if churned else "", sp["start_day"],
-                            sp["start_day"].strftime("%Y-%m"), *static, pl, pr, ratio,
+                            sp["start_day"].strftime("%Y-%m"), *static, *values, *ratio,
                             float(rc), float(pa), float(number - 1)))
     return out, fates
 
 
-COLS = ("customer_id", "spell", "start", "stop", "churned", "cause", "start_date", "cohort",
-        "channel", "region", "arm", "plan", "price", "price_ratio", "in_recovery", "paused",
-        "prior_spells")
+COLS = DEMO.columns
 
 row_strategy = st.tuples(
     st.sampled_from(["a", "b", "c", "d", None, " "]),
