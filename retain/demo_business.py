@@ -91,6 +91,10 @@ __all__ = [
     "true_start_stop",
     "churn_times_piecewise",
     "truth_dict",
+    "conditional_retention",
+    "km_limit",
+    "simulated_km_by_plan",
+    "RETENTION_DAYS",
     "write_truth",
     "LOG_COLUMNS",
 ]
@@ -439,6 +443,20 @@ def _prices_cents() -> np.ndarray:
     return np.stack([before, after])  # [era, plan]
 
 
+def _linear_predictor(cause: str, plan: np.ndarray, ratio: np.ndarray, paused: np.ndarray,
+                      rec: np.ndarray, prior: np.ndarray, channel: np.ndarray,
+                      region: np.ndarray, arm: np.ndarray) -> np.ndarray:
+    """``beta . x`` of one cause on covariate segments (integer codes, one entry each)."""
+    c = TRUTH[cause]["coefficients"]
+    return (_coef_vec(cause, "plan", _levels("plans"))[plan]
+            + c["price_ratio"] * (ratio - 1.0)
+            + c["paused"] * paused + c["in_recovery"] * rec
+            + c["prior_spells"] * prior
+            + _coef_vec(cause, "channel", _levels("channels"))[channel]
+            + _coef_vec(cause, "region", _levels("regions"))[region]
+            + _coef_vec(cause, "arm", _levels("experiment"))[arm])
+
+
 def _simulate_round(rng: np.random.Generator, *, customer: np.ndarray, start_day: np.ndarray,
                     plan0: np.ndarray, prior: np.ndarray, discount: np.ndarray,
                     horizon: np.ndarray, channel: np.ndarray, region: np.ndarray,
@@ -583,14 +601,8 @@ def _simulate_round(rng: np.random.Generator, *, customer: np.ndarray, start_day
 
     # hazards and inversion ----------------------------------------------------------------
     def linpred(cause: str) -> np.ndarray:
-        c = TRUTH[cause]["coefficients"]
-        return (_coef_vec(cause, "plan", _levels("plans"))[plan]
-                + c["price_ratio"] * (ratio - 1.0)
-                + c["paused"] * paused + c["in_recovery"] * rec
-                + c["prior_spells"] * prior[g_s]
-                + _coef_vec(cause, "channel", _levels("channels"))[channel[g_s]]
-                + _coef_vec(cause, "region", _levels("regions"))[region[g_s]]
-                + _coef_vec(cause, "arm", _levels("experiment"))[arm[g_s]])
+        return _linear_predictor(cause, plan, ratio, paused, rec, prior[g_s], channel[g_s],
+                                 region[g_s], arm[g_s])
 
     a = g_d.astype(float)
     b = nxt.astype(float)
@@ -1126,16 +1138,182 @@ def _revenue_to(sp: SimSpells, idx: np.ndarray, horizon: float, *, recorded: boo
     return rev[idx]
 
 
-def true_reference_values(n_customers: int = 200_000, n_experiment: int = 200_000, *,
-                          seed: int = 7, days: tuple[int, ...] = (30, 91, 182, 365, 730),
+RETENTION_DAYS = (30, 91, 182, 365, 730)
+"""Tenures (days) at which the truth states retention."""
+
+
+def conditional_retention(sp: SimSpells, channel: np.ndarray, region: np.ndarray,
+                          arm: np.ndarray, days: tuple[int, ...] | np.ndarray) -> np.ndarray:
+    """Probability that each spell outlives each day, given its covariate path.
+
+    ``exp(-(H_vol(d) + H_inv(d)))`` with both cumulative hazards summed in closed
+    form over the spell's segments (the formulas of the module docstring), so the
+    average over spells is ``P(T > d)`` without the noise of the churn draw (a
+    conditional expectation of the indicator ``T > d``: the Rao–Blackwell
+    theorem; Casella & Robert 1996, Biometrika 83:81, for its use in simulation).
+    ``channel``, ``region`` and ``arm`` are per customer (indexed by
+    ``sp.customer``). Every spell must be followed to ``max(days)`` (no censoring
+    before it). Returns an array (spells, days).
+    """
+    days_arr = np.asarray(days, dtype=float)
+    if sp.n and int(sp.horizon.min()) < days_arr.max():
+        raise ValueError("conditional_retention needs every spell followed to max(days)")
+    s = sp.seg_spell
+    cust = sp.customer[s]
+    args = (sp.seg_plan, sp.seg_ratio, sp.seg_paused, sp.seg_rec, sp.prior[s],
+            channel[cust], region[cust], arm[cust])
+    vt = TRUTH["voluntary"]
+    alpha, lam = float(vt["alpha"]), float(vt["lam_days"])
+    m_vol = np.exp(_linear_predictor("voluntary", *args))
+    m_inv = float(TRUTH["involuntary"]["mu_per_day"]) * np.exp(
+        _linear_predictor("involuntary", *args))
+    a = sp.seg_a
+    out = np.empty((sp.n, days_arr.size))
+    for j, d in enumerate(days_arr):
+        live = a < d
+        b = np.minimum(sp.seg_b[live], d)
+        dh = (m_vol[live] * ((b / lam) ** alpha - (a[live] / lam) ** alpha)
+              + m_inv[live] * (b - a[live]))
+        out[:, j] = np.exp(-np.bincount(s[live], weights=dh, minlength=sp.n))
+    return out
+
+
+def _km_from_counts(entries: np.ndarray, exits: np.ndarray, churns: np.ndarray,
+                    days: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Kaplan–Meier and Greenwood standard error at ``days`` from counts by whole day.
+
+    ``entries[e]`` spells enter at tenure e, ``exits[x]`` leave at x, ``churns[x]``
+    of them churned (last cell: exits after the last day). At risk at day k:
+    entry < k <= exit (the (start, stop] convention); Greenwood (1926) variance.
+    """
+    last = int(max(days))
+    k = np.arange(1, last + 1)
+    at_risk = np.cumsum(entries)[k - 1] - np.cumsum(exits)[k - 1]
+    d = churns[k].astype(float)
+    n = np.maximum(at_risk, 1).astype(float)
+    surv = np.cumprod(1.0 - d / n)
+    gw = np.cumsum(np.where(at_risk > d, d / (n * np.maximum(n - d, 1.0)), 0.0))
+    j = np.asarray(days) - 1
+    return surv[j], surv[j] * np.sqrt(gw[j])
+
+
+def _first_spell_counts(rng: np.random.Generator, n_customers: int, start: str,
+                        window_start: str, as_of: str, last: int
+                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Draw ``n_customers`` as :func:`generate_log` does and count their first spells'
+    entries, exits and churns by whole tenure day (cells 0..last+1; the last cell holds
+    everything later), per group: each plan on the spell's first row in the window, then
+    all plans. A spell that ended on or before ``window_start`` is not in the log."""
+    cu = _draw_customers(rng, n_customers, start, as_of)
+    sp = simulate_spells(rng, cu["signup"], cu["plan"], cu["channel"], cu["region"],
+                         cu["arm"], as_of_day=_day(as_of), max_spells=1)
+    entry = np.maximum(0, _day(window_start) - sp.start_day)
+    end = sp.end_tenure
+    seen = end > entry
+    s = sp.seg_spell
+    head = (sp.seg_a <= entry[s]) & (sp.seg_b > entry[s])  # the first row in the window
+    plan = np.full(sp.n, -1, np.int64)
+    plan[s[head]] = sp.seg_plan[head]
+    e = np.minimum(entry, last + 1)
+    x = np.minimum(end, last + 1)
+    n_plans = len(_levels("plans"))
+    shape = (n_plans + 1, last + 2)
+    entries, exits, churns = np.zeros(shape), np.zeros(shape), np.zeros(shape)
+    for g in range(n_plans + 1):
+        m = seen & (plan == g) if g < n_plans else seen
+        entries[g] = np.bincount(e[m], minlength=last + 2)
+        exits[g] = np.bincount(x[m], minlength=last + 2)
+        churns[g] = np.bincount(x[m & sp.churned], minlength=last + 2)
+    return entries, exits, churns
+
+
+def simulated_km_by_plan(n_customers: int = 20000, *, seed: int = 20261130,
+                         days: tuple[int, ...] = RETENTION_DAYS, start: str = "2023-06-01",
+                         window_start: str = "2024-01-01", as_of: str = "2026-11-30"
+                         ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Kaplan–Meier by plan of the first spells of the log ``generate_log(n_customers,
+    seed=seed)`` would write, straight from the simulation (no log, no SQL), with
+    Greenwood standard errors: ``{group: (retention, se)}`` at ``days``; groups as in
+    :func:`km_limit`. Used to calibrate the demo's tolerance over many seeds."""
+    rng = np.random.Generator(np.random.PCG64(seed))
+    counts = _first_spell_counts(rng, n_customers, start, window_start, as_of, int(max(days)))
+    groups = [*_levels("plans"), "all_plans"]
+    return {name: _km_from_counts(counts[0][g], counts[1][g], counts[2][g], days)
+            for g, name in enumerate(groups)}
+
+
+def km_limit(n_customers: int = 8_000_000, *, seed: int = 2, chunk: int = 250_000,
+             days: tuple[int, ...] = RETENTION_DAYS, start: str = "2023-06-01",
+             window_start: str = "2024-01-01", as_of: str = "2026-11-30") -> dict[str, Any]:
+    """What a Kaplan–Meier curve by plan estimates on a log of the demo's design.
+
+    The demo's curves are Kaplan–Meier estimates on first spells, with delayed
+    entry at ``window_start`` and censoring at ``as_of``, grouped by the plan on
+    the spell's first row in the window (the plan at signup for spells begun
+    inside it, the plan held on ``window_start`` for older spells). Because the
+    hazard moves with the calendar (the price rise, winter pauses, the
+    experiment's cohort) and censoring with the signup day, this limit is not the
+    uncensored ``P(T > t)`` of :func:`true_reference_values`: it weighs each
+    tenure's hazard by the cohorts still observed at it. It is computed as the
+    Kaplan–Meier estimate on ``n_customers`` customers drawn as in
+    :func:`generate_log` (first spells only), in chunks of ``chunk`` customers;
+    chunk i uses ``PCG64(SeedSequence(seed).spawn(...)[i])``, so a run of
+    ``chunk`` customers reproduces the first chunk of a longer run.
+
+    Returns per group (the plans and ``all_plans``) the spells counted and, at
+    each day, ``retention``, its Greenwood standard error ``mc_se`` (the Monte
+    Carlo error of this truth) and ``mc_se_between_chunks`` (the spread of the
+    chunks' own estimates over sqrt(number of chunks), a check on ``mc_se``).
+    """
+    if n_customers % chunk:
+        raise ValueError("km_limit: n_customers must be a multiple of chunk")
+    n_chunks = n_customers // chunk
+    groups = [*_levels("plans"), "all_plans"]
+    last = int(max(days))
+    parts = [_first_spell_counts(np.random.Generator(np.random.PCG64(child)), chunk, start,
+                                 window_start, as_of, last)
+             for child in np.random.SeedSequence(seed).spawn(n_chunks)]
+    entries, exits, churns = (np.stack([p[i] for p in parts]) for i in range(3))
+    out: dict[str, Any] = {
+        "call": f"km_limit(n_customers={n_customers}, seed={seed}, chunk={chunk}, "
+                f"days={tuple(days)}, start={start!r}, window_start={window_start!r}, "
+                f"as_of={as_of!r})",
+        "estimates": "Kaplan–Meier of first spells by plan on the spell's first row in "
+                     "the window, delayed entry at window_start, censored at as_of",
+    }
+    tot = (entries.sum(0), exits.sum(0), churns.sum(0))
+    for g, name in enumerate(groups):
+        surv, se = _km_from_counts(tot[0][g], tot[1][g], tot[2][g], days)
+        between = [None] * len(days)
+        if n_chunks > 1:
+            per = np.array([_km_from_counts(entries[c, g], exits[c, g], churns[c, g], days)[0]
+                            for c in range(n_chunks)])
+            between = [round(float(v), 6)
+                       for v in per.std(axis=0, ddof=1) / math.sqrt(n_chunks)]
+        out[name] = {
+            "spells": int(tot[0][g].sum()),
+            "by_day": {str(d): {"retention": round(float(surv[i]), 6),
+                                "mc_se": round(float(se[i]), 6),
+                                "mc_se_between_chunks": between[i]}
+                       for i, d in enumerate(days)},
+        }
+    return out
+
+
+def true_reference_values(n_customers: int = 1_000_000, n_experiment: int = 200_000, *,
+                          seed: int = 7, days: tuple[int, ...] = RETENTION_DAYS,
                           experiment_horizon: int = 365) -> dict[str, Any]:
     """Quantities of the truth that need simulation (large, uncensored runs).
 
     Retention: ``n_customers`` customers drawn as in :func:`generate_log`, every
     spell followed ``max(days) + 1`` days with no calendar window and no
     censoring; retention ``P(T > t)`` by plan at the spell's start (first spells,
-    and all spells), with the Monte Carlo standard error. Cumulative incidence
-    of each cause at the same days.
+    and all spells): the mean over spells of :func:`conditional_retention` (the
+    closed-form survival given each simulated covariate path), with its Monte
+    Carlo standard error (standard deviation over spells / sqrt(spells)).
+    Cumulative incidence of each cause at the same days (share of spells).
+    These are marginal over calendar time; what a Kaplan–Meier curve on a
+    windowed, censored log estimates is :func:`km_limit`.
 
     Experiment: ``n_experiment`` customers whose first signup is drawn from the
     2025-03 signup weights, randomised as in the log; first spells followed
@@ -1154,15 +1332,16 @@ def true_reference_values(n_customers: int = 200_000, n_experiment: int = 200_00
     gst = _group_starts(sp.seg_spell, sp.n)
     plan0 = sp.seg_plan[gst[:-1]]
     plans = _levels("plans")
+    alive = conditional_retention(sp, cu["channel"], cu["region"], cu["arm"], days)
 
     def surv(sel: np.ndarray) -> dict[str, Any]:
-        t = sp.t[sel]
+        p = alive[sel]
         m = int(sel.sum())
+        mean, sd = p.mean(axis=0), p.std(axis=0)
         out = {}
-        for d in days:
-            p = float(np.mean(t > d))
-            out[str(d)] = {"retention": round(p, 5),
-                           "mc_se": round(math.sqrt(p * (1 - p) / m), 5)}
+        for j, d in enumerate(days):
+            out[str(d)] = {"retention": round(float(mean[j]), 6),
+                           "mc_se": round(float(sd[j]) / math.sqrt(m), 6)}
         return {"spells": m, "by_day": out}
 
     first = sp.prior == 0
@@ -1244,10 +1423,13 @@ def true_reference_values(n_customers: int = 200_000, n_experiment: int = 200_00
     }
 
 
-def write_truth(path: str | Path, **kw: Any) -> Path:
-    """Write ``truth.json``: :data:`TRUTH` plus ``true_reference_values(**kw)``."""
+def write_truth(path: str | Path, *, reference: Mapping[str, Any] | None = None,
+                km: Mapping[str, Any] | None = None) -> Path:
+    """Write ``truth.json``: :data:`TRUTH`, ``true_reference_values(**reference)`` under
+    ``reference_values`` and ``km_limit(**km)`` under ``km_limit``."""
     out = truth_dict()
-    out["reference_values"] = true_reference_values(**kw)
+    out["reference_values"] = true_reference_values(**(reference or {}))
+    out["km_limit"] = km_limit(**(km or {}))
     path = Path(path)
     path.write_text(json.dumps(out, indent=2, sort_keys=False) + "\n")
     return path

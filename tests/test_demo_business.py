@@ -69,13 +69,18 @@ def test_same_seed_same_bytes_other_seed_differs(tmp_path):
 def test_truth_json_matches_truth_and_its_call():
     saved = json.loads((DEMO_DIR / "truth.json").read_text())
     ref = saved.pop("reference_values")
+    km = saved.pop("km_limit")
     assert saved == db.truth_dict()
-    assert ref["call"] == ("true_reference_values(n_customers=200000, n_experiment=200000, "
+    assert ref["call"] == ("true_reference_values(n_customers=1000000, n_experiment=200000, "
                            "seed=7, days=(30, 91, 182, 365, 730), experiment_horizon=365)")
+    assert km["call"] == ("km_limit(n_customers=8000000, seed=2, chunk=250000, "
+                          "days=(30, 91, 182, 365, 730), start='2023-06-01', "
+                          "window_start='2024-01-01', as_of='2026-11-30')")
 
 
 @pytest.mark.slow
 def test_reference_values_rerun_exactly():
+    """About 10 s (1M customers for retention, 200k for the experiment)."""
     saved = json.loads((DEMO_DIR / "truth.json").read_text())["reference_values"]
     assert db.true_reference_values() == saved
 
