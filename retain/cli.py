@@ -12,6 +12,7 @@ To add a command, write ``def _cmd_x(args) -> int`` and
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import traceback
 from collections.abc import Callable, Sequence
@@ -19,9 +20,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from retain import __version__
-from retain.errors import RetainError
+from retain.errors import ConfigError, RetainError
 
 EXIT_ERROR = 2
+EXIT_BROKEN_PIPE = 1  # the Python documentation's choice for a closed stdout
 
 
 @dataclass(frozen=True)
@@ -72,18 +74,56 @@ def print_reconciliation(prepared) -> None:  # noqa: ANN001 - retain.data.prepar
             print(f"  {value!r}: {n:,} rows")
 
 
-def _prepare(args: argparse.Namespace, config_path: Path):  # noqa: ANN202
+def _load(config_path: Path):  # noqa: ANN202 - retain.data.config.Config
+    """The project file's Config; a folder given in its place gets its own message."""
     from retain.data.config import load_config
+
+    if config_path.is_dir():
+        inside = config_path / "retain.toml"
+        raise ConfigError(str(config_path), "is a folder, not a project file",
+                          f"give {inside}" if inside.is_file()
+                          else "give the path of the project's retain.toml")
+    return load_config(config_path)
+
+
+def _prepare(args: argparse.Namespace, config_path: Path, config=None):  # noqa: ANN001,ANN202
     from retain.data.prepare import prepare
 
-    config = load_config(config_path)
+    if config is None:
+        config = _load(config_path)
     return prepare(config, progress=stderr_progress(args))
 
 
-def _write(prepared, out: Path) -> None:  # noqa: ANN001
+def _output_folder(args: argparse.Namespace, config, below: str = "") -> Path:  # noqa: ANN001
+    """``--out``, else ``[output] dir`` (+ ``below``); refused before any work if it is a file."""
+    given = getattr(args, "out", None)
+    out = Path(given) if given is not None else Path(config.output.dir) / below
+    for path in (out, *out.resolve().parents):
+        if path.exists():
+            if path.is_dir():
+                break
+            what = "is a file" if path == out else f"lies inside {path}, which is a file"
+            if given is not None:
+                raise RetainError(str(out), f"{what}, not a folder (given as --out)",
+                                  "give a folder for --out")
+            raise ConfigError(f"{config.path}: [output] dir",
+                              f"{out} {what}, not a folder",
+                              "set [output] dir to a folder, or give --out")
+    return out
+
+
+def _write(prepared, out: Path) -> dict[str, Path]:  # noqa: ANN001
+    """Write the tables; return their paths (printed by :func:`print_written`)."""
     from retain.data.prepare import write_outputs
 
-    paths = write_outputs(prepared, out)
+    try:
+        return write_outputs(prepared, out)
+    except OSError as exc:
+        raise RetainError(str(out), f"cannot write the tables ({exc.strerror or exc})",
+                          "check the folder's permissions and free space") from exc
+
+
+def print_written(paths: dict[str, Path]) -> None:
     for key, path in paths.items():
         print(f"wrote {key}: {path}")
 
@@ -94,9 +134,12 @@ def _args_config(parser: argparse.ArgumentParser) -> None:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
+    from retain.data.thresholds import check_thresholds
+
     prepared = _prepare(args, args.config)
     print(f"Read as: {prepared.config.source.describe()}")
     print_reconciliation(prepared)
+    check_thresholds(prepared)  # too many unparseable times or unknown events: exit 2
     return 0
 
 
@@ -107,9 +150,12 @@ def _args_prepare(parser: argparse.ArgumentParser) -> None:
 
 
 def _cmd_prepare(args: argparse.Namespace) -> int:
-    prepared = _prepare(args, args.config)
+    config = _load(args.config)
+    out = _output_folder(args, config)
+    prepared = _prepare(args, args.config, config)
+    written = _write(prepared, out)  # before any output: `| head` cannot stop the work
     print_reconciliation(prepared)
-    _write(prepared, args.out or prepared.config.output.dir)
+    print_written(written)
     return 0
 
 
@@ -129,10 +175,15 @@ def demo_config_path() -> Path:
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
-    prepared = _prepare(args, demo_config_path())
+    from retain.publish.site import check_target
+
+    config = _load(demo_config_path())
+    out = _output_folder(args, config)
+    check_target((out / "site").resolve())  # before any work
+    prepared = _prepare(args, config.path, config)
     print_reconciliation(prepared)
-    _write(prepared, args.out)
-    index = _build_site(args, prepared, Path(args.out) / "site")
+    print_written(_write(prepared, out))
+    index = _build_site(args, prepared, out / "site")
     print(index)
     return 0
 
@@ -163,8 +214,12 @@ def _args_build(parser: argparse.ArgumentParser) -> None:
 
 
 def _cmd_build(args: argparse.Namespace) -> int:
-    prepared = _prepare(args, args.config)
-    out = args.out or Path(prepared.config.output.dir) / "site"
+    from retain.publish.site import check_target
+
+    config = _load(args.config)
+    out = _output_folder(args, config, "site")
+    check_target(out.resolve())  # before preparing: a refused --out costs nothing
+    prepared = _prepare(args, args.config, config)
     print(_build_site(args, prepared, out))
     return 0
 
@@ -205,7 +260,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(list(argv) if argv is not None else None)
     debug = getattr(args, "debug", False)
     try:
-        return int(args._run(args) or 0)
+        code = int(args._run(args) or 0)
+        sys.stdout.flush()  # a reader that went away shows here, not at interpreter exit
+        return code
+    except BrokenPipeError:
+        return _reader_gone()
     except RetainError as exc:
         if debug:
             traceback.print_exc()
@@ -221,6 +280,20 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"retain: internal error ({type(exc).__name__}: {first}) -- this is a bug in "
               "retain; rerun with --debug and report the traceback", file=sys.stderr)
         return EXIT_ERROR
+
+
+def _reader_gone() -> int:
+    """stdout's reader closed it (``retain prepare ... | head``): end quietly.
+
+    As the Python documentation's note on SIGPIPE advises, the rest of stdout goes
+    to devnull so that the flush at exit does not raise again.
+    """
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):  # stdout without a file descriptor (captured in tests)
+        pass
+    return EXIT_BROKEN_PIPE
 
 
 if __name__ == "__main__":  # pragma: no cover

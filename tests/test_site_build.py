@@ -142,3 +142,17 @@ def test_site_folder_is_readable(tmp_path, content):
     index = build_site(content, tmp_path / "s")
     assert (index.parent.stat().st_mode & 0o755) == 0o755
     assert Path(index).name == "index.html"
+
+
+def test_table_files_list_what_prepare_writes(tmp_path):
+    """A site built into a prepared folder keeps exactly the files `write_outputs` makes."""
+    from test_prepare_support import run as prepare_rows
+
+    from retain.data.prepare import write_outputs
+    from retain.publish.site import TABLE_FILES
+
+    rows = [("a", "2024-01-01", "signup", None, "Seedling", "10", "search", "north",
+             "standard"), ("a", "2024-01-31", "cancel", "too_expensive")]
+    paths = write_outputs(prepare_rows(tmp_path, rows, compress=True), tmp_path / "o")
+    written = {p.name for p in (tmp_path / "o").iterdir()}
+    assert written == {p.name for p in paths.values()} == TABLE_FILES

@@ -39,6 +39,12 @@ from retain.paths import TEMPLATES_DIR
 from retain.publish.content import SiteContent
 
 MARKER = ".retain-site"
+#: what ``retain prepare`` writes (retain.data.prepare.write_outputs); a site built
+#: into their folder keeps them (tests/test_site_build.py holds this list to it)
+TABLE_FILES = frozenset({
+    "start_stop.parquet", "start_stop_compressed.parquet", "quarantine.parquet",
+    "quarantine.csv", "reconciliation.csv", "reconciliation.json",
+})
 BUNDLE_NAME = "vega-bundle.js"
 STATIC_FILES = ("style.css", "site.js")
 
@@ -178,8 +184,10 @@ def build_site(
     content : SiteContent
         The pages (from :func:`retain.publish.pages.site_content`).
     out_dir : path
-        Target folder. It must be absent, empty, or a site this function wrote
-        before (it holds a ``.retain-site`` marker); it is replaced as a whole.
+        Target folder. It must be absent, empty, a site this function wrote
+        before (it holds a ``.retain-site`` marker) or a folder ``retain prepare``
+        wrote; it is replaced as a whole, keeping the prepared tables and any
+        nested site (:func:`check_target`).
     templates_dir : path
         Jinja2 templates and the site's CSS / JS (default ``site_templates/``).
 
@@ -196,6 +204,7 @@ def build_site(
     os.chmod(tmp, 0o755)  # mkdtemp makes it private; a site is meant to be read
     try:
         _write_all(content, tmp, templates, progress)
+        _carry_over(out, tmp)
     except Exception as exc:
         shutil.rmtree(tmp, ignore_errors=True)
         if isinstance(exc, BuildError):
@@ -210,14 +219,54 @@ def build_site(
 
 
 def check_target(out: Path) -> None:
-    """Refuse (BuildError) a target that is a file or a non-empty folder retain did not write."""
-    if out.exists():
-        if not out.is_dir():
-            raise BuildError(str(out), "the output path exists and is not a folder",
-                             "choose another --out")
-        if any(out.iterdir()) and not (out / MARKER).exists():
-            raise BuildError(str(out), "the output folder is not empty and was not written by "
-                             "retain", "choose an empty or new folder for --out")
+    """Refuse (BuildError) a target that is a file or a non-empty folder retain did not write.
+
+    Retain wrote a folder when it holds a site's marker, or only what ``retain
+    prepare`` writes (:data:`TABLE_FILES`) and folders that hold a site (the
+    demo's ``site/``). Those are kept when the site is built into the folder.
+    """
+    for path in (out, *out.parents):
+        if path.exists():
+            if not path.is_dir():
+                rule = ("the output path exists and is not a folder" if path == out else
+                        f"the output path lies inside {path}, which is a file")
+                raise BuildError(str(out), rule, "choose another --out")
+            break
+    if not out.exists() or (out / MARKER).exists():
+        return
+    foreign = sorted(entry.name for entry in out.iterdir() if not _kept(entry))
+    if foreign:
+        shown = ", ".join(foreign[:3]) + (f" and {len(foreign) - 3} more" if len(foreign) > 3
+                                          else "")
+        raise BuildError(str(out), f"the output folder is not empty and was not written by "
+                         f"retain (it holds {shown})", "choose an empty or new folder for --out")
+
+
+def _kept(entry: Path) -> bool:
+    """Whether a site built into ``entry``'s folder keeps it (prepared tables, a nested site)."""
+    if entry.is_dir() and not entry.is_symlink():
+        return (entry / MARKER).is_file()
+    return entry.name in TABLE_FILES and entry.is_file() and not entry.is_symlink()
+
+
+def _link_or_copy(src: str | Path, dst: str | Path) -> None:
+    try:
+        os.link(src, dst)
+    except OSError:
+        shutil.copy2(src, dst)
+
+
+def _carry_over(out: Path, tmp: Path) -> None:
+    """Hard-link (else copy) what the new site keeps from the folder it replaces."""
+    if not out.is_dir():
+        return
+    for entry in sorted(out.iterdir()):
+        if not _kept(entry) or (tmp / entry.name).exists():
+            continue
+        if entry.is_dir():
+            shutil.copytree(entry, tmp / entry.name, copy_function=_link_or_copy)
+        else:
+            _link_or_copy(entry, tmp / entry.name)
 
 
 def _swap_into_place(tmp: Path, out: Path) -> None:
