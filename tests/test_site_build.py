@@ -156,3 +156,61 @@ def test_table_files_list_what_prepare_writes(tmp_path):
     paths = write_outputs(prepare_rows(tmp_path, rows, compress=True), tmp_path / "o")
     written = {p.name for p in (tmp_path / "o").iterdir()}
     assert written == {p.name for p in paths.values()} == TABLE_FILES
+
+
+def test_a_killed_builds_leftovers_are_removed_and_a_live_build_is_not(tmp_path, content):
+    """Hand-made leftovers beside the target: each kind with the outcome the rule gives."""
+    import os
+    import socket
+    import subprocess
+    import sys
+    import time
+
+    from retain.publish.site import BUILDER
+
+    host = socket.gethostname()
+    gone = subprocess.Popen([sys.executable, "-c", "pass"])
+    gone.wait()  # a process id that no longer runs
+
+    def leftover(name: str, builder: str | None, age_hours: float = 0.0) -> Path:
+        folder = tmp_path / name
+        folder.mkdir()
+        (folder / "index.html").write_text("half a page")
+        if builder is not None:
+            (folder / BUILDER).write_text(builder)
+        stamp = time.time() - age_hours * 3600
+        os.utime(folder, (stamp, stamp))
+        return folder
+
+    killed = leftover(".site.building-k1ll3d_x", f"{gone.pid} {host}")
+    old = leftover(".site.building-0ldn0pid", None, age_hours=7)
+    old_live_pid = leftover(".site.building-0ld11ve_", f"{os.getpid()} {host}", age_hours=7)
+    live = leftover(".site.building-l1vebu1d", f"{os.getpid()} {host}")
+    young = leftover(".site.building-y0ungn0p", None)  # between mkdtemp and its file
+    elsewhere = leftover(".site.building-0therh0s", f"{gone.pid} another-machine")
+    not_ours = [leftover(".site.building-UPPER123", None, 30),  # not mkdtemp's alphabet
+                leftover(".other.building-k1ll3d_x", f"{gone.pid} {host}"),  # another target
+                leftover(".site.building-short", f"{gone.pid} {host}")]
+    (tmp_path / "site").mkdir()
+    previous = leftover(".site.previous-abcdefgh", None)  # killed after its swap
+
+    index = build_site(content, tmp_path / "site")
+    assert index.is_file() and not (index.parent / BUILDER).exists()
+    for folder in (killed, old, old_live_pid, previous):
+        assert not folder.exists(), folder.name
+    for folder in (live, young, elsewhere, *not_ours):
+        assert (folder / "index.html").read_text() == "half a page", folder.name
+    building = [p.name for p in tmp_path.iterdir() if ".building-" in p.name]
+    assert sorted(building) == sorted(p.name for p in (live, young, elsewhere, *not_ours))
+
+
+def test_a_previous_site_is_kept_while_the_target_is_missing(tmp_path):
+    """Killed between the two renames, the old site survives only as .previous-: keep it."""
+    from retain.publish.site import remove_leftovers
+
+    previous = tmp_path / ".site.previous-abcdefgh"
+    previous.mkdir()
+    assert remove_leftovers(tmp_path / "site") == []
+    assert previous.is_dir()
+    (tmp_path / "site").mkdir()
+    assert remove_leftovers(tmp_path / "site") == [previous]

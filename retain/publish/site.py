@@ -22,8 +22,11 @@ from __future__ import annotations
 import json
 import math
 import os
+import re
 import shutil
+import socket
 import tempfile
+import time
 from collections.abc import Callable
 from functools import lru_cache
 from pathlib import Path
@@ -39,6 +42,11 @@ from retain.paths import TEMPLATES_DIR
 from retain.publish.content import SiteContent
 
 MARKER = ".retain-site"
+#: in a folder being built: "<pid> <host>" of the build, so that the next build
+#: can tell a killed build's leftover from a build still running
+BUILDER = ".retain-building"
+#: a building folder whose builder cannot be asked is a leftover after this long (s)
+LEFTOVER_AGE = 6 * 3600.0
 #: what ``retain prepare`` writes (retain.data.prepare.write_outputs); a site built
 #: into their folder keeps them (tests/test_site_build.py holds this list to it)
 TABLE_FILES = frozenset({
@@ -200,10 +208,13 @@ def build_site(
     templates = Path(templates_dir)
     check_target(out)
     out.parent.mkdir(parents=True, exist_ok=True)
+    remove_leftovers(out)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.building-", dir=out.parent))
     os.chmod(tmp, 0o755)  # mkdtemp makes it private; a site is meant to be read
     try:
+        (tmp / BUILDER).write_text(f"{os.getpid()} {socket.gethostname()}\n", encoding="utf-8")
         _write_all(content, tmp, templates, progress)
+        (tmp / BUILDER).unlink()
         _carry_over(out, tmp)
     except Exception as exc:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -240,6 +251,66 @@ def check_target(out: Path) -> None:
                                           else "")
         raise BuildError(str(out), f"the output folder is not empty and was not written by "
                          f"retain (it holds {shown})", "choose an empty or new folder for --out")
+
+
+def remove_leftovers(out: Path, *, now: float | None = None) -> list[Path]:
+    """Remove what killed builds of ``out`` left beside it; return the folders removed.
+
+    Only retain's own temporary folders are touched: ``.<name>.building-XXXXXXXX``
+    (``tempfile.mkdtemp``'s eight characters) and ``.<name>.previous-XXXXXXXX``. A
+    building folder is removed when the build that made it is gone: its
+    :data:`BUILDER` file names a process of this machine that no longer runs, or
+    nothing in it changed for :data:`LEFTOVER_AGE` seconds (no such file yet, or
+    another machine's build: no way to ask). A previous-site folder is only
+    removed while ``out`` exists, that is when no build is between its two renames.
+    """
+    now = time.time() if now is None else now
+    pattern = re.compile(rf"\.{re.escape(out.name)}\.(building|previous)-[a-z0-9_]{{8}}")
+    removed = []
+    try:
+        entries = sorted(out.parent.iterdir())
+    except OSError:
+        return removed
+    for entry in entries:
+        match = pattern.fullmatch(entry.name)
+        if match is None or entry.is_symlink() or not entry.is_dir():
+            continue
+        if match.group(1) == "previous":
+            stale = out.is_dir()
+        else:
+            stale = not _build_alive(entry, now)
+        if stale:
+            shutil.rmtree(entry, ignore_errors=True)
+            removed.append(entry)
+    return removed
+
+
+def _build_alive(folder: Path, now: float) -> bool:
+    """Whether the build writing ``folder`` may still run (when it cannot be asked: if young).
+
+    A running build adds files to its folder, so the folder's time of change stays
+    recent; one untouched for :data:`LEFTOVER_AGE` is a leftover whatever its file says.
+    """
+    try:
+        age = now - folder.stat().st_mtime
+    except OSError:
+        return False  # already gone
+    if age >= LEFTOVER_AGE:
+        return False
+    try:
+        pid_text, host = (folder / BUILDER).read_text(encoding="utf-8").split()
+        pid = int(pid_text)
+    except (OSError, ValueError):
+        return True  # just made (the file comes next) or unreadable: leave it to age
+    if host != socket.gethostname() or pid <= 0:
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:  # the process exists and belongs to someone else
+        return True
+    return True
 
 
 def _kept(entry: Path) -> bool:
