@@ -298,6 +298,8 @@ def _model_steps(table: StartStop, options: RunOptions,
         ("decrements", lambda: decrements.decrement_table(table)),
         ("graduation", after("decrements", lambda d: decrements.graduate(d))),
         ("ae", after("decrements", lambda d: _actual_vs_expected(table, d, options))),
+        *([("decrements:bands", lambda: decrements.decrement_table(
+            table, band_edges=options.decrement_edges))] if options.decrement_edges else []),
         ("incidence", lambda: competing.cumulative_incidence(table)),
         ("cause-cox", lambda: competing.cause_specific_cox(
             table, cov, strata=list(options.strata) or None, reference=ref, missing=miss)),

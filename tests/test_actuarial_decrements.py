@@ -238,3 +238,101 @@ def test_result_round_trips_to_json_and_csv():
     assert dec.to_csv().splitlines()[0].startswith("segment,month,label,exposure")
     assert "churns per customer-month" in dec.summary()
     assert dec.segment("Orchard")["segment"].eq("Orchard").all()
+
+
+# ---------------------------------------------------------------- user tenure bands
+EDGES = [7.0, 14.0, D, 2 * D]  # a week, a week, the rest of month 1, month 2
+
+
+def edge_table() -> StartStop:
+    """Rows with churns exactly on band edges, worked by hand below."""
+    return StartStop([0.0, 0.0, 3.0, 0.0, 10.0, 0.0], [7.0, 14.0, 20.0, 45.0, 100.0, 70.0],
+                     [1, 1, 0, 1, 0, 1], weight=[1, 1, 1, 2, 1, 1],
+                     cause=["voluntary", "involuntary", "", "voluntary", "", "voluntary"])
+
+
+def test_user_bands_hand_worked_with_a_churn_on_an_edge():
+    """Bands (0,7] (7,14] (14,30.4375] (30.4375,60.875] days; rows (weight):
+    A (0,7] churn   B (0,14] churn   C (3,20] censored   D (0,45] churn (2)
+    E (10,100] censored   F (0,70] churn (after the last edge: left out).
+
+    exposure, days:
+      (0,7]:    A 7 + B 7 + C 4 + D 2x7 + F 7                         = 39
+      (7,14]:   B 7 + C 7 + D 2x7 + E 4 + F 7                         = 39
+      (14,D]:   C 6 + D 2x16.4375 + E 16.4375 + F 16.4375             = 71.75
+      (D,2D]:   D 2x14.5625 + E 30.4375 + F 30.4375                   = 90
+    churns, (a, b] bands: A's exit at 7 is on an edge and counts in (0,7]; B's at 14 in
+      (7,14]; D's at 45 in (D,2D] with weight 2; F's at 70 is past 2D: 1, 1, 0, 2.
+    in force at each band's lower edge (lo <= e < hi, weighted):
+      0: A B D(2) F = 5;  7: B C D(2) F = 5;  14: C D(2) E F = 5;  D: D(2) E F = 4.
+    q = 1 - exp(-m W), W the width in months; survivors l_{k+1} = l_k (1 - q_k).
+    """
+    for engine in ("numpy", "duckdb"):
+        dec = decrement_table(edge_table(), band_edges=EDGES, engine=engine)
+        f = dec.frame
+        assert list(f["label"]) == ["0 to 7 days", "7 to 14 days", "14 to 30.4375 days",
+                                    "30.4375 to 60.875 days"], engine
+        np.testing.assert_allclose(f["exposure"] * D, [39.0, 39.0, 71.75, 90.0], rtol=1e-13)
+        assert list(f["churns"]) == [1.0, 1.0, 0.0, 2.0], engine
+        assert list(f["churns_voluntary"]) == [1.0, 0.0, 0.0, 2.0], engine
+        assert list(f["churns_involuntary"]) == [0.0, 1.0, 0.0, 0.0], engine
+        assert list(f["in_force"]) == [5.0, 5.0, 5.0, 4.0], engine
+        width = np.array([7.0, 7.0, D - 14.0, D]) / D
+        m = np.array([1 / 39, 1 / 39, 0.0, 2 / 90]) * D
+        np.testing.assert_allclose(f["m"], m, rtol=1e-13)
+        np.testing.assert_allclose(f["q"], 1 - np.exp(-m * width), rtol=1e-13)
+        np.testing.assert_allclose(f["survivors"], 10_000 * np.concatenate(
+            [[1.0], np.cumprod(np.exp(-m * width))[:-1]]), rtol=1e-13)
+        assert dec.band_edges == (0.0, *EDGES)
+        assert dec.n_events == 4.0  # F's churn after the last edge is not in the table
+
+
+def _naive_bands(t: StartStop, edges: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Plain loops: overlap of (start, stop] with each band; churn when e_k < stop <= e_k+1."""
+    k = len(edges) - 1
+    expo, churn = np.zeros(k), np.zeros(k)
+    for a, b, d, w in zip(t.start, t.stop, t.churned, t.weight, strict=True):
+        for j in range(k):
+            expo[j] += w * max(0.0, min(b, edges[j + 1]) - max(a, edges[j]))
+            if d and edges[j] < b <= edges[j + 1]:
+                churn[j] += w
+    return expo, churn
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_user_bands_numpy_and_duckdb_agree_with_loops(seed, tmp_path):
+    """Whole-day rows (many exits on the edges 7, 14, 28, 60, 91) in both engines and loops."""
+    t = competing_rows(200, seed)
+    edges = [7.0, 14.0, 28.0, 60.0, 91.0, 182.0, 365.0]
+    # rows that start or stop on an edge (seed 0 also has 3 churns on one)
+    assert np.isin(t.stop, edges).sum() >= 4 and np.isin(t.start, edges).sum() >= 4
+    full = np.array([0.0] + edges)
+    expo, churn = _naive_bands(t, full)
+    a = decrement_table(t, band_edges=edges, engine="numpy").frame
+    b = decrement_table(t.to_parquet(tmp_path / "t.parquet"), band_edges=edges).frame
+    for f in (a, b):
+        np.testing.assert_allclose(f["exposure"] * D, expo, rtol=1e-11, atol=1e-9)
+        np.testing.assert_allclose(f["churns"], churn, rtol=0, atol=1e-12)
+    for col in NUMERIC + ["survivors"]:
+        np.testing.assert_allclose(a[col], b[col], rtol=1e-10, atol=1e-10, err_msg=col)
+
+
+@pytest.mark.parametrize("kw, text", [
+    (dict(band_edges=[30, 7]), "must be increasing positive tenures in days"),
+    (dict(band_edges=[0, 7]), "must be increasing positive tenures in days"),
+    (dict(band_edges=["a"]), "must be numbers of days"),
+    (dict(band_edges=[7], months=3), "user bands are tenure bands and replace months"),
+    (dict(band_edges=[7], axis="calendar"), "user bands are tenure bands and replace months"),
+])
+def test_user_band_errors(kw, text):
+    with pytest.raises(DataError, match=text):
+        decrement_table(competing_rows(20, 0), **kw)
+
+
+def test_user_bands_are_not_a_monthly_basis():
+    dec = decrement_table(edge_table(), band_edges=EDGES)
+    with pytest.raises(ModelError, match="only a tenure-month table can serve as a basis"):
+        dec.expected_events(edge_table())
+    from retain.models.decrements import graduate
+    with pytest.raises(ModelError, match="user bands of unequal width"):
+        graduate(dec)

@@ -112,3 +112,19 @@ def test_day_list_keys(tmp_path, key):
     for bad in ("[30, 10]", "[0, 10]", '["a"]', "[]", "30"):
         with pytest.raises(ConfigError, match=f"{key}: must be a list of increasing positive"):
             load_config(_project(tmp_path, f"{key} = {bad}"))
+
+
+def test_decrement_edges_reach_the_decrements_page():
+    """[model] decrement_edges -> a decrement table on those bands in the run and on the page."""
+    from retain.publish.pages import decrements_page
+    from retain.run import RunOptions, run_table
+
+    t = _minimum_term()
+    run = run_table(t, RunOptions(decrement_edges=(7.0, 30.0, 60.0)))
+    dt = run.value("decrements:bands")
+    # bands (0,7] (7,30] (30,60]: churns at 40 and 50 fall in (30,60]; 70 is past 60
+    assert list(dt.frame["churns"]) == [0.0, 0.0, 2.0]
+    page = decrements_page(run)
+    keys = [f.key for s in page.sections for f in s.figures]
+    assert "decrements-bands" in keys
+    assert run_table(t, RunOptions()).get("decrements:bands").kind == "absent"

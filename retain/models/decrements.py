@@ -1,7 +1,8 @@
 """Decrement tables: central exposure, churns by cause, m, q and survivors by month.
 
 For each segment and month k (tenure month by default: tenure
-(k·D, (k+1)·D] days, D = ``retain.units.DAYS_PER_MONTH``; or calendar month):
+(k·D, (k+1)·D] days, D = ``retain.units.DAYS_PER_MONTH``; or calendar month;
+or the user's own tenure bands (e_k, e_{k+1}] days, ``band_edges``):
 
 * central exposure E_k in customer-months: the weighted time at risk inside
   the month from the (start, stop] rows (delayed entry respected: a row adds
@@ -10,8 +11,10 @@ For each segment and month k (tenure month by default: tenure
 * the central rate m_k = d_k / E_k (churns per customer-month);
 * the monthly probability q_k = 1 − exp(−m_k) (constant force within the
   month), and per cause q_k,c = (m_k,c / m_k) q_k, so that the causes add up;
+  on user bands of width W_k months, the probability of churning within the
+  band, q_k = 1 − exp(−m_k W_k);
 * survivors per 10,000 at the start of each month, l_0 = 10,000,
-  l_{k+1} = l_k (1 − q_k) (tenure months only).
+  l_{k+1} = l_k (1 − q_k) (tenure months and bands only).
 
 Intervals (level ``level``): m by the exact Poisson interval on the count
 (Garwood, 1936), with E_k held fixed: [χ²(α/2; 2d) / 2E, χ²(1−α/2; 2d+2) / 2E];
@@ -94,6 +97,7 @@ class DecrementTable(Result):
     engine: str
     source: str
     months: int | None
+    band_edges: tuple[float, ...] | None = None  # user bands: edges in days, e_0 = 0 first
     interval: str = ("m: exact Poisson (Garwood) on the churn count with exposure fixed; "
                      "q = 1 - exp(-m) of those bounds; survivors: log scale, Poisson variance "
                      "of the cumulative rate")
@@ -129,7 +133,7 @@ class DecrementTable(Result):
     # ------------------------------------------------------------ as a basis
     def monthly_rates(self, segment: str = ALL) -> np.ndarray:
         """Central rates m by tenure month for one segment (0 where there is no exposure)."""
-        if self.axis != "tenure":
+        if self.axis != "tenure" or self.band_edges is not None:
             raise ModelError("decrement table", "only a tenure-month table can serve as a basis",
                              "build the basis with axis='tenure'")
         seg = self.segment(segment)
@@ -144,7 +148,7 @@ class DecrementTable(Result):
         last month continue at its rate. With ``by`` the rates of each row's segment
         are used (the table needs the same columns).
         """
-        if self.axis != "tenure":
+        if self.axis != "tenure" or self.band_edges is not None:
             raise ModelError("decrement table", "only a tenure-month table can serve as a basis",
                              "build the basis with axis='tenure'")
         out = np.zeros(table.n_rows)
@@ -179,6 +183,7 @@ def decrement_table(
     level: float = 0.95,
     engine: str = "auto",
     con: duckdb.DuckDBPyConnection | None = None,
+    band_edges: Sequence[float] | None = None,
 ) -> DecrementTable:
     """Decrement table by tenure month (or calendar month), optionally by segment.
 
@@ -204,6 +209,15 @@ def decrement_table(
     con : DuckDB connection, optional
         Used for the DuckDB engine (its memory limit and threads apply); a
         fresh in-memory connection by default.
+    band_edges : sequence of float, optional
+        The user's own tenure bands instead of 30.44-day months: increasing
+        positive tenures in days e_1 < ... < e_K (e_0 = 0 is implied), e.g.
+        ``[7, 14, 21, 28, 60, 91, 182, 365]`` for weeks in the first month
+        then months. Band k is (e_k, e_{k+1}]: a churn exactly on an edge
+        counts in the band that ends there, and exposure is split at the
+        edges. Time at risk and churns after e_K are left out. ``q`` is then
+        the probability of churning within the band, 1 − exp(−m W) with W the
+        band's width in months (the project file's ``[model] decrement_edges``).
     """
     if axis not in AXES:
         raise DataError("decrement_table", f"axis must be one of {', '.join(AXES)}, not {axis!r}",
@@ -220,16 +234,17 @@ def decrement_table(
     if engine not in ("auto", "duckdb", "numpy"):
         raise DataError("decrement_table", f"engine must be auto, duckdb or numpy, not {engine!r}",
                         "use 'auto'")
+    edges = None if band_edges is None else _check_edges(band_edges, axis, months)
     names = by_names(by)
     if engine == "auto":
         engine = "numpy" if isinstance(source, StartStop) else "duckdb"
     if engine == "numpy":
         if not isinstance(source, StartStop):
             source = _as_startstop(source)
-        raw, n_rows, n_events, where = _numpy_counts(source, names, axis, months)
+        raw, n_rows, n_events, where = _numpy_counts(source, names, axis, months, edges)
     else:
-        raw, n_rows, n_events, where = _duckdb_counts(source, names, axis, months, con)
-    frame = _finish(raw, axis, level, cause_split)
+        raw, n_rows, n_events, where = _duckdb_counts(source, names, axis, months, con, edges)
+    frame = _finish(raw, axis, level, cause_split, edges)
     total = float(frame["exposure"].sum())
     n_events = float(frame["churns"].sum())  # inside the months kept
     warnings: list[str] = []
@@ -238,9 +253,40 @@ def decrement_table(
         warnings.append(f"{len(empty)} month(s) have churns but no exposure (a churn on the "
                         "first day of a calendar month after exposure ended the month before); "
                         "their rate is not defined")
+    extra: dict[str, Any] = {}
+    if edges is not None:
+        extra = {"band_edges": tuple(float(e) for e in edges), "assumptions": (
+            "constant force of churn within each band (q = 1 - exp(-m x band width))",
+            "weights are frequency weights (counts of identical rows)",
+            "bands (a, b] in days of tenure: a churn on an edge counts in the band that ends "
+            f"there; time at risk after {edges[-1]:g} days is left out",
+            "rates m are per customer-month of 30.4375 days")}
     return DecrementTable(frame=frame, axis=axis, by=names, level=level, n_rows=n_rows,
                           n_events=n_events, total_exposure=total, engine=engine, source=where,
-                          months=months, warnings=tuple(warnings))
+                          months=months, warnings=tuple(warnings), **extra)
+
+
+def _check_edges(band_edges: Sequence[float], axis: str, months: int | None) -> np.ndarray:
+    """The full edge array (0, e_1, ..., e_K) of user bands, or a DataError."""
+    where = "decrement_table band_edges"
+    if axis != "tenure" or months is not None:
+        raise DataError(where, "user bands are tenure bands and replace months",
+                        "use axis='tenure' and leave months out")
+    try:
+        e = np.asarray(list(band_edges), dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise DataError(where, f"must be numbers of days, got {band_edges!r}",
+                        "pass e.g. [7, 14, 21, 28, 60, 91]") from exc
+    if e.ndim != 1 or e.size == 0 or not np.all(np.isfinite(e)) or np.any(e <= 0) \
+            or np.any(np.diff(e) <= 0):
+        raise DataError(where, f"must be increasing positive tenures in days, got "
+                        f"{list(band_edges)!r}", "pass e.g. [7, 14, 21, 28, 60, 91] "
+                        "(the first band starts at 0)")
+    return np.concatenate(([0.0], e))
+
+
+def _band_label(lo: float, hi: float) -> str:
+    return f"{lo:g} to {hi:g} days"
 
 
 def _as_startstop(source: Any) -> StartStop:
@@ -254,11 +300,19 @@ def _as_startstop(source: Any) -> StartStop:
 
 
 def _numpy_counts(table: StartStop, names: tuple[str, ...], axis: str,
-                  months: int | None) -> tuple[pd.DataFrame, int, float, str]:
+                  months: int | None, user_edges: np.ndarray | None = None
+                  ) -> tuple[pd.DataFrame, int, float, str]:
     codes, labels = segment_codes(table, names)
     g = len(labels)
     w = table.weight
-    if axis == "tenure":
+    if user_edges is not None:
+        edges = user_edges
+        n_bands = edges.shape[0] - 1
+        lo, hi = table.start, table.stop
+        # band k = (e_k, e_k+1] holds a churn at hi when e_k < hi <= e_k+1
+        churn_band = np.searchsorted(edges, hi, side="left") - 1
+        band_number = np.arange(n_bands)
+    elif axis == "tenure":
         n_bands = months if months is not None else max(
             1, int(np.ceil(table.stop.max() / DAYS_PER_MONTH)))
         edges = DAYS_PER_MONTH * np.arange(n_bands + 1, dtype=float)
@@ -280,7 +334,7 @@ def _numpy_counts(table: StartStop, names: tuple[str, ...], axis: str,
     exposure, in_force = band_exposure(lo, hi, w, edges, codes, g)
     ev = table.churned == 1
     if axis == "tenure":
-        ev = ev & (hi <= edges[-1])
+        ev = ev & (hi <= edges[-1]) & (hi > edges[0])
     churns = band_counts(churn_band[ev], w[ev], codes[ev], g, n_bands)
     by_cause = {}
     for cause in CAUSES:
@@ -326,18 +380,27 @@ def exposure_by_band(con: duckdb.DuckDBPyConnection, axis: str, n_bands: int) ->
 
 
 def _duckdb_counts(source: Any, names: tuple[str, ...], axis: str, months: int | None,
-                   con: duckdb.DuckDBPyConnection | None) -> tuple[pd.DataFrame, int, float, str]:
+                   con: duckdb.DuckDBPyConnection | None, user_edges: np.ndarray | None = None
+                   ) -> tuple[pd.DataFrame, int, float, str]:
     own = con is None
     if own:
         con = duckdb.connect()
     try:
         where = duckdb_input(con, source, names, need_start_date=axis == "calendar")
         facts = check_input(con, where)
-        raw = exposure_by_band(con, axis, _UNLIMITED_BANDS if months is None else int(months))
+        if user_edges is not None:
+            run_step(con, "exposure_bands", {"edges": [float(e) for e in user_edges]},
+                     create="exposure_bands")
+            raw = run_step(con, "exposure_running").df()
+        else:
+            raw = exposure_by_band(con, axis,
+                                   _UNLIMITED_BANDS if months is None else int(months))
     finally:
         if own:
             con.close()
-    if axis == "tenure" and months is not None:
+    if user_edges is not None:
+        raw = _fill_bands(raw, user_edges.shape[0] - 1)
+    elif axis == "tenure" and months is not None:
         # the grid stops at the last month with exposure; fill up to `months`
         raw = _fill_bands(raw, months)
     return raw, int(facts[0]), float(facts[7]), where
@@ -375,11 +438,25 @@ def _fill_bands(raw: pd.DataFrame, months: int) -> pd.DataFrame:
     return out.reset_index()
 
 
-def _finish(raw: pd.DataFrame, axis: str, level: float, cause_split: bool) -> pd.DataFrame:
-    """From raw counts per (segment, band) to the published table."""
+def _finish(raw: pd.DataFrame, axis: str, level: float, cause_split: bool,
+            edges: np.ndarray | None = None) -> pd.DataFrame:
+    """From raw counts per (segment, band) to the published table.
+
+    With user band ``edges`` each band's width W (months) enters q = 1 − exp(−m W)
+    and the survivors l_{k+1} = l_k exp(−m_k W_k), with the Poisson variance of
+    the cumulative hazard Σ W_j² d_j / E_j².
+    """
     f = pd.DataFrame({"segment": raw["segment"].astype(str).to_numpy(),
                       "month": raw["band"].to_numpy(dtype=np.int64)})
-    if axis == "tenure":
+    width = np.ones(len(f))
+    if edges is not None:
+        k = f["month"].to_numpy()
+        f["label"] = [_band_label(edges[i], edges[i + 1]) for i in k]
+        f["from_days"] = edges[k]
+        f["to_days"] = edges[k + 1]
+        width = (edges[k + 1] - edges[k]) / DAYS_PER_MONTH
+        f["width_months"] = width
+    elif axis == "tenure":
         f["label"] = [f"month {k + 1}" for k in f["month"]]
     else:
         m = f["month"].to_numpy()
@@ -399,9 +476,9 @@ def _finish(raw: pd.DataFrame, axis: str, level: float, cause_split: bool) -> pd
         f["m"] = m
         f["m_lower"] = np.where(pos, lo / np.where(pos, e, 1.0), np.nan)
         f["m_upper"] = np.where(pos, hi / np.where(pos, e, 1.0), np.nan)
-        f["q"] = -np.expm1(-m)
-        f["q_lower"] = -np.expm1(-f["m_lower"].to_numpy())
-        f["q_upper"] = -np.expm1(-f["m_upper"].to_numpy())
+        f["q"] = -np.expm1(-m * width)
+        f["q_lower"] = -np.expm1(-f["m_lower"].to_numpy() * width)
+        f["q_upper"] = -np.expm1(-f["m_upper"].to_numpy() * width)
         for cause in CAUSES:
             dc = f[f"churns_{cause}"].to_numpy()
             mc = np.where(pos, dc / np.where(pos, e, 1.0), np.nan)
@@ -412,10 +489,11 @@ def _finish(raw: pd.DataFrame, axis: str, level: float, cause_split: bool) -> pd
         z = stats.norm.ppf(0.5 + level / 2)
         surv, s_lo, s_hi = [], [], []
         for _, seg in f.groupby("segment", sort=False):
-            mm = seg["m"].to_numpy()
+            ww = width[seg.index.to_numpy()]
+            mm = seg["m"].to_numpy() * ww
             ee = seg["exposure"].to_numpy()
             var = np.full(ee.shape, np.nan)
-            np.divide(seg["churns"].to_numpy(), ee ** 2, out=var, where=ee > 0)
+            np.divide(seg["churns"].to_numpy() * ww ** 2, ee ** 2, out=var, where=ee > 0)
             h = np.concatenate([[0.0], np.cumsum(mm)[:-1]])
             v = np.concatenate([[0.0], np.cumsum(var)[:-1]])
             surv.append(RADIX * np.exp(-h))
@@ -496,6 +574,9 @@ def graduate(
     if not isinstance(decrements, DecrementTable):
         raise DataError("graduate", f"needs a DecrementTable, not {type(decrements).__name__}",
                         "build one with decrement_table()")
+    if decrements.band_edges is not None:
+        raise ModelError("graduate", "the table is on user bands of unequal width",
+                         "graduate a table by tenure month (decrement_table without band_edges)")
     if order not in (2, 3):
         raise DataError("graduate", f"order must be 2 or 3, not {order!r}",
                         "2 smooths towards a line, 3 towards a quadratic")

@@ -655,13 +655,39 @@ def decrements_page(run: Any) -> Page:
                   "whether the crude rates stray from the graduated ones more than chance "
                   "allows; p-values under 0.05 call for a second look.",
             table=gr.tests, note=gr.summary()))
+    sections = [Section(title, intro=dt.summary(), facts=facts,
+                        bullets=tuple(notes) + tuple(dt.warnings), figures=tuple(figs))]
+    bands = run.get("decrements:bands")
+    if bands.kind != "absent":
+        sections.append(_band_decrements_section(bands))
     return Page("decrements", "Decrement table", "Churn read as decrements: exposure in "
                 "customer-months, churns by cause, central rates m and monthly probabilities "
                 "q by month of tenure, with survivors per 10,000.",
-                (Section(title, intro=dt.summary(), facts=facts,
-                         bullets=tuple(notes) + tuple(dt.warnings), figures=tuple(figs)),),
+                tuple(sections),
                 cautions=ACTUARIAL_CAUTIONS, assumptions=tuple(dt.assumptions),
                 nav_label="Decrement table", group="actuarial")
+
+
+def _band_decrements_section(o: Any) -> Section:
+    """The decrement table on the project file's own tenure bands ([model] decrement_edges)."""
+    title = "Decrement table on your tenure bands"
+    if not o.ok:
+        return failure_section(title, o)
+    dt = o.value
+    frame = dt.to_frame()
+    seg = frame[frame["segment"] == frame["segment"].iloc[0]]
+    shown = seg[["label", "in_force", "exposure", "churns", "m", "q", "q_lower", "q_upper",
+                 "survivors"]]
+    return Section(title, intro=dt.summary(), bullets=tuple(dt.assumptions) + tuple(dt.warnings),
+                   figures=(Figure(
+                       key="decrements-bands", title="Churn by the bands of [model] "
+                       "decrement_edges",
+                       guide="One row per band (a, b] of tenure in days: a churn on an edge "
+                             "counts in the band that ends there. m is churns per "
+                             "customer-month; q is the probability of churning within the "
+                             "band (1 − exp(−m × the band's width in months)), so bands of "
+                             "different widths are not compared by q but by m.",
+                       table=shown, csv=frame, show_rows=60),))
 
 
 def expected_page(run: Any) -> Page:
