@@ -15,16 +15,16 @@
 -- rank, time, source row), and `day_ord`, the `ord` of the day's first possible
 -- event. Ignored events are kept with
 -- ignored = true so the reconciliation can count them.
--- Parameters: $timezone, $as_of, $event_from, $event_to, $event_ignore,
+-- Parameters: $timezone, $time_kind (iso, pattern, epoch_seconds,
+--             epoch_milliseconds), $time_pattern (a valid strptime pattern even
+--             when unused), $as_of, $event_from, $event_to, $event_ignore,
 --             $reason_from, $reason_to, $reason_ignore.
 with imported as (
     select
         source_row,
         malformed,
         customer_id,
-        -- a time without an offset is a wall-clock time in the session zone,
-        -- which prepare.py sets to $timezone
-        try_cast(nullif(trim(event_time), '') as timestamptz) as event_ts,
+        nullif(trim(event_time), '') as time_text,
         nullif(trim(event), '') as event_raw,
         nullif(trim(reason), '') as reason_raw,
         -- categorical values as members of the ENUM type `category` (categories.sql)
@@ -33,14 +33,53 @@ with imported as (
     from source_events
 ),
 
-typed as (
+parsed as (
     select
         *,
+        -- ISO text (a date alone is its midnight) or the [columns] time_format
+        -- pattern; a time without an offset is a wall-clock time in the session
+        -- zone, which prepare.py sets to $timezone
+        case
+            when $time_kind = 'iso' then try_cast(time_text as timestamptz)
+            when $time_kind = 'pattern'
+                then cast(try_strptime(time_text, $time_pattern) as timestamptz)
+        end as parsed_ts,
+        -- epoch seconds or milliseconds: an instant, whatever the zone
+        case
+            when $time_kind = 'epoch_seconds' then try_cast(time_text as double)
+            when $time_kind = 'epoch_milliseconds' then try_cast(time_text as double) / 1000
+        end as epoch_s
+    from imported
+),
+
+timed as (
+    select
+        *,
+        -- times the later steps cannot order or count days on: infinity (as
+        -- database exports write it) and anything outside 1900-01-01 .. 2199-12-31
+        case
+            when parsed_ts is not null and not isfinite(parsed_ts) then 'non-finite time'
+            when parsed_ts < timestamptz '1900-01-01 00:00:00+00'
+                or parsed_ts >= timestamptz '2200-01-01 00:00:00+00' then 'time out of range'
+            when epoch_s is not null and not isfinite(epoch_s) then 'non-finite time'
+            when epoch_s < -2208988800 or epoch_s >= 7258118400 then 'time out of range'
+        end as time_problem
+    from parsed
+),
+
+typed as (
+    select
+        * exclude (parsed_ts, epoch_s),
+        case
+            when time_problem is not null then null
+            when parsed_ts is not null then parsed_ts
+            when epoch_s is not null then to_timestamp(epoch_s)
+        end as event_ts,
         try_cast(columns('^text__(.*)$') as double) as '\1',
         (columns('^text__(.*)$') is not null
             and not coalesce(isfinite(try_cast(columns('^text__(.*)$') as double)), false))
             as 'bad__\1'
-    from imported
+    from timed
 ),
 
 mapped as (
@@ -74,6 +113,7 @@ flagged as (
             when malformed then 'malformed CSV record'
             when ignored then null
             when customer_id is null or trim(customer_id) = '' then 'missing id'
+            when time_problem is not null then time_problem
             when event_ts is null then 'unparseable time'
             when event is null then 'unknown event'
             when day > $as_of then 'time after the as-of date'

@@ -91,7 +91,8 @@ CASES = [
     ("unknown section",
      BASE + "\n[extras]\nx = 1\n",
      "retain.toml: unknown section [extras] -- allowed sections: source, columns, events, "
-     "reasons, window, attributes, segments, model, value, experiments, engine, output"),
+     "reasons, window, attributes, segments, model, value, experiments, engine, output, "
+     "check"),
     ("unknown key",
      BASE.replace('as_of = "2024-12-31"', 'asof = "2024-12-31"'),
      "retain.toml: [window]: unknown key 'asof' -- allowed keys: as_of, start, timezone"),

@@ -145,3 +145,109 @@ def test_dialect_keys_do_not_apply_to_parquet(tmp_path):
         write(tmp_path, b"", source='path = "events.parquet"\ndelimiter = ";"')
     assert "[source] delimiter: only applies to a CSV log (format is parquet)" \
         in err.value.message
+
+
+# ---------------------------------------------------------------------- times
+def simple(tmp_path, lines: list[str], *, columns_extra: str = "", timezone: str = "UTC",
+           extra: str = ""):
+    (tmp_path / "events.csv").write_text("\n".join(["id,t,ev", *lines]) + "\n",
+                                         encoding="utf-8")
+    (tmp_path / "retain.toml").write_text(
+        '[source]\npath = "events.csv"\n'
+        f'[columns]\ncustomer_id = "id"\nevent_time = "t"\nevent = "ev"\n{columns_extra}\n'
+        '[events]\nmap = { signup = "start", cancel = "end" }\n'
+        f'[window]\nas_of = "2024-12-31"\ntimezone = "{timezone}"\n{extra}', encoding="utf-8")
+    return load_config(tmp_path / "retain.toml")
+
+
+@pytest.mark.parametrize("zone", ["UTC", "Europe/London", "America/New_York"])
+def test_non_finite_and_out_of_range_times_are_quarantined(tmp_path, zone):
+    cfg = simple(tmp_path, [
+        "a,2024-01-01,signup", "a,infinity,cancel",             # rows 1, 2
+        "b,-infinity,signup", "b,2024-03-01,cancel",            # rows 3, 4
+        "c,0001-01-01,signup", "c,9999-12-31 23:59:59,cancel",  # rows 5, 6
+        "d,2024-01-01,signup", "d,2024-01-11,cancel",           # rows 7, 8
+    ], timezone=zone)
+    p = prepare(cfg)
+    rec = p.reconciliation
+    assert rec.rows_in == 8 and rec.used == 3            # a's signup, d's two rows
+    # b's cancel comes before any usable start once its -infinity signup is set aside
+    assert rec.by_reason == {"non-finite time": 2, "time out of range": 2,
+                             "event before the customer's first start": 1}
+    reasons = {r["source_row"]: r["quarantine_reason"] for r in p.quarantine.to_pylist()}
+    assert reasons[2] == reasons[3] == "non-finite time"
+    assert reasons[5] == reasons[6] == "time out of range"
+    # a is censored at as_of (its infinite cancel is not an end); d ended on day 10
+    rows = {r["customer_id"]: r for r in p.arrow.to_pylist()}
+    assert rows["a"]["churned"] == 0 and rows["a"]["stop"] == 365.0   # leap year 2024
+    assert rows["d"]["churned"] == 1 and rows["d"]["stop"] == 10.0 and rows["d"]["cause"]
+
+
+def test_a_strptime_pattern_reads_day_first_times_as_wall_clock(tmp_path):
+    cfg = simple(tmp_path, ["a,05/01/2024 10:00,signup", "a,04/02/2024 09:00,cancel",
+                            "b,31/03/2024 00:30,signup", "b,not a time,cancel"],
+                 columns_extra='time_format = "%d/%m/%Y %H:%M"', timezone="Europe/London")
+    p = prepare(cfg)
+    rows = {r["customer_id"]: r for r in p.arrow.to_pylist()}
+    assert rows["a"]["stop"] == 30.0                     # 5 Jan -> 4 Feb
+    assert rows["b"]["start_date"].isoformat() == "2024-03-31"
+    assert p.reconciliation.by_reason == {"unparseable time": 1}
+
+
+@pytest.mark.parametrize(("fmt", "scale"), [("epoch_seconds", 1), ("epoch_milliseconds", 1000)])
+def test_epoch_times_are_instants(tmp_path, fmt, scale):
+    # 1704067200 = 2024-01-01T00:00:00Z (19723 days * 86400 s); 1706731200 =
+    # 2024-01-31T20:00:00Z. In New York these are 2023-12-31 19:00 and 2024-01-31 15:00.
+    lines = [f"a,{1704067200 * scale},signup", f"a,{1706731200 * scale},cancel",
+             "b,1e400,signup", f"b,{-10**10 * scale},signup"]
+    utc = prepare(simple(tmp_path, lines, columns_extra=f'time_format = "{fmt}"'))
+    ny = prepare(simple(tmp_path, lines, columns_extra=f'time_format = "{fmt}"',
+                        timezone="America/New_York"))
+    assert utc.arrow.column("stop").to_pylist() == [30.0]
+    assert ny.arrow.column("stop").to_pylist() == [31.0]
+    assert utc.reconciliation.by_reason == {"non-finite time": 1, "time out of range": 1}
+
+
+@pytest.mark.parametrize(("value", "expected"), [
+    ("dd/mm/yyyy", "[columns] time_format: 'dd/mm/yyyy' is neither a strptime pattern nor an "
+                   "epoch unit"),
+    ("%d/%m/%Q", "[columns] time_format: '%d/%m/%Q' is not a pattern DuckDB's strptime reads "
+                 "(Failed to parse format specifier %d/%m/%Q"),
+])
+def test_time_format_is_checked(tmp_path, value, expected):
+    with pytest.raises(ConfigError) as err:
+        simple(tmp_path, [], columns_extra=f'time_format = "{value}"')
+    assert expected in err.value.message
+
+
+def test_check_fails_on_too_many_unparseable_times(tmp_path, capsys):
+    from retain.cli import main
+
+    lines = [f"c{i},{d:02d}/01/2024,signup" for i, d in enumerate(range(13, 31))]
+    lines += ["x,2024-01-02,signup"] * 2
+    simple(tmp_path, lines)
+    assert main(["check", str(tmp_path / "retain.toml"), "--quiet"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1
+    assert ("column 't': 18 of 20 rows (90.0%) have times that cannot be parsed with no "
+            "time_format (ISO 8601), e.g. '13/01/2024', '14/01/2024', '15/01/2024' -- set "
+            "[columns] time_format in") in err[0]
+    assert "or raise [check] max_unparseable_share (now 0.01)" in err[0]
+
+
+def test_check_passes_under_the_share_and_fails_over_it(tmp_path, capsys):
+    from retain.cli import main
+
+    lines = [f"c{i},2024-01-02,signup" for i in range(98)] + ["y,2024-01-03,upgrade",
+                                                               "z,2024-01-03,downgrade"]
+    simple(tmp_path, lines, extra="[check]\nmax_unknown_event_share = 0.02\n")
+    assert main(["check", str(tmp_path / "retain.toml"), "--quiet"]) == 0   # 2% is allowed
+    out = capsys.readouterr().out
+    assert out.startswith("Read as: CSV, delimiter ','")
+    simple(tmp_path, lines)                                                  # default 1%
+    assert main(["check", str(tmp_path / "retain.toml"), "--quiet"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert ("column 'ev': 2 of 100 rows (2.0%) have unknown event values, e.g. 'downgrade' "
+            "(1 rows), 'upgrade' (1 rows) -- map them in [events] map or list them in "
+            "[events] ignore in") in err
+    assert "[check] max_unknown_event_share (now 0.01)" in err

@@ -149,7 +149,7 @@ def test_compress_table_on_any_arrow_start_stop_table(con):
 
 
 @pytest.mark.parametrize("step,params", [
-    ("normalise", {"timezone", "as_of", "event_from", "event_to", "event_ignore", "reason_from",
+    ("normalise", {"timezone", "time_kind", "time_pattern", "as_of", "event_from", "event_to", "event_ignore", "reason_from",
                    "reason_to", "reason_ignore"}),
     ("states", {"window_start"}), ("troubled", set()), ("sequence", set()), ("spells", set()),
     ("state_input_all", set()), ("state_input_redo", set()),

@@ -34,6 +34,8 @@ FORMATS = ("csv", "parquet")
 ENCODINGS = ("utf-8", "utf-16", "latin-1")
 #: keys of [source] that only a CSV log takes
 CSV_KEYS = ("delimiter", "quote", "escape", "header", "encoding")
+#: [columns] time_format values that are not a strptime pattern
+EPOCHS = ("epoch_seconds", "epoch_milliseconds")
 #: Columns the start-stop table always has (an attribute may not take these names).
 CORE_OUTPUT = ("customer_id", "spell", "start", "stop", "churned", "cause", "weight",
                "start_date", "cohort")
@@ -101,6 +103,16 @@ class ColumnMap:
     event_time: str
     event: str
     reason: str | None = None
+    #: None (ISO 8601 text; a date alone is midnight), a strptime pattern, or
+    #: "epoch_seconds" / "epoch_milliseconds"
+    time_format: str | None = None
+
+    @property
+    def time_kind(self) -> str:
+        """How normalise parses the time: iso, pattern, epoch_seconds or epoch_milliseconds."""
+        if self.time_format is None:
+            return "iso"
+        return self.time_format if self.time_format in EPOCHS else "pattern"
 
 
 @dataclass(frozen=True)
@@ -183,6 +195,14 @@ class ExperimentSpec:
 
 
 @dataclass(frozen=True)
+class CheckConfig:
+    """When ``retain check`` fails instead of quarantining quietly."""
+
+    max_unparseable_share: float = 0.01
+    max_unknown_event_share: float = 0.01
+
+
+@dataclass(frozen=True)
 class EngineConfig:
     memory_limit: str = "4GB"
     threads: int = 2
@@ -212,6 +232,7 @@ class Config:
     experiments: tuple[ExperimentSpec, ...]
     engine: EngineConfig
     output: OutputConfig
+    check: CheckConfig = field(default_factory=CheckConfig)
 
     def attribute(self, name: str) -> AttributeSpec:
         for a in self.attributes:
@@ -349,7 +370,7 @@ def _timezones() -> frozenset[str]:
 
 
 _SECTIONS = ("source", "columns", "events", "reasons", "window", "attributes", "segments",
-             "model", "value", "experiments", "engine", "output")
+             "model", "value", "experiments", "engine", "output", "check")
 
 
 def load_config(path: str | Path) -> Config:
@@ -400,7 +421,8 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
     source = _source(_Section(file, "source", data["source"],
                               ("path", "duckdb", "table", "format", *CSV_KEYS)), base)
     columns = _columns(_Section(file, "columns", data["columns"],
-                                ("customer_id", "event_time", "event", "reason")))
+                                ("customer_id", "event_time", "event", "reason",
+                                 "time_format")))
     events = _events(_Section(file, "events", data["events"], ("map", "ignore", "strict")))
     reasons = _reasons(_Section(file, "reasons", data.get("reasons", {}),
                                 ("map", "ignore", "strict")), events.strict)
@@ -419,9 +441,12 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
     engine = _engine(_Section(file, "engine", data.get("engine", {}),
                               ("memory_limit", "threads", "temp_directory")), base)
     output = _output(_Section(file, "output", data.get("output", {}), ("dir", "compress")), base)
+    check = _check(_Section(file, "check", data.get("check", {}),
+                            ("max_unparseable_share", "max_unknown_event_share")))
     return Config(path=path, source=source, columns=columns, events=events, reasons=reasons,
                   window=window, attributes=attributes, segments=segments, model=model,
-                  value=value, experiments=experiments, engine=engine, output=output)
+                  value=value, experiments=experiments, engine=engine, output=output,
+                  check=check)
 
 
 def _source(s: _Section, base: Path) -> SourceConfig:
@@ -508,7 +533,8 @@ def _columns(s: _Section) -> ColumnMap:
     c = ColumnMap(customer_id=s.text("customer_id", required=True),
                   event_time=s.text("event_time", required=True),
                   event=s.text("event", required=True),
-                  reason=s.text("reason"))
+                  reason=s.text("reason"),
+                  time_format=_time_format(s))
     seen: dict[str, str] = {}
     for ours in ("customer_id", "event_time", "event", "reason"):
         theirs = getattr(c, ours)
@@ -519,6 +545,34 @@ def _columns(s: _Section) -> ColumnMap:
                               f"{seen[theirs]}", "map each of our columns to a different column")
         seen[theirs] = ours
     return c
+
+
+def _time_format(s: _Section) -> str | None:
+    fmt = s.text("time_format")
+    if fmt is None or fmt in EPOCHS:
+        return fmt
+    fix = ('write a strptime pattern such as "%d/%m/%Y %H:%M" or "%Y-%m-%dT%H:%M:%S%z", '
+           f"or one of: {', '.join(EPOCHS)}")
+    if "%" not in fmt:
+        raise ConfigError(s.where("time_format"), f"{fmt!r} is neither a strptime pattern "
+                          "nor an epoch unit", fix)
+    import duckdb
+
+    try:
+        duckdb.execute("select try_strptime('', ?)", [fmt]).fetchall()
+    except duckdb.Error as exc:
+        detail = str(exc).strip().splitlines()[0].split(": ", 1)[-1]
+        raise ConfigError(s.where("time_format"), f"{fmt!r} is not a pattern DuckDB's strptime "
+                          f"reads ({detail})", fix) from exc
+    return fmt
+
+
+def _check(s: _Section) -> CheckConfig:
+    return CheckConfig(
+        max_unparseable_share=s.number("max_unparseable_share", default=0.01, low=0.0,
+                                       high=1.0),
+        max_unknown_event_share=s.number("max_unknown_event_share", default=0.01, low=0.0,
+                                         high=1.0))
 
 
 def _events(s: _Section) -> EventMap:

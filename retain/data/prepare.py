@@ -43,6 +43,7 @@ import pyarrow.parquet as pq
 from retain.data.config import Config
 from retain.data.source import MALFORMED, import_csv
 from retain.data.sqlsteps import run_step
+from retain.data.thresholds import check_thresholds
 from retain.data.table import StartStop
 from retain.errors import DataError, ReconciliationError
 from retain.results import Result
@@ -216,6 +217,9 @@ def _params(config: Config) -> dict[str, Any]:
     ev, rs = config.events, config.reasons
     return {
         "timezone": config.window.timezone,
+        "time_kind": config.columns.time_kind,
+        "time_pattern": (config.columns.time_format if config.columns.time_kind == "pattern"
+                         else "%Y-%m-%d"),
         "as_of": config.window.as_of,
         "window_start": config.window.start,
         "event_from": list(ev.map), "event_to": list(ev.map.values()),
@@ -473,13 +477,16 @@ def prepare(config: Config, *, progress: Progress | None = None,
                 run_step(con, "compress").to_arrow_table()))
     finally:
         con.close()
+    prepared = Prepared(arrow=arrow, quarantine=quarantine,
+                        reconciliation=reconciliation, unknown_events=unknown, config=config,
+                        compressed=compressed)
     if arrow.num_rows == 0:
+        # times in another format or unmapped events are the likely cause: say so first
+        check_thresholds(prepared)
         raise DataError(config.source.label, "no spell of any customer lies in the window: "
                         + reconciliation.summary(),
                         "check [events] map, [window] and the quarantine reasons")
-    return Prepared(arrow=arrow, quarantine=quarantine,
-                    reconciliation=reconciliation, unknown_events=unknown, config=config,
-                    compressed=compressed)
+    return prepared
 
 
 def compress_table(arrow: pa.Table) -> pa.Table:
