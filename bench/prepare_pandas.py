@@ -99,17 +99,25 @@ def prepare_pandas(config: Config) -> dict[str, object]:
     dup = ev.duplicated(["customer_id", "event_ts", "event_raw", "reason_raw", *attr_names])
     quarantine["exact duplicate"] = int(dup.sum())
     ev = ev[~dup.to_numpy()]
-    # a day that begins with a spell open and holds an end: its starts come last
+    # same-day order: a day with more than one start or more than one end in time
+    # order (then rank); else a day that begins with a spell open and holds an end has
+    # its starts last; else the fixed rank order
     ev = ev.sort_values(["customer_id", "day"], kind="stable", ignore_index=True)
     step = pd.Series(np.where(ev["event"] == "start", 1, np.where(ev["event"] == "end", -1, 0)))
     by_day = [ev["customer_id"], ev["day"]]
     running = step.groupby(ev["customer_id"], sort=False).cumsum()
     open_at_start = (running.groupby(by_day, sort=False).transform("last")
                      - step.groupby(by_day, sort=False).transform("sum")) > 0
-    has_end = (ev["event"] == "end").groupby(by_day, sort=False).transform("any")
-    ev["order"] = np.where((ev["event"] == "start") & open_at_start & has_end, 7,
-                           ev["event_rank"])
-    ev = ev.sort_values(["customer_id", "day", "order", "event_ts", "source_row"],
+    starts = (ev["event"] == "start").groupby(by_day, sort=False).transform("sum")
+    ends = (ev["event"] == "end").groupby(by_day, sort=False).transform("sum")
+    timed = ((starts > 1) | (ends > 1)).to_numpy()
+    order = np.where((ev["event"] == "start") & open_at_start & (ends > 0), 7,
+                     ev["event_rank"])
+    instant = ev["event_ts"].array.asi8
+    # within one day every row takes the same form, so one pair of keys serves both
+    ev["key1"] = np.where(timed, instant, order)
+    ev["key2"] = np.where(timed, ev["event_rank"].to_numpy(np.int64), instant)
+    ev = ev.sort_values(["customer_id", "day", "key1", "key2", "source_row"],
                         kind="stable", ignore_index=True)
     g = ev.groupby("customer_id", sort=False)
     boundary = ev["event"].where(ev["event"].isin(["start", "end"]))

@@ -1,13 +1,21 @@
 -- reorder: the flagged customers' rows without their repeats, in the order the
--- rules give when a spell is open at the start of a day that has both an end
--- and a start: the end first, then the start (a cancel and a reactivation on
--- one day). On any other day the fixed same-day order stands (a signup and a
--- cancel on one day: the start first). Only a customer with such a day is
--- ever flagged (its start meets an open spell in the one-pass order).
+-- same-day rules give (DEVELOPERS.md, "Preparation rules"):
+--   * a day that holds more than one start or more than one end: its events in
+--     time order (then the fixed same-day rank, then source row), so that a
+--     signup, a cancel and a signup again on one day make two spells;
+--   * otherwise, a day that begins with a spell open and holds an end (and a
+--     start): the end first, then the start (a cancel and a reactivation);
+--   * any other day keeps the fixed same-day order (a signup and a cancel on
+--     one day: the start first, whatever their times).
+-- Only a customer with such a day is ever flagged by these rules (in the
+-- one-pass order, with a day's starts before its ends, a start meets an open
+-- spell or an end meets none on it).
 -- "Open at the start of the day": among the customer's rows of earlier days,
 -- starts outnumber ends.
--- Reads `troubled_events` and `repeats`. Same columns as troubled_events;
--- such a start's `ord` moves after the day's events (same-day rank 7).
+-- Reads `troubled_events` and `repeats`. Same columns as troubled_events, with
+-- `ord` rewritten within its day's range [day_ord, day_ord + 2^81): a moved start
+-- takes same-day rank 7; a time-ordered day's key is day_ord + time * 2^43 +
+-- rank * 2^40 + source row (time: the field of ord between bits 40 and 78).
 with kept as (
     select t.*, date_diff('day', date '1970-01-01', t.day) as day_number
     from troubled_events as t
@@ -19,7 +27,8 @@ counted as (
         *,
         coalesce(sum(case event_rank when 0 then 1 when 6 then -1 else 0 end) over earlier_days,
                  0) > 0 as open_at_day_start,
-        bool_or(event_rank = 6) over same_day as day_has_end
+        count(*) filter (where event_rank = 0) over same_day as day_starts,
+        count(*) filter (where event_rank = 6) over same_day as day_ends
     from kept
     window
         earlier_days as (partition by customer_id order by day_number
@@ -29,9 +38,14 @@ counted as (
 
 final as (
     select
-        * exclude (day_number, open_at_day_start, day_has_end, ord),
+        * exclude (day_number, open_at_day_start, day_starts, day_ends, ord),
         cast(case
-            when event_rank = 0 and open_at_day_start and day_has_end
+            when day_starts > 1 or day_ends > 1
+                then day_ord
+                    + (ord - day_ord - event_rank * cast(2 ^ 78 as hugeint) - source_row)
+                        // cast(2 ^ 40 as hugeint) * cast(2 ^ 43 as hugeint)
+                    + event_rank * cast(2 ^ 40 as hugeint) + source_row
+            when event_rank = 0 and open_at_day_start and day_ends > 0
                 then ord + 7 * cast(2 ^ 78 as hugeint)
             else ord
         end as hugeint) as ord

@@ -128,14 +128,19 @@ def _instant(text, zone):
 
 
 def _apply_order(evs):
-    """Each event's place on its day (the "order" key), by the same-day rules: the fixed
-    order, except that on a day that begins with a spell open (starts of earlier days
-    outnumber their ends) and holds an end, the day's starts come after its events."""
+    """Each event's sort key by the same-day rules: a day holding more than one start or
+    more than one end takes its events in time order (then the fixed order, then source
+    row); otherwise the fixed order, except that on a day that begins with a spell open
+    (starts of earlier days outnumber their ends) and holds an end, the day's starts come
+    after its events."""
     for e in evs:
         before = [x["event"] for x in evs if x["day"] < e["day"]]
         is_open_then = before.count("start") > before.count("end")
-        has_end = any(x["event"] == "end" and x["day"] == e["day"] for x in evs)
-        order = 7 if (e["event"] == "start" and is_open_then and has_end) else e["rank"]
+        today = [x["event"] for x in evs if x["day"] == e["day"]]
+        if today.count("start") > 1 or today.count("end") > 1:
+            e["key"] = (e["day"], e["ts"], e["rank"], e["row"])
+            continue
+        order = 7 if (e["event"] == "start" and is_open_then and "end" in today) else e["rank"]
         e["key"] = (e["day"], order, e["ts"], e["row"])
 
 

@@ -309,3 +309,45 @@ def test_cancel_and_reactivation_on_one_day_end_one_spell_and_open_the_next(tmp_
         ("a", 2, 0.0, 10.0, 1, "voluntary", "Bloom", 1.0),
         ("b", 1, 0.0, 0.5, 1, "voluntary", "Seedling", 0.0)]
     assert p.reconciliation.quarantined == 0
+
+
+def test_signup_cancel_and_signup_again_on_one_day_make_two_spells(tmp_path):
+    """Signup 09:00, cancel 17:00, signup again 20:00 on 5 Mar: the day holds two starts,
+    so its events apply in time order. Spell 1 starts and ends that day: (0, 0.5],
+    churned, voluntary (no reason, not in recovery). Spell 2 starts that day with the
+    20:00 values and is still open on the as-of date 31 Mar: (0, 26], censored,
+    prior_spells 1. Nothing is quarantined."""
+    p = run(tmp_path, [signup("a", "2024-03-05 09:00"), ("a", "2024-03-05 17:00", "cancel"),
+                       signup("a", "2024-03-05 20:00", plan="Bloom", price="20")],
+            as_of="2024-03-31")
+    assert rows_of(p, (*CORE, "start_date", "plan", "price_ratio", "prior_spells")) == [
+        ("a", 1, 0.0, 0.5, 1, "voluntary", dt.date(2024, 3, 5), "Seedling", 1.0, 0.0),
+        ("a", 2, 0.0, 26.0, 0, "", dt.date(2024, 3, 5), "Bloom", 1.0, 1.0)]
+    assert p.reconciliation.quarantined == 0 and p.reconciliation.used == 3
+
+
+def test_a_day_with_two_ends_takes_its_events_in_time_order(tmp_path):
+    """Open since 1 Mar; on 11 Mar: cancel 10:00 (too_expensive), reactivate 12:00, a
+    payment failure 15:00, cancel 18:00 (no reason). Spell 1: (0, 10] churned voluntary.
+    Spell 2 starts and ends on 11 Mar: (0, 0.5] churned involuntary (in recovery at its
+    end); its row carries the state after that day's events (in_recovery 1)."""
+    p = run(tmp_path, [signup("a", "2024-03-01"),
+                       ("a", "2024-03-11 18:00", "cancel"),
+                       ("a", "2024-03-11 10:00", "cancel", "too_expensive"),
+                       ("a", "2024-03-11 15:00", "payment_failed"),
+                       signup("a", "2024-03-11 12:00", kind="reactivate")],
+            as_of="2024-03-31")
+    assert rows_of(p, (*CORE, "in_recovery", "prior_spells")) == [
+        ("a", 1, 0.0, 10.0, 1, "voluntary", 0.0, 0.0),
+        ("a", 2, 0.0, 0.5, 1, "involuntary", 1.0, 1.0)]
+    assert p.reconciliation.quarantined == 0
+
+
+def test_without_times_of_day_two_starts_and_an_end_keep_the_fixed_order(tmp_path):
+    """The same signup, cancel, signup with dates only: the three events tie on time, so
+    the fixed order decides (start, start, end): the second start meets the open spell
+    and is quarantined, the cancel ends the spell on its first day (0, 0.5]."""
+    p = run(tmp_path, [signup("a", "2024-03-05"), ("a", "2024-03-05", "cancel"),
+                       signup("a", "2024-03-05", plan="Bloom")], as_of="2024-03-31")
+    assert rows_of(p, (*CORE, "plan")) == [("a", 1, 0.0, 0.5, 1, "voluntary", "Seedling")]
+    assert p.reconciliation.by_reason == {"start during an open spell": 1}
