@@ -1242,7 +1242,7 @@ def simulated_km_by_plan(n_customers: int = 20000, *, seed: int = 20261130,
             for g, name in enumerate(groups)}
 
 
-def km_limit(n_customers: int = 8_000_000, *, seed: int = 2, chunk: int = 250_000,
+def km_limit(n_customers: int = 4_000_000, *, seed: int = 2, chunk: int = 125_000,
              days: tuple[int, ...] = RETENTION_DAYS, start: str = "2023-06-01",
              window_start: str = "2024-01-01", as_of: str = "2026-11-30") -> dict[str, Any]:
     """What a Kaplan–Meier curve by plan estimates on a log of the demo's design.

@@ -13,7 +13,9 @@ A Cox model leaves the baseline free, so it estimates the generator's log hazard
 ratios whatever the Weibull baseline; the truth's price-ratio form
 ``beta (price_ratio - 1)`` only moves the constant ``-beta`` into the baseline.
 
-Tolerance: every estimate within 4 robust standard errors of the truth. With 12
+Tolerance: every estimate within 4 robust standard errors of the truth. The truth
+here is the generator's exact parameters (no Monte Carlo error), so the band is
+retain's own robust standard error alone (on the shipped log every |z| < 1.7). With 12
 coefficients a 4-sigma band keeps the chance of a false alarm from noise alone near
 12 x 6.3e-5 < 1e-3 (Bonferroni; common practice for a consistency check), and it is
 narrow enough to fail on a plausible mistake: fitting both causes together moves

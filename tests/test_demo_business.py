@@ -73,7 +73,7 @@ def test_truth_json_matches_truth_and_its_call():
     assert saved == db.truth_dict()
     assert ref["call"] == ("true_reference_values(n_customers=1000000, n_experiment=200000, "
                            "seed=7, days=(30, 91, 182, 365, 730), experiment_horizon=365)")
-    assert km["call"] == ("km_limit(n_customers=8000000, seed=2, chunk=250000, "
+    assert km["call"] == ("km_limit(n_customers=4000000, seed=2, chunk=125000, "
                           "days=(30, 91, 182, 365, 730), start='2023-06-01', "
                           "window_start='2024-01-01', as_of='2026-11-30')")
 
