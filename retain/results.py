@@ -54,9 +54,86 @@ def to_jsonable(value: Any) -> Any:
     return value
 
 
+#: the longest one-line repr (characters); a longer summary line is cut with "…"
+REPR_WIDTH = 160
+#: rows and columns of ``to_frame()`` that ``_repr_html_`` shows
+HTML_ROWS, HTML_COLUMNS = 12, 8
+
+
+def _scalar_text(value: Any) -> str | None:
+    """A short text for a scalar field, None for arrays, frames and long values."""
+    if isinstance(value, (bool, np.bool_)):
+        return str(bool(value))
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,}"
+    if isinstance(value, (float, np.floating)):
+        return f"{float(value):.4g}"
+    if isinstance(value, str) and len(value) <= 40 and "\n" not in value:
+        return repr(value)
+    return None
+
+
 @dataclasses.dataclass(frozen=True)
 class Result:
-    """Base class of all results (frozen dataclasses)."""
+    """Base class of all results (frozen dataclasses).
+
+    ``repr()`` is one line (what, how many, key figures: the first line of
+    :meth:`summary`), never a dump of arrays or covariance matrices; in a
+    notebook ``_repr_html_`` shows that line over the head of :meth:`to_frame`.
+    Each subclass gets this ``__repr__`` unless it defines its own (the dataclass
+    decorator does not replace a ``__repr__`` already in the class).
+    """
+
+    def __init_subclass__(cls, **kwargs: Any) -> None:
+        super().__init_subclass__(**kwargs)
+        if "__repr__" not in cls.__dict__:
+            inherited = next(k.__dict__["__repr__"] for k in cls.__mro__[1:]
+                             if "__repr__" in k.__dict__)
+            cls.__repr__ = inherited  # type: ignore[method-assign]
+
+    def _repr_line(self) -> str:
+        """What, how many and the key figures, in one line (no class name)."""
+        try:
+            text = self.summary().strip()
+        except Exception:  # noqa: BLE001 - a repr must not fail
+            text = ""
+        first = text.splitlines()[0].strip() if text else ""
+        if first and first != type(self).__name__:
+            return first
+        parts = []
+        for f in dataclasses.fields(self):
+            if f.name.startswith("_") or not f.repr:
+                continue
+            shown = _scalar_text(getattr(self, f.name, None))
+            if shown is not None:
+                parts.append(f"{f.name}={shown}")
+            if len(parts) == 6:
+                break
+        return ", ".join(parts)
+
+    def __repr__(self) -> str:
+        line = f"<{type(self).__name__}: {self._repr_line()}>"
+        if len(line) > REPR_WIDTH:
+            line = line[:REPR_WIDTH - 2] + "…>"
+        return line
+
+    def _repr_html_(self) -> str:
+        import html
+
+        head = (f"<p><b>{html.escape(type(self).__name__)}</b>: "
+                f"{html.escape(self._repr_line())}</p>")
+        try:
+            frame = self.to_frame()
+        except Exception:  # noqa: BLE001 - no table form: the line alone
+            return head
+        if not isinstance(frame, pd.DataFrame):
+            return head
+        more = (f"<p>{len(frame):,} rows × {frame.shape[1]} columns; "
+                "<code>to_frame()</code> has them all</p>"
+                if len(frame) > HTML_ROWS or frame.shape[1] > HTML_COLUMNS else "")
+        table = frame.iloc[:HTML_ROWS, :HTML_COLUMNS].to_html(
+            index=False, escape=True, float_format=lambda v: f"{v:.4g}", border=0)
+        return head + table + more
 
     def to_dict(self) -> dict[str, Any]:
         return {f.name: to_jsonable(getattr(self, f.name)) for f in dataclasses.fields(self)}

@@ -245,7 +245,11 @@ class CoxFit(Result):
         })
 
     def to_frame(self) -> pd.DataFrame:
-        return self.hazard_ratios
+        """Term, hazard ratio, its interval and p: fits pandas' default 80-column width.
+
+        The full table (coefficients, both standard errors, z) is :attr:`hazard_ratios`.
+        """
+        return self.hazard_ratios[["term", "hazard_ratio", "hr_low", "hr_high", "p_value"]]
 
     def summary(self) -> str:
         se_kind = ("robust, clustered by " + self.robust_clusters) if self.robust else "model-based"
