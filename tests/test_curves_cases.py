@@ -136,7 +136,8 @@ def test_horizon_past_follow_up_is_refused():
     """Documented choice: RMST refuses a horizon past the last observed tenure."""
     c = kaplan_meier(small())
     with pytest.raises(ModelError, match="horizon 5 days is past the last observed tenure "
-                                         "\\(4 days\\) -- choose a horizon <= 4 days"):
+                                         "\\(4 days\\) and the curve has not reached 0 -- "
+                                         "choose a horizon <= 4 days"):
         c.restricted_mean(5)
     with pytest.raises(ModelError, match="past the last observed tenure of one group"):
         rmst_difference(small(), "arm", 3.5)
@@ -154,7 +155,34 @@ def test_rmst_difference_combines_the_two_groups():
     b = kaplan_meier(tab.take(tab.column("arm").codes == 1)).restricted_mean(2.0)
     assert abs(d.difference - (b.mean - a.mean)) < 1e-15
     assert abs(d.se - math.hypot(a.se, b.se)) < 1e-15
-    assert d.lower < d.difference < d.upper or d.se == 0
+    # both arms' SEs are 0 here (no area after their churns within 2 days): the interval
+    # is the point; tests/test_planted_bugs.py holds a case with positive SEs
+    assert a.se == b.se == 0 and d.lower == d.difference == d.upper
+
+
+def test_restricted_mean_past_the_last_tenure_once_the_curve_is_zero():
+    """Uncensored: S reaches 0 at the largest time, and the restricted mean at any horizon
+    past it is the sample mean (the area under the empirical survival function is the
+    mean: common identity). Its SE is then sqrt(sum (t - mean)^2 / n) / sqrt(n), the
+    plug-in standard error of the mean (from memory; ties included, as here)."""
+    t = np.array([3.0, 5.0, 5.0, 9.0, 12.0, 12.0, 20.0, 41.0])
+    tab = StartStop(np.zeros(8), t, np.ones(8))
+    c = kaplan_meier(tab)
+    assert c.reached_zero and c.known_until == math.inf
+    for horizon in (41.0, 41.5, 100.0, 1e6):
+        r = c.restricted_mean(horizon)
+        assert abs(r.mean - t.mean()) < 1e-12 * t.mean()
+        assert abs(r.se - np.sqrt(np.var(t) / t.size)) < 1e-12
+    assert "reached 0" in c.restricted_mean(100.0).warnings[0]
+    # one censored row at the end: S stays above 0 and the guard still refuses
+    censored = StartStop(np.zeros(8), t, np.r_[np.ones(7), 0.0])
+    assert not kaplan_meier(censored).reached_zero
+    with pytest.raises(ModelError, match="has not reached 0"):
+        kaplan_meier(censored).restricted_mean(50.0)
+    # the difference of two uncensored arms past both largest times: difference of means
+    arm = np.array(["a"] * 4 + ["b"] * 4, dtype=object)
+    d = rmst_difference(tab.with_columns(arm=arm), "arm", 60.0)
+    assert abs(d.difference - (t[4:].mean() - t[:4].mean())) < 1e-12
 
 
 def test_cohort_cells_not_observable_are_empty_and_real_zeros_stay():

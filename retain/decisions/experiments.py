@@ -510,7 +510,7 @@ def experiment_verdict(
     rest = sub
     for t in treatments:
         pair = rest.take(np.isin(arm_of_row, (control, t)))
-        limit = min(curves[control].follow_up, curves[t].follow_up)
+        limit = min(curves[control].known_until, curves[t].known_until)
         h = min(analysis, limit)
         try:
             rmst.append(rmst_difference(pair, arm, h, levels=(control, t), conf=conf))

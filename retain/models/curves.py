@@ -200,6 +200,20 @@ class RetentionCurve(Result):
     first_entry: float
     warnings: tuple[str, ...] = ()
 
+    @property
+    def reached_zero(self) -> bool:
+        """Whether the curve has fallen to 0 (everyone at risk at some time churned then).
+
+        A Kaplan–Meier product that reaches 0 stays 0, so past ``follow_up`` the
+        curve is known (0), not unobserved.
+        """
+        return bool(self.survival.size and self.survival[-1] <= 0.0)
+
+    @property
+    def known_until(self) -> float:
+        """The largest tenure the curve describes: ``follow_up``, or infinity once it is 0."""
+        return math.inf if self.reached_zero else float(self.follow_up)
+
     # ---- evaluation
     def at(self, days: Sequence[float] | np.ndarray | float) -> np.ndarray:
         """Retention at the given tenures (days); NaN past ``follow_up`` or below 0."""
@@ -263,22 +277,30 @@ class RetentionCurve(Result):
         """Restricted mean tenure up to ``horizon`` days.
 
         Refuses (ModelError) a horizon past ``follow_up``: the curve is not
-        observed there, and any area beyond it would be invented.
+        observed there, and any area beyond it would be invented -- unless the
+        curve has reached 0 (:attr:`reached_zero`): S(t) = 0 from then on, the
+        area beyond is exactly 0 and the horizon may lie anywhere. (With no
+        censoring that makes the restricted mean past the largest tenure the
+        sample mean: the area under the empirical survival function is the
+        mean, a common identity.)
         """
         where = f"restricted mean of {self.label}"
         if not (isinstance(horizon, (int, float)) and math.isfinite(horizon) and horizon > 0):
             raise ModelError(where, f"horizon must be a positive number of days, got {horizon!r}",
                              "e.g. horizon=365")
-        if horizon > self.follow_up:
+        if horizon > self.known_until:
             raise ModelError(where, f"horizon {horizon:g} days is past the last observed tenure "
-                             f"({self.follow_up:g} days)",
+                             f"({self.follow_up:g} days) and the curve has not reached 0",
                              f"choose a horizon <= {self.follow_up:g} days")
         mean, se = K.restricted_mean(self.times, self.survival, self.at_risk, self.events,
                                      float(horizon))
         z = float(stats.norm.isf((1.0 - self.conf) / 2.0))
         warn = ()
         ev_t = self.times[self.events > 0]
-        if ev_t.size == 0 or horizon > ev_t[-1]:
+        if self.reached_zero and horizon > self.follow_up:
+            warn = (f"the curve reached 0 at {self.follow_up:g} days; the area from there to "
+                    f"the horizon {horizon:g} days is 0",)
+        elif ev_t.size == 0 or horizon > ev_t[-1]:
             warn = (f"no churn observed between the last churn and the horizon {horizon:g} days; "
                     "the curve is held flat there",)
         return RestrictedMean(self.label, float(horizon), mean, se, mean - z * se, mean + z * se,
@@ -984,7 +1006,8 @@ def rmst_difference(table: StartStop, by: str, horizon: float, *,
 
     ``levels = (reference, other)``; default: the column's two values in
     sorted order (required when it has more than two). The horizon must not
-    pass either group's last observed tenure (ModelError otherwise).
+    pass either group's last observed tenure (ModelError otherwise), unless
+    that group's curve has reached 0 (see :meth:`RetentionCurve.restricted_mean`).
     """
     where = f"restricted mean difference by {by!r}"
     table = _check_table(table, where)
@@ -995,10 +1018,11 @@ def rmst_difference(table: StartStop, by: str, horizon: float, *,
                              "pass levels=(reference, other)")
         levels = (curves.keys()[0], curves.keys()[1])
     ref, oth = curves[levels[0]], curves[levels[1]]
-    limit = min(ref.follow_up, oth.follow_up)
+    limit = min(ref.known_until, oth.known_until)
     if horizon > limit:
         raise ModelError(where, f"horizon {horizon:g} days is past the last observed tenure of "
-                         f"one group ({limit:g} days)", f"choose a horizon <= {limit:g} days")
+                         f"one group ({limit:g} days), whose curve has not reached 0",
+                         f"choose a horizon <= {limit:g} days")
     a = ref.restricted_mean(horizon)
     b = oth.restricted_mean(horizon)
     diff = b.mean - a.mean
