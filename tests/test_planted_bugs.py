@@ -80,3 +80,40 @@ def test_piecewise_exit_on_a_cut_with_a_covariate():
 
 if __name__ == "__main__":  # pragma: no cover
     pytest.main([__file__])
+
+
+def test_restricted_mean_difference_se_is_root_of_sum_of_squares():
+    """Two arms with churns before the horizon (4 days), so both SEs are positive.
+
+    Each arm's restricted mean and SE by hand (Klein & Moeschberger 2003, eq. 4.5.1-2:
+    Var = sum_j A_j^2 d_j / (n_j (n_j - d_j)), A_j the area from t_j to the horizon):
+    arm a: (0,1] churn, (0,3] churn, (0,5] and (0,6] censored.
+      t=1: n 4, d 1, S 3/4;  t=3: n 3, d 1, S 1/2.
+      mean = 1 + 2 * 3/4 + 1 * 1/2 = 3;  A_1 = 2, A_3 = 1/2;
+      Var = 4 / 12 + 1/4 / 6 = 3/8.
+    arm b: (0,2] churn x2, (0,3] censored, (0,7] churn, (0,8] censored.
+      t=2: n 5, d 2, S 3/5;  the next churn (7) is past the horizon.
+      mean = 2 + 2 * 3/5 = 3.2;  A_2 = 1.2;  Var = 1.44 * 2 / 15 = 0.192.
+    difference b - a = 0.2 with SE sqrt(3/8 + 0.192) (independent arms; Royston & Parmar
+    2013); a plain sum of the SEs would give 1.0506 instead of 0.7530.
+    """
+    import math
+
+    from scipy import stats
+
+    from retain.models.curves import kaplan_meier, rmst_difference
+
+    arm = np.array(["a"] * 4 + ["b"] * 5, dtype=object)
+    t = StartStop([0.0] * 9, [1, 3, 5, 6, 2, 2, 3, 7, 8], [1, 1, 0, 0, 1, 1, 0, 1, 0],
+                  covariates={"arm": arm})
+    ra = kaplan_meier(t.take(arm == "a")).restricted_mean(4.0)
+    rb = kaplan_meier(t.take(arm == "b")).restricted_mean(4.0)
+    assert abs(ra.mean - 3.0) < 1e-12 and abs(ra.se - math.sqrt(3 / 8)) < 1e-12
+    assert abs(rb.mean - 3.2) < 1e-12 and abs(rb.se - math.sqrt(0.192)) < 1e-12
+    d = rmst_difference(t, "arm", 4.0, levels=("a", "b"))
+    se = math.sqrt(3 / 8 + 0.192)
+    assert abs(d.difference - 0.2) < 1e-12
+    assert abs(d.se - se) < 1e-12
+    z = float(stats.norm.isf(0.025))
+    assert abs(d.lower - (0.2 - z * se)) < 1e-12 and abs(d.upper - (0.2 + z * se)) < 1e-12
+    assert abs(d.p_value - 2 * stats.norm.sf(0.2 / se)) < 1e-12
