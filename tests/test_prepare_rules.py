@@ -351,3 +351,23 @@ def test_without_times_of_day_two_starts_and_an_end_keep_the_fixed_order(tmp_pat
                        signup("a", "2024-03-05", plan="Bloom")], as_of="2024-03-31")
     assert rows_of(p, (*CORE, "plan")) == [("a", 1, 0.0, 0.5, 1, "voluntary", "Seedling")]
     assert p.reconciliation.by_reason == {"start during an open spell": 1}
+
+
+@pytest.mark.parametrize("recovered", [True, False])
+def test_payment_failed_then_recovered_on_one_day_is_not_in_recovery(tmp_path, recovered):
+    """Same day: payment_failed applies before payment_recovered (the fixed order, here
+    against the file order), so with both on 11 Jan the customer is out of recovery when
+    the day ends: no cut (the state equals day 0's), one row (0, 11], and the cancel on 12
+    Jan without a reason is voluntary. With the failure alone the state changes on day 10:
+    (0, 10] in_recovery 0, then (10, 11] in_recovery 1 and the cancel is involuntary."""
+    rows = [signup("a", "2024-01-01")]
+    if recovered:
+        rows.append(("a", "2024-01-11", "payment_recovered"))
+    rows += [("a", "2024-01-11", "payment_failed"), ("a", "2024-01-12", "cancel")]
+    p = run(tmp_path, rows)
+    got = rows_of(p, (*CORE, "in_recovery"))
+    if recovered:
+        assert got == [("a", 1, 0.0, 11.0, 1, "voluntary", 0.0)]
+    else:
+        assert got == [("a", 1, 0.0, 10.0, 0, "", 0.0),
+                       ("a", 1, 10.0, 11.0, 1, "involuntary", 1.0)]
