@@ -113,20 +113,25 @@ class ProportionalHazardsTest(Result):
 
 @dataclass(frozen=True, eq=False)
 class Concordance(Result):
-    """Harrell's C on start-stop data with its pair counts (weighted)."""
+    """Harrell's C on start-stop data with its pair counts (weighted).
+
+    ``score`` names what was ranked (the Cox linear predictor, or a user's score).
+    """
 
     c_index: float
     concordant: float
     discordant: float
     tied_risk: float
     comparable: float
+    score: str = "Cox linear predictor"
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([self.to_dict()])
 
     def summary(self) -> str:
-        return (f"Concordance (Harrell's C) = {self.c_index:.3f} over {self.comparable:.0f} "
-                "comparable pairs judged among those at risk at each churn time.")
+        return (f"Concordance (Harrell's C) of {self.score} = {self.c_index:.3f} over "
+                f"{self.comparable:.0f} comparable pairs judged among those at risk at each "
+                "churn time.")
 
 
 @dataclass(frozen=True, eq=False)
@@ -597,6 +602,85 @@ class CoxFit(Result):
         return Concordance(float(c), conc, disc, tied, comp)
 
 
+def concordance(table: StartStop, score: str | Sequence[float] | np.ndarray, *,
+                strata: str | Sequence[str] | None = None, higher: str = "risk",
+                name: str | None = None) -> Concordance:
+    r"""Harrell's C of any risk score on start-stop data (not only a Cox fit's own).
+
+    For every churn of row :math:`i` at :math:`t`, each row :math:`j` at risk at
+    :math:`t` (:math:`\text{start}_j < t \le \text{stop}_j`, same stratum) that
+    does not churn at :math:`t` forms a comparable pair of weight
+    :math:`w_i w_j`; the pair is concordant when the churner has the higher risk
+    score, tied when the scores are equal, and
+
+    .. math:: C = \frac{\text{concordant} + \tfrac12\,\text{tied}}{\text{comparable}}
+
+    (Harrell et al. 1982, JAMA 247:2543), each row's score being the one in
+    force on that row, so a time-varying score is judged at each churn time.
+    On right-censored data without delayed entry these are the pairs of
+    scikit-survival's ``concordance_index_censored``.
+
+    Parameters
+    ----------
+    table : StartStop
+    score : str or array
+        A numeric column of ``table`` or one value per row (e.g. another
+        model's risk score or prediction), finite.
+    strata : str or sequence of str, optional
+        Compare only rows of the same stratum.
+    higher : {"risk", "retention"}
+        Whether a higher score means churning sooner (a hazard or risk score,
+        default) or staying longer (a predicted lifetime or retention); the
+        latter is ranked by its negative.
+    name : str, optional
+        What the score is, for the result (default: the column name, or "score").
+
+    Raises
+    ------
+    DataError
+        Not a StartStop, a score of the wrong length or with missing values.
+    ModelError
+        No churns, or an unknown ``higher``.
+    """
+    where = "concordance"
+    if not isinstance(table, StartStop):
+        raise DataError(where, f"expected a StartStop table, got {type(table).__name__}",
+                        "build one with StartStop.from_frame / from_parquet")
+    if higher not in ("risk", "retention"):
+        raise ModelError(where, f"higher must be 'risk' or 'retention', got {higher!r}",
+                         "'risk' when a higher score means churning sooner")
+    if isinstance(score, str):
+        label = name or score
+        s = np.array(table.numeric(score), dtype=np.float64)
+    else:
+        label = name or "score"
+        try:
+            s = np.array(score, dtype=np.float64).reshape(-1)
+        except (TypeError, ValueError) as exc:
+            raise DataError(where, "the score must be numbers", "pass one number per row") \
+                from exc
+        if s.shape != (table.n_rows,):
+            raise DataError(where, f"the score has {s.shape[0]} values, the table "
+                            f"{table.n_rows} rows", "pass one value per row of the table")
+    bad = ~np.isfinite(s)
+    if bad.any():
+        raise DataError(where, f"the score is missing or not finite on {int(bad.sum())} of "
+                        f"{table.n_rows} rows", "score every row, or take the rows with a "
+                        "score first (table.take(mask))")
+    if higher == "retention":
+        s = -s
+    strata_t: tuple[str, ...] = () if strata is None else \
+        ((strata,) if isinstance(strata, str) else tuple(strata))
+    stratum, labels = _stratum_codes(table, strata_t)
+    d = table.churned.astype(np.float64)
+    if not np.any(d > 0):
+        raise ModelError(where, "the table has no churns", "concordance needs churn events")
+    index = K.build_risk_index(table.start, table.stop, d, table.weight, stratum, len(labels))
+    conc, disc, tied, comp = K.concordance_counts(index, s, d, table.weight)
+    c = (conc + 0.5 * tied) / comp if comp > 0 else float("nan")
+    return Concordance(float(c), conc, disc, tied, comp, score=label)
+
+
 # --------------------------------------------------------------------------- fitting
 def _stratum_labels(table: StartStop, strata: Sequence[str]) -> list[str]:
     parts = []
@@ -894,4 +978,4 @@ def _check_separation(where: str, table: StartStop, design: Design, w: np.ndarra
 
 
 __all__ = ["CoxFit", "Concordance", "ProportionalHazardsTest", "RemainingLifetime", "TestStat",
-           "fit_cox"]
+           "concordance", "fit_cox"]
