@@ -5,7 +5,11 @@ Each size runs in a fresh subprocess so its peak resident memory is its own:
 bench/_data/. No reference library does this job, so the figures stand alone; the
 growth slope (log time / log size) shows the work is linear in customers.
 
+The truth file's two simulations (``true_reference_values`` and ``km_limit`` at the
+shipped settings, each in its own subprocess) are timed with ``--truth``.
+
 Run:  /work/venv/bin/python bench/bench_demo_generator.py [sizes...]
+      /work/venv/bin/python bench/bench_demo_generator.py --truth
 """
 
 from __future__ import annotations
@@ -28,6 +32,26 @@ peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 print(json.dumps({"customers": n, "rows": rows, "generate_s": t_gen,
                   "write_parquet_s": t_write, "peak_mb": peak}))
 """
+TRUTH_CHILD = r"""
+import json, resource, sys, time
+from retain import demo_business as db
+fn = getattr(db, sys.argv[1])
+t = time.perf_counter(); fn(); s = time.perf_counter() - t
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+print(json.dumps({"step": sys.argv[1], "seconds": s, "peak_mb": peak}))
+"""
+
+
+def truth() -> list[dict]:
+    """Time the truth file's simulations at their shipped settings."""
+    out = []
+    for step in ("true_reference_values", "km_limit"):
+        res = subprocess.run([sys.executable, "-c", TRUTH_CHILD, step], check=True,
+                             capture_output=True, text=True)
+        rec = json.loads(res.stdout.strip().splitlines()[-1])
+        out.append(rec)
+        print(f"{step:<22} {rec['seconds']:6.1f} s  peak {rec['peak_mb']:,.0f} MB", flush=True)
+    return out
 
 
 def main(sizes: list[int]) -> list[dict]:
@@ -52,5 +76,7 @@ def main(sizes: list[int]) -> list[dict]:
 
 
 if __name__ == "__main__":
-    args = [int(x) for x in sys.argv[1:]] or [100_000, 300_000, 1_000_000, 3_000_000]
-    main(args)
+    if sys.argv[1:] == ["--truth"]:
+        truth()
+    else:
+        main([int(x) for x in sys.argv[1:]] or [100_000, 300_000, 1_000_000, 3_000_000])
