@@ -110,7 +110,33 @@ CASES = [
     ("window start after as_of",
      BASE.replace('as_of = "2024-12-31"', 'as_of = "2024-12-31"\nstart = "2025-01-01"'),
      "retain.toml: [window] start: 2025-01-01 is after as_of 2024-12-31 -- the observation "
-     "window must start on or before as_of"),
+     "window must start before as_of"),
+    ("window start equal to as_of",
+     BASE.replace('as_of = "2024-12-31"', 'as_of = "2024-12-31"\nstart = "2024-12-31"'),
+     "retain.toml: [window] start: 2024-12-31 is as_of itself: a window of no days -- set "
+     "start before as_of (or remove start to use the whole log)"),
+    ("time zone misspelt",
+     BASE.replace('timezone = "UTC"', 'timezone = "Europe/Londn"'),
+     "retain.toml: [window] timezone: unknown time zone 'Europe/Londn' -- did you mean "
+     "Europe/London or Europe/Lisbon or Europe/Oslo?"),
+    ("time zone in the wrong case",
+     BASE.replace('timezone = "UTC"', 'timezone = "europe/paris"'),
+     "retain.toml: [window] timezone: unknown time zone 'europe/paris' -- did you mean "
+     "Europe/Paris?"),
+    ("one column static and time-varying",
+     BASE + '\n[attributes.plan_at_signup]\ncolumn = "plan"\nkind = "categorical"\n'
+            'varies = false\n',
+     "retain.toml: [attributes.plan_at_signup] column: column 'plan' is already the column of "
+     "[attributes.plan] (once static, once time-varying) -- declare each column once: one "
+     "attribute per column"),
+    ("one column, two static attributes",
+     BASE + '\n[attributes.area]\ncolumn = "region"\nkind = "categorical"\nvaries = false\n',
+     "retain.toml: [attributes.area] column: column 'region' is already the column of "
+     "[attributes.region] -- declare each column once: one attribute per column"),
+    ("attribute names differing in case",
+     BASE + '\n[attributes.Plan]\ncolumn = "other"\nkind = "categorical"\nvaries = false\n',
+     "retain.toml: [attributes.Plan]: 'Plan' differs from [attributes.plan] only in case -- "
+     "give the attributes names that differ in more than case"),
     ("bad event vocabulary",
      BASE.replace('cancel = "end"', 'cancel = "stop"'),
      "retain.toml: [events] map.cancel: 'stop' is not an event of ours -- allowed values: "

@@ -251,3 +251,26 @@ def test_check_passes_under_the_share_and_fails_over_it(tmp_path, capsys):
             "(1 rows), 'upgrade' (1 rows) -- map them in [events] map or list them in "
             "[events] ignore in") in err
     assert "[check] max_unknown_event_share (now 0.01)" in err
+
+
+# ---------------------------------------------------------------------- messages
+def test_as_of_before_every_event_names_the_key_and_the_first_day(tmp_path):
+    cfg = simple(tmp_path, ["a,2025-02-03,signup", "a,2025-03-01,cancel"])
+    with pytest.raises(ConfigError) as err:
+        prepare(cfg)
+    assert err.value.message == (f"{tmp_path / 'retain.toml'}: [window] as_of: 2024-12-31 is "
+                                 "before the log's first event (2025-02-03) -- set as_of on or "
+                                 "after 2025-02-03")
+
+
+def test_too_little_memory_names_the_memory_limit(tmp_path):
+    cfg = simple(tmp_path, [f"c{i},2024-01-0{1 + i % 9},signup" for i in range(50)],
+                 extra='[engine]\nmemory_limit = "1MB"\n')
+    with pytest.raises(ConfigError) as err:
+        prepare(cfg)
+    msg = err.value.message
+    assert msg.startswith(f"{tmp_path / 'retain.toml'}: [engine] memory_limit: 1MB is not "
+                          "enough memory for the ")
+    assert "Out of Memory Error" in msg and msg.endswith(
+        'raise memory_limit (e.g. "4GB") or set [engine] temp_directory so DuckDB can spill '
+        "to disk")

@@ -9,6 +9,7 @@ relative to the toml file.
 from __future__ import annotations
 
 import datetime as dt
+import difflib
 import functools
 import re
 import sys
@@ -618,14 +619,30 @@ def _window(s: _Section) -> WindowConfig:
     tz = s.text("timezone", default="UTC")
     if start is not None and start > as_of:
         raise ConfigError(s.where("start"), f"{start} is after as_of {as_of}",
-                          "the observation window must start on or before as_of")
+                          "the observation window must start before as_of")
+    if start is not None and start == as_of:
+        raise ConfigError(s.where("start"), f"{start} is as_of itself: a window of no days",
+                          "set start before as_of (or remove start to use the whole log)")
     zones = _timezones()
     if tz not in zones:
-        near = sorted(z for z in zones if z.lower().startswith(tz.split("/")[0].lower()))[:5]
-        hint = f" (e.g. {', '.join(near)})" if near else ""
-        raise ConfigError(s.where("timezone"), f"unknown time zone {tz!r}",
-                          f"use an IANA name such as UTC or Europe/London{hint}")
+        near = nearest_zones(tz, zones)
+        hint = f"did you mean {' or '.join(near)}?" if near else \
+            "use an IANA name such as UTC or Europe/London"
+        raise ConfigError(s.where("timezone"), f"unknown time zone {tz!r}", hint)
     return WindowConfig(as_of=as_of, start=start, timezone=tz)
+
+
+def nearest_zones(name: str, zones: frozenset[str] | set[str], n: int = 3) -> list[str]:
+    """Up to ``n`` zone names nearest to ``name``: a match ignoring case first, then
+    difflib's closest spellings (case ignored)."""
+    by_lower: dict[str, str] = {}
+    for z in sorted(zones):
+        by_lower.setdefault(z.lower(), z)
+    key = name.strip().lower()
+    if key in by_lower:
+        return [by_lower[key]]
+    close = difflib.get_close_matches(key, list(by_lower), n=n, cutoff=0.6)
+    return [by_lower[c] for c in close]
 
 
 def _attributes(file: str, data: Any, columns: ColumnMap) -> tuple[AttributeSpec, ...]:
@@ -636,6 +653,8 @@ def _attributes(file: str, data: Any, columns: ColumnMap) -> tuple[AttributeSpec
     used = {columns.customer_id, columns.event_time, columns.event, columns.reason} - {None}
     out: list[AttributeSpec] = []
     taken: set[str] = set()
+    owner: dict[str, str] = {}  # the log's column -> the attribute reading it
+    lower: dict[str, str] = {}  # attribute names ignoring case (SQL names ignore it)
     for name, body in data.items():
         s = _Section(file, f"attributes.{name}", body, ("kind", "varies", "column", "ratio"))
         if not _NAME.match(name):
@@ -657,6 +676,19 @@ def _attributes(file: str, data: Any, columns: ColumnMap) -> tuple[AttributeSpec
         if column in used:
             raise ConfigError(s.where("column"), f"column {column!r} is already mapped in "
                               "[columns]", "an attribute needs a column of its own")
+        if column in owner:
+            other = owner[column]
+            how = " (once static, once time-varying)" if \
+                next(a for a in out if a.name == other).varies != varies else ""
+            raise ConfigError(s.where("column"), f"column {column!r} is already the column of "
+                              f"[attributes.{other}]{how}",
+                              "declare each column once: one attribute per column")
+        if name.lower() in lower:
+            raise ConfigError(f"{file}: [attributes.{name}]", f"{name!r} differs from "
+                              f"[attributes.{lower[name.lower()]}] only in case",
+                              "give the attributes names that differ in more than case")
+        owner[column] = name
+        lower[name.lower()] = name
         if f"{name}_ratio" in taken or (ratio and f"{name}_ratio" in data):
             raise ConfigError(s.where("ratio"), f"{name}_ratio clashes with another attribute",
                               "rename one of them")

@@ -43,9 +43,9 @@ import pyarrow.parquet as pq
 from retain.data.config import Config
 from retain.data.source import MALFORMED, import_csv
 from retain.data.sqlsteps import run_step
-from retain.data.thresholds import check_thresholds
 from retain.data.table import StartStop
-from retain.errors import DataError, ReconciliationError
+from retain.data.thresholds import check_thresholds
+from retain.errors import ConfigError, DataError, ReconciliationError, RetainError
 from retain.results import Result
 
 #: progress(step, rows, seconds): called after each step.
@@ -150,8 +150,11 @@ class _Timer:
         self.progress = progress
         self.times: dict[str, float] = {}
         self.outputs: dict[str, Any] = {}
+        #: the step running now (named in the message if the engine fails in it)
+        self.step = "import"
 
     def run(self, step: str, fn: Callable[[], Any], table: str | None = None) -> Any:
+        self.step = step
         t0 = time.perf_counter()
         out = fn()
         dt = time.perf_counter() - t0
@@ -179,10 +182,32 @@ def _import(con: duckdb.DuckDBPyConnection, config: Config) -> None:
             run_step(con, "import_parquet", {"path": str(src.path)}, create="raw")
         else:
             import_csv(con, config)
+    except duckdb.OutOfMemoryException:
+        raise  # prepare names [engine] memory_limit
     except duckdb.Error as exc:
-        first = str(exc).strip().splitlines()[0]
+        first = _first_line(exc)
         raise DataError(src.label, f"cannot be read as {src.format} ({first})",
                         "check the file and [source] in retain.toml") from exc
+
+
+def _first_line(exc: BaseException) -> str:
+    """The first line of an engine's message (with its kind, e.g. "Out of Memory Error")."""
+    text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+    return text
+
+
+def _engine_error(exc: BaseException, step: str, config: Config) -> Exception:
+    """A DuckDB or Arrow error in step ``step`` as one line that says what to change."""
+    if isinstance(exc, duckdb.OutOfMemoryException):
+        return ConfigError(f"{config.path}: [engine] memory_limit",
+                           f"{config.engine.memory_limit} is not enough memory for the {step} "
+                           f"step ({_first_line(exc)})",
+                           'raise memory_limit (e.g. "4GB") or set [engine] temp_directory '
+                           "so DuckDB can spill to disk")
+    return DataError(f"{config.source.label}: preparation step {step!r}",
+                     f"the engine stopped ({type(exc).__name__}: {_first_line(exc)})",
+                     f"check the log against [source] and [columns] in {config.path}; if "
+                     "they match, this is a bug in retain: rerun with --debug and report it")
 
 
 def _source_view(con: duckdb.DuckDBPyConnection, config: Config) -> None:
@@ -377,7 +402,8 @@ def _reconciliation(config: Config, fates: _Fates, table: pa.Table, customers: i
 # ---------------------------------------------------------------------- entry points
 def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
               progress: Progress | None = None,
-              before_intervals: Callable[[_Timer], None] | None = None) -> _Timer:
+              before_intervals: Callable[[_Timer], None] | None = None,
+              timer: _Timer | None = None) -> _Timer:
     """Run the preparation steps on ``con``, leaving their tables on it.
 
     Tables: ``raw`` (the log as text), ``events`` (normalise),
@@ -387,15 +413,17 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     inspect one step. ``before_intervals(timer)`` runs once every row's
     fate is known, before the last step (prepare uses it to free memory).
     """
-    timer = _Timer(con, progress)
+    timer = timer if timer is not None else _Timer(con, progress)
     params = _params(config)
     timer.run("import", lambda: _import(con, config), "raw")
+    timer.step = "column mapping"
     _source_view(con, config)
     # progress counts the type's members
     timer.run("categories", lambda: run_step(con, "categories", create="category", kind="enum"),
               "(select unnest(enum_range(cast(null as category))))")
     timer.run("normalise", lambda: run_step(con, "normalise", params, create="events"),
               "events")
+    timer.step = "strict checks"
     _strict_checks(con, config)
     run_step(con, "state_input_all", create="state_input", kind="view")
     timer.run("states", lambda: run_step(con, "states", params, create="first_pass"),
@@ -403,7 +431,9 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     # customers with a suspect row: checked row by row, then their states again
     timer.run("rows to recheck", lambda: run_step(con, "troubled", create="troubled_events"),
               "troubled_events")
+    timer.step = "repeats"
     run_step(con, "repeats", create="troubled_repeats")
+    timer.step = "reorder"
     run_step(con, "reorder", create="troubled_ordered")
     timer.run("order checks", lambda: run_step(con, "sequence", create="sequence_problems"),
               "sequence_problems")
@@ -411,6 +441,7 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     timer.run("states rechecked", lambda: run_step(con, "states", params, create="redo"), "redo")
     run_step(con, "spells", create="spells", kind="view")
     if before_intervals is not None:
+        timer.step = "reconciliation"
         before_intervals(timer)
     # straight into Arrow (a table in DuckDB first would cost a second copy of the rows),
     # then registered as ``start_stop`` for the steps that read it
@@ -451,7 +482,11 @@ def prepare(config: Config, *, progress: Progress | None = None,
         Rows in != used + outside window + ignored + quarantined (a bug).
     """
     compress = config.output.compress if compress is None else compress
-    con = connect(config)
+    try:
+        con = connect(config)
+    except duckdb.Error as exc:
+        raise _engine_error(exc, "connect", config) from exc
+    timer = _Timer(con, progress)
     found: dict[str, Any] = {}
 
     def settle(timer: _Timer) -> None:
@@ -460,13 +495,16 @@ def prepare(config: Config, *, progress: Progress | None = None,
             "quarantine", lambda: run_step(con, "quarantine").to_arrow_table())
         found["unknown"] = {v: int(n) for v, n in run_step(con, "unknown_events").fetchall()}
         found["fates"] = _row_fates(con, config)
+        if found["fates"].counts["used"] == 0:  # for the message when nothing is left
+            found["first_day"] = con.execute(
+                "select min(day) from events where not ignored").fetchone()[0]
         for view in ("state_input", "source_events"):
             con.execute(f"drop view if exists {view}")
         for table in ("troubled_ordered", "troubled_events", "events", "raw"):
             con.execute(f"drop table if exists {table}")
 
     try:
-        timer = run_steps(con, config, progress=progress, before_intervals=settle)
+        run_steps(con, config, progress=progress, before_intervals=settle, timer=timer)
         arrow, customers, spells = timer.run(
             "row order", lambda: _ordered_and_counted(timer.outputs["intervals"]), "start_stop")
         quarantine, unknown = found["quarantine"], found["unknown"]
@@ -475,6 +513,11 @@ def prepare(config: Config, *, progress: Progress | None = None,
         if compress:
             compressed = timer.run("compress", lambda: _public_names(
                 run_step(con, "compress").to_arrow_table()))
+    except RetainError:
+        raise
+    except (duckdb.Error, pa.ArrowException) as exc:
+        # no engine message reaches the user as it is: where, which step, what to do
+        raise _engine_error(exc, timer.step, config) from exc
     finally:
         con.close()
     prepared = Prepared(arrow=arrow, quarantine=quarantine,
@@ -483,6 +526,11 @@ def prepare(config: Config, *, progress: Progress | None = None,
     if arrow.num_rows == 0:
         # times in another format or unmapped events are the likely cause: say so first
         check_thresholds(prepared)
+        first, as_of = found.get("first_day"), config.window.as_of
+        if first is not None and first > as_of:
+            raise ConfigError(f"{config.path}: [window] as_of",
+                              f"{as_of} is before the log's first event ({first})",
+                              f"set as_of on or after {first}")
         raise DataError(config.source.label, "no spell of any customer lies in the window: "
                         + reconciliation.summary(),
                         "check [events] map, [window] and the quarantine reasons")
