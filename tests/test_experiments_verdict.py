@@ -225,3 +225,27 @@ def test_the_spec_target_hazard_ratio_drives_the_too_few_events_warning(whas_tri
     assert any(w.startswith("too few events for 1") for w in from_spec.warnings)
     silent = experiment_verdict(whas_trial, plain, as_of="2026-11-30", n_boot=20)
     assert not any(w.startswith("too few events") for w in silent.warnings)
+
+
+def test_adjusted_hazard_ratio_on_complete_cases(whas_trial: StartStop) -> None:
+    """bmi blank on every 10th patient: "stop" refuses naming the column and the option;
+    "complete_cases" gives the Cox HR fitted on the patients with a bmi (the model
+    layer's own call on those rows), and the verdict counts the 50 patients left out.
+    Dates given as text (no as-of date: not interim) are read as dates."""
+    bmi = whas_trial.column("bmi").copy()
+    bmi[np.arange(whas_trial.n_rows) % 10 == 3] = np.nan
+    t = whas_trial.with_columns(bmi=bmi)
+    spec = {"name": "whas", "arm": "arm", "control": "0", "signup_from": "2025-03-01",
+            "signup_to": "2025-03-31", "horizon_days": 365, "covariates": ("age", "bmi")}
+    with pytest.raises(DataError, match='bmi.*missing on 50 of 500 rows.*complete_cases'):
+        experiment_verdict(t, spec, n_boot=50)
+    v = experiment_verdict(t, spec, as_of="", n_boot=50, missing="complete_cases")
+    assert not v.interim
+    assert v.missing.rows == 50 and v.missing.customers == 50
+    cut = select_experiment(t, spec)[0]
+    keep = np.isfinite(cut.column("bmi"))
+    fit = fit_cox(cut.take(keep), ["arm", "age", "bmi"], reference={"arm": "0"})
+    row = fit.hazard_ratios.set_index("term").loc["arm 1 vs 0"]
+    assert v.adjusted[0].hazard_ratio == pytest.approx(row["hazard_ratio"], rel=1e-10)
+    assert any("50 of 500 rows left out" in w for w in v.warnings)
+    assert json.loads(v.to_json())["missing"]["rows"] == 50

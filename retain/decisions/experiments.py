@@ -283,20 +283,24 @@ def _planned_end(spec: Any) -> dt.date | None:
         nxt = dt.date(int(y) + (int(m) == 12), int(m) % 12 + 1, 1)
         last = nxt - dt.timedelta(days=1)
     elif spec_value(spec, "signup_to") is not None:
-        last = spec_value(spec, "signup_to")
+        last = _as_date(spec_value(spec, "signup_to"))
     if last is None:
         return None
     return last + dt.timedelta(days=horizon)
 
 
 def _as_date(value: Any) -> dt.date | None:
-    if value is None:
-        return None
+    if value is None or (isinstance(value, str) and not value.strip()):
+        return None  # no as-of date (a table prepared elsewhere): nothing is interim
     if isinstance(value, dt.datetime):
         return value.date()
     if isinstance(value, dt.date):
         return value
-    return dt.date.fromisoformat(str(value))
+    try:
+        return dt.date.fromisoformat(str(value).strip())
+    except ValueError as exc:
+        raise DataError("experiment dates", f"{value!r} is not a date",
+                        'write it as "YYYY-MM-DD"') from exc
 
 
 def balance_table(table: StartStop, arm: str, control: str, treatments: Sequence[str],
