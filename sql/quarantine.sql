@@ -1,6 +1,7 @@
--- quarantine: every row that could not be used, with its original text and
--- the reason. Reads `raw` (the imported log, all text, rowid = source row - 1),
--- `events` (row-level reasons) and `sequence_problems` (order reasons).
+-- quarantine: every row that could not be used, with its original text, the
+-- reason and the reason's stable code. Reads `raw` (the imported log, all text,
+-- rowid = source row - 1), `events` (row-level reasons), `sequence_problems`
+-- (order reasons) and `reason_codes` (reason -> code).
 with problems as (
     select source_row, reason from events where reason is not null
     union all
@@ -15,9 +16,11 @@ final as (
     select
         cast(o.source_row as bigint) as source_row,
         o.* exclude (source_row),
-        cast(p.reason as varchar) as quarantine_reason
+        cast(p.reason as varchar) as quarantine_reason,
+        cast(c.code as varchar) as quarantine_code
     from problems as p
     inner join originals as o on o.source_row = p.source_row
+    left join reason_codes as c on c.reason = p.reason
 )
 
 select * from final

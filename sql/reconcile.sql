@@ -1,7 +1,8 @@
 -- reconcile: what became of every input row. Each row falls in exactly one
 -- line: used (in the window), used but outside the window, ignored, or
--- quarantined with its reason. prepare.py checks that the lines add up to the
--- rows read and raises if they do not.
+-- quarantined with its reason (and the reason's stable code from
+-- `reason_codes`; empty on the other lines). prepare.py checks that the lines
+-- add up to the rows read and raises if they do not.
 with row_fates as (
     select 'ignored' as outcome, '' as reason, count(*) as n_rows
     from events
@@ -24,11 +25,20 @@ with row_fates as (
     group by outside_window
 ),
 
-final as (
-    select cast(outcome as varchar) as outcome, cast(reason as varchar) as reason,
-           cast(sum(n_rows) as bigint) as n_rows
+counted as (
+    select outcome, reason, sum(n_rows) as n_rows
     from row_fates
     group by outcome, reason
+),
+
+final as (
+    select
+        cast(f.outcome as varchar) as outcome,
+        cast(f.reason as varchar) as reason,
+        cast(coalesce(c.code, '') as varchar) as code,
+        cast(f.n_rows as bigint) as n_rows
+    from counted as f
+    left join reason_codes as c on c.reason = f.reason
 )
 
 select * from final

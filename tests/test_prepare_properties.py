@@ -21,7 +21,7 @@ from zoneinfo import ZoneInfo
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from test_prepare_support import HEADER, run
+from test_prepare_support import run
 
 from retain.errors import DataError
 

@@ -3,6 +3,9 @@ the three kinds of source (CSV, Parquet, a DuckDB table) giving the same table."
 
 from __future__ import annotations
 
+import re
+from pathlib import Path
+
 import duckdb
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
@@ -11,6 +14,7 @@ from test_prepare_support import CORE, project, rows_of, run, toml_text, write_l
 
 from retain.data.config import load_config
 from retain.data.prepare import prepare, write_outputs
+from retain.data.reasons import REASONS, code_of
 from retain.errors import DataError
 
 S = ("search", "north", "standard")
@@ -50,6 +54,8 @@ def test_each_quarantine_reason(tmp_path, reason, extra):
     r = p.reconciliation
     q = p.quarantine.to_pylist()
     assert [row["quarantine_reason"] for row in q] == [reason]
+    assert [row["quarantine_code"] for row in q] == [code_of(reason)]
+    assert r.by_code == {code_of(reason): 1}
     # the quarantined row is the last one written (source rows count from 1, header excluded)
     if reason not in ("event before the customer's first start", "unknown churn reason"):
         assert q[0]["source_row"] == len(GOOD) + len(extra)
@@ -65,7 +71,8 @@ def test_quarantine_keeps_the_original_text(tmp_path):
     assert q == {"source_row": 3, "account": "a", "occurred_at": "2024-01-10",
                  "kind": "price_change", "cancel_reason": None, "plan": None,
                  "monthly_price": " N/A ", "channel": None, "region": None, "arm": None,
-                 "quarantine_reason": "non-numeric value in a numeric attribute"}
+                 "quarantine_reason": "non-numeric value in a numeric attribute",
+                 "quarantine_code": "non_numeric_attribute"}
 
 
 def test_of_exact_duplicates_the_first_is_used(tmp_path):
@@ -185,3 +192,48 @@ def test_duplicates_compare_numbers_as_numbers_and_times_to_the_second(tmp_path)
                        ("a", "2024-01-31 09:00:00", "cancel")])
     assert [(r["source_row"], r["quarantine_reason"]) for r in p.quarantine.to_pylist()] == [
         (2, "exact duplicate"), (4, "end without an open spell")]
+
+
+def _sql_reasons() -> set[str]:
+    """Every reason sentence the SQL steps can write: the text literals after ``then`` in
+    normalise.sql and sequence.sql, and the literal that repeats.sql casts as its reason
+    (read from the files, so a new reason cannot slip past)."""
+    from retain.paths import SQL_DIR
+
+    found: set[str] = set()
+    for name in ("normalise", "sequence"):
+        text = re.sub(r"--[^\n]*", "", (SQL_DIR / f"{name}.sql").read_text(encoding="utf-8"))
+        found |= {m.replace("''", "'") for m in re.findall(r"\bthen\s+'((?:[^']|'')*)'", text)}
+    text = (SQL_DIR / "repeats.sql").read_text(encoding="utf-8")
+    found |= set(re.findall(r"cast\('([^']*)' as varchar\) as reason", text))
+    return found
+
+
+def test_every_reason_the_sql_writes_has_a_stable_code():
+    sql = _sql_reasons()
+    assert len(sql) >= 14 and "exact duplicate" in sql and "missing id" in sql
+    table = {r.sentence for r in REASONS}
+    assert sql - table == set(), "add these reasons to retain/data/reasons.py"
+    assert table - sql == set(), "these reasons in retain/data/reasons.py are never written"
+    codes = [r.code for r in REASONS]
+    assert len(set(codes)) == len(codes)
+    assert all(re.fullmatch(r"[a-z][a-z_]*[a-z]", c) and len(c) <= 24 for c in codes)
+    # the one table in DEVELOPERS.md lists each code with its sentence
+    doc = (Path(__file__).resolve().parents[1] / "DEVELOPERS.md").read_text(encoding="utf-8")
+    for r in REASONS:
+        assert f"| `{r.code}` | {r.sentence} |" in doc
+
+
+def test_codes_reach_the_quarantine_files_and_the_reconciliation(tmp_path):
+    rows = GOOD + [signup(None, "2024-01-05"), ("a", "2024-01-10", "teleport"),
+                   ("a", "2024-01-31", "cancel")]
+    p = run(tmp_path, rows)
+    assert p.reconciliation.by_code == {"missing_id": 1, "unknown_event": 1,
+                                        "exact_duplicate": 1}
+    assert p.reconciliation.by_reason == {"missing id": 1, "unknown event": 1,
+                                          "exact duplicate": 1}
+    paths = write_outputs(p, tmp_path / "out")
+    for table in (pq.read_table(paths["quarantine"]), pacsv.read_csv(paths["quarantine_csv"])):
+        assert table.column("quarantine_code").to_pylist() == [
+            "missing_id", "unknown_event", "exact_duplicate"]
+    assert '"by_code"' in paths["reconciliation_json"].read_text()

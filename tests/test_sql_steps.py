@@ -122,13 +122,16 @@ def test_quarantine_reconcile_and_unknown_event_columns(con):
         ("source_row", "BIGINT"), ("account", "VARCHAR"), ("occurred_at", "VARCHAR"),
         ("kind", "VARCHAR"), ("cancel_reason", "VARCHAR"), ("plan", "VARCHAR"),
         ("monthly_price", "VARCHAR"), ("channel", "VARCHAR"), ("region", "VARCHAR"),
-        ("arm", "VARCHAR"), ("quarantine_reason", "VARCHAR")]
+        ("arm", "VARCHAR"), ("quarantine_reason", "VARCHAR"), ("quarantine_code", "VARCHAR")]
     r = run_step(con, "reconcile")
     assert list(zip(r.columns, map(str, r.types), strict=True)) == [
-        ("outcome", "VARCHAR"), ("reason", "VARCHAR"), ("n_rows", "BIGINT")]
-    assert r.fetchall() == [("ignored", "", 0),
-                            ("quarantined", "event before the customer's first start", 1),
-                            ("quarantined", "unknown event", 1), ("used", "", 3)]
+        ("outcome", "VARCHAR"), ("reason", "VARCHAR"), ("code", "VARCHAR"),
+        ("n_rows", "BIGINT")]
+    assert r.fetchall() == [
+        ("ignored", "", "", 0),
+        ("quarantined", "event before the customer's first start", "before_first_start", 1),
+        ("quarantined", "unknown event", "unknown_event", 1), ("used", "", "", 3)]
+    assert schema(con, "reason_codes") == [("reason", "VARCHAR"), ("code", "VARCHAR")]
     u = run_step(con, "unknown_events")
     assert list(zip(u.columns, map(str, u.types), strict=True)) == [
         ("value", "VARCHAR"), ("n_rows", "BIGINT")]
@@ -149,13 +152,14 @@ def test_compress_table_on_any_arrow_start_stop_table(con):
 
 
 @pytest.mark.parametrize("step,params", [
-    ("normalise", {"timezone", "time_kind", "time_pattern", "as_of", "event_from", "event_to", "event_ignore", "reason_from",
-                   "reason_to", "reason_ignore"}),
+    ("normalise", {"timezone", "time_kind", "time_pattern", "as_of", "event_from", "event_to",
+                   "event_ignore", "reason_from", "reason_to", "reason_ignore"}),
     ("states", {"window_start"}), ("troubled", set()), ("sequence", set()), ("spells", set()),
     ("state_input_all", set()), ("state_input_redo", set()),
     ("exposure_running", set()), ("repeats", set()), ("reorder", set()),
     ("intervals", {"as_of", "window_start"}),
     ("compress", set()), ("quarantine", set()), ("reconcile", set()),
+    ("reason_codes", {"reason_sentences", "reason_codes"}),
     ("import_csv", {"path", "delimiter", "quote", "escape", "header", "encoding", "columns"}),
     ("import_parquet", {"path"}), ("import_table", set()),
 ])

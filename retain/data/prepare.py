@@ -41,6 +41,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
 from retain.data.config import Config
+from retain.data.reasons import reason_parameters
 from retain.data.source import MALFORMED, import_csv
 from retain.data.sqlsteps import run_step
 from retain.data.table import StartStop
@@ -64,7 +65,8 @@ class Reconciliation(Result):
     Lines (``outcome``, ``reason``, ``n_rows``): ``used`` (an event of a spell in
     the window), ``outside window`` (an event of a spell that ended on or before
     the window's first day), ``ignored`` (an event value listed in
-    ``[events] ignore``) and ``quarantined`` by reason.
+    ``[events] ignore``) and ``quarantined`` by reason. ``by_code`` holds the same
+    quarantined counts under each reason's stable code (retain/data/reasons.py).
     """
 
     source: str
@@ -79,6 +81,7 @@ class Reconciliation(Result):
     n_intervals: int
     n_churns: int
     churns_by_cause: dict[str, int] = field(default_factory=dict)
+    by_code: dict[str, int] = field(default_factory=dict)
 
     def to_frame(self) -> pd.DataFrame:
         rows = [("rows in", "", self.rows_in), ("used", "", self.used),
@@ -349,16 +352,23 @@ class _Fates:
     rows_in: int
     counts: dict[str, int]
     by_reason: dict[str, int]
+    by_code: dict[str, int]
 
 
 def _row_fates(con: duckdb.DuckDBPyConnection, config: Config) -> _Fates:
     rows_in = int(con.execute("select count(*) from raw").fetchall()[0][0])
     lines = run_step(con, "reconcile").fetchall()
     by_reason: dict[str, int] = {}
+    by_code: dict[str, int] = {}
     counts = {"used": 0, "outside window": 0, "ignored": 0}
-    for outcome, reason, n in lines:
+    for outcome, reason, code, n in lines:
         if outcome == "quarantined":
+            if not code:
+                raise ReconciliationError(
+                    config.source.label, f"quarantine reason {reason!r} has no code",
+                    "this is a bug in retain: add it to retain/data/reasons.py")
             by_reason[reason] = by_reason.get(reason, 0) + int(n)
+            by_code[code] = by_code.get(code, 0) + int(n)
         else:
             counts[outcome] += int(n)
     quarantined = sum(by_reason.values())
@@ -369,7 +379,7 @@ def _row_fates(con: duckdb.DuckDBPyConnection, config: Config) -> _Fates:
             f"rows in ({rows_in}) != used ({counts['used']}) + outside window "
             f"({counts['outside window']}) + ignored ({counts['ignored']}) + quarantined "
             f"({quarantined})", "this is a bug in retain: please report it with the log")
-    return _Fates(rows_in, counts, by_reason)
+    return _Fates(rows_in, counts, by_reason, by_code)
 
 
 def _shown_source(config: Config) -> str:
@@ -396,7 +406,7 @@ def _reconciliation(config: Config, fates: _Fates, table: pa.Table, customers: i
                           quarantined=sum(fates.by_reason.values()), by_reason=fates.by_reason,
                           n_customers=int(customers), n_spells=int(spells),
                           n_intervals=table.num_rows, n_churns=sum(by_cause.values()),
-                          churns_by_cause=by_cause)
+                          churns_by_cause=by_cause, by_code=fates.by_code)
 
 
 # ---------------------------------------------------------------------- entry points
@@ -415,6 +425,8 @@ def run_steps(con: duckdb.DuckDBPyConnection, config: Config, *,
     """
     timer = timer if timer is not None else _Timer(con, progress)
     params = _params(config)
+    # the quarantine reasons' codes, for the quarantine and reconcile steps
+    run_step(con, "reason_codes", reason_parameters(), create="reason_codes")
     timer.run("import", lambda: _import(con, config), "raw")
     timer.step = "column mapping"
     _source_view(con, config)
