@@ -315,6 +315,13 @@ def test_user_bands_numpy_and_duckdb_agree_with_loops(seed, tmp_path):
         np.testing.assert_allclose(f["churns"], churn, rtol=0, atol=1e-12)
     for col in NUMERIC + ["survivors"]:
         np.testing.assert_allclose(a[col], b[col], rtol=1e-10, atol=1e-10, err_msg=col)
+    # by segment: the same in both engines, and the segments add up to the whole
+    a = decrement_table(t, band_edges=edges, by="plan", engine="numpy").frame
+    b = decrement_table(t.to_arrow(), band_edges=edges, by="plan").frame
+    assert list(a["segment"]) == list(b["segment"]) and list(a["month"]) == list(b["month"])
+    for col in NUMERIC + ["survivors", "survivors_lower"]:
+        np.testing.assert_allclose(a[col], b[col], rtol=1e-10, atol=1e-10, err_msg=col)
+    np.testing.assert_allclose(a.groupby("month")["exposure"].sum() * D, expo, rtol=1e-11)
 
 
 @pytest.mark.parametrize("kw, text", [
