@@ -128,3 +128,15 @@ def test_decrement_edges_reach_the_decrements_page():
     keys = [f.key for s in page.sections for f in s.figures]
     assert "decrements-bands" in keys
     assert run_table(t, RunOptions()).get("decrements:bands").kind == "absent"
+
+
+def test_merged_bands_with_a_covariate_equal_the_fit_on_the_merged_cuts():
+    """With a covariate (Newton path) the merged fit is the fit on the cuts that remain."""
+    t = StartStop([0.0] * 8, [40, 50, 70, 90, 20, 45, 80, 100], [1, 1, 1, 0, 0, 1, 1, 0],
+                  covariates={"x": [0.1, 0.9, 0.4, 0.3, 0.8, 0.5, 0.2, 0.7]})
+    merged = fit_piecewise(t, cuts=[30, 60], covariates=["x"])
+    direct = fit_piecewise(t, cuts=[60], covariates=["x"])
+    assert merged.cuts == direct.cuts == (60.0,) and len(merged.merged_bands) == 1
+    np.testing.assert_allclose(merged.params, direct.params, rtol=1e-10)
+    np.testing.assert_allclose(merged.cov, direct.cov, rtol=1e-8)
+    assert merged.loglik == pytest.approx(direct.loglik, rel=1e-12)
