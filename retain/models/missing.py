@@ -33,6 +33,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 
 from retain.data.completeness import missing_mask
 from retain.data.table import Categorical, StartStop
@@ -85,9 +86,7 @@ class MissingCovariates(Result):
         """Whether the rule changed anything (rows dropped or a level added)."""
         return bool(self.rows or self.levels_added)
 
-    def to_frame(self):  # noqa: ANN201 - pandas is imported lazily by callers
-        import pandas as pd
-
+    def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([{"rule": self.rule, "rows_dropped": self.rows,
                               "customers_with_dropped_rows": self.customers,
                               "customers_lost": self.customers_lost,
