@@ -274,3 +274,22 @@ def test_too_little_memory_names_the_memory_limit(tmp_path):
     assert "Out of Memory Error" in msg and msg.endswith(
         'raise memory_limit (e.g. "4GB") or set [engine] temp_directory so DuckDB can spill '
         "to disk")
+
+
+def test_mixed_line_ends_are_read_record_by_record(tmp_path):
+    # one file with LF, CRLF and CR record ends (files joined from several exports);
+    # a CRLF inside quotes stays in the value
+    body = (HEAD + "\r\n" + "a,2024-01-01,signup,,Gold #2\n"
+            + "b,2024-01-02,signup,,\"x\r\ny\"\r"
+            + "c,2024-01-03,signup\n"                       # too few fields
+            + "d,2024-01-04,signup,,\"bad\"quote\r\n"       # a bad quote
+            + "e,2024-01-05,signup,,\n").encode("utf-8")
+    p = prepare(write(tmp_path, body))
+    rec = p.reconciliation
+    assert rec.rows_in == 5 and rec.used == 3
+    assert rec.by_reason == {"malformed CSV record": 2}
+    q = p.quarantine.to_pylist()
+    assert [(r["source_row"], r["malformed_record"]) for r in q] == [
+        (3, "c,2024-01-03,signup"), (4, 'd,2024-01-04,signup,,"bad"quote')]
+    plans = {r["customer_id"]: r["plan"] for r in p.arrow.to_pylist()}
+    assert plans == {"a": "Gold #2", "b": "x\r\ny", "e": None}

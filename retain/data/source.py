@@ -103,10 +103,87 @@ def import_csv(con: duckdb.DuckDBPyConnection, config: Config) -> None:
               "columns": {name: "varchar" for name in names}}
     con.execute(f"drop table if exists {_REJECTS}")
     con.execute(f"drop table if exists {_SCANS}")
-    run_step(con, "import_csv", params, create="raw")
+    try:
+        run_step(con, "import_csv", params, create="raw")
+    except duckdb.InvalidInputException:
+        # DuckDB's strict reader stops on some files a CSV reader must still take
+        # (line ends mixed within one file): read those record by record instead
+        _import_by_record(con, src, names)
+        return
     n_bad = con.execute(f"select count(*) from {_REJECTS}").fetchone()[0]
     if n_bad:
         _place_malformed(con, src, names)
+
+
+def _import_by_record(con: duckdb.DuckDBPyConnection, src: SourceConfig,
+                      names: list[str]) -> None:
+    """``raw`` from Python's csv reader (the slow path): ``\\n``, ``\\r\\n`` and ``\\r`` all
+    end a record outside quotes and are kept inside them; a record with the wrong
+    number of fields or a bad quote is kept as a malformed record with its text."""
+    import pyarrow as pa
+
+    d = src.dialect
+    n = len(names)
+    columns: list[list[str | None]] = [[] for _ in range(n)]
+    malformed: list[str | None] = []
+    for path in _files(src):
+        try:
+            with _open_text(path, d.encoding) as fh:
+                for fields, text in _records(fh, d, skip_header=d.header):
+                    if fields is not None and len(fields) == n:
+                        for i, value in enumerate(fields):
+                            columns[i].append(value if value != "" else None)
+                        malformed.append(None)
+                    else:
+                        for column in columns:
+                            column.append(None)
+                        malformed.append(text)
+        except (OSError, UnicodeDecodeError) as exc:
+            detail = (str(exc).splitlines() or [""])[0]
+            raise DataError(path, f"cannot be read as csv ({type(exc).__name__}: {detail})",
+                            "check the file and [source] in retain.toml (encoding: "
+                            f"{d.encoding})") from exc
+    arrays = {name: pa.array(values, type=pa.string()) for name, values in zip(names, columns,
+                                                                               strict=True)}
+    if any(m is not None for m in malformed):
+        arrays[MALFORMED] = pa.array(malformed, type=pa.string())
+    table = pa.table(arrays)
+    con.register("retain_records", table)
+    try:
+        con.execute("create or replace table raw as select * from retain_records")
+    finally:
+        con.unregister("retain_records")
+
+
+def _records(fh: io.TextIOBase, d: CsvDialect, *, skip_header: bool) -> Any:
+    """(fields or None, the record's text) for every record; blank lines are skipped."""
+    consumed: list[str] = []
+
+    def lines() -> Any:
+        for line in fh:
+            consumed.append(line)
+            yield line
+
+    reader = csv.reader(lines(), delimiter=d.delimiter, quotechar=d.quote,
+                        doublequote=d.escape == d.quote,
+                        escapechar=None if d.escape == d.quote else d.escape, strict=True)
+    first = True
+    while True:
+        consumed.clear()
+        try:
+            fields = next(reader)
+        except StopIteration:
+            return
+        except csv.Error:
+            fields = None
+        text = "".join(consumed).rstrip("\r\n")
+        if fields == []:
+            continue
+        if first and skip_header:
+            first = False
+            continue
+        first = False
+        yield fields, text
 
 
 def _place_malformed(con: duckdb.DuckDBPyConnection, src: SourceConfig,
