@@ -16,6 +16,7 @@ __version__ = "0.1.0"
 _WHERE: dict[str, str] = {
     "load_config": "retain.data.config",
     "prepare": "retain.data.prepare",
+    "project": "retain.data.project",
     "write_outputs": "retain.data.prepare",
     "Categorical": "retain.data.table",
     "StartStop": "retain.data.table",
@@ -79,6 +80,7 @@ __all__ = [
     "nelson_aalen",
     "plan_experiment",
     "prepare",
+    "project",
     "residual_value",
     "retention_grid",
     "rmst_difference",
@@ -111,6 +113,7 @@ def __dir__() -> list[str]:
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors only
     from retain.data.config import load_config
     from retain.data.prepare import prepare, write_outputs
+    from retain.data.project import project
     from retain.data.table import Categorical, StartStop
     from retain.decisions.experiments import experiment_verdict
     from retain.decisions.planning import events_needed, plan_experiment

@@ -420,7 +420,7 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
                               f"add a [{required}] section (see DEVELOPERS.md)")
 
     source = _source(_Section(file, "source", data["source"],
-                              ("path", "duckdb", "table", "format", *CSV_KEYS)), base)
+                              ("path", "duckdb", "table", "format", "data", *CSV_KEYS)), base)
     columns = _columns(_Section(file, "columns", data["columns"],
                                 ("customer_id", "event_time", "event", "reason",
                                  "time_format")))
@@ -451,6 +451,8 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
 
 
 def _source(s: _Section, base: Path) -> SourceConfig:
+    if s.has("data"):
+        return _memory_source(s)
     p = s.text("path")
     db = s.text("duckdb")
     table = s.text("table")
@@ -494,6 +496,31 @@ def _source(s: _Section, base: Path) -> SourceConfig:
     if any(ch in p for ch in "*?[") and not list(full.parent.glob(full.name)):
         raise ConfigError(s.where("path"), f"no file matches {full}", "fix the pattern")
     return SourceConfig(path=full, duckdb=None, table=None, format=fmt, dialect=dialect)
+
+
+def _is_table(obj: Any) -> bool:
+    """A pandas DataFrame, a pyarrow Table or RecordBatch, or a DuckDB relation."""
+    import duckdb
+    import pyarrow as pa
+
+    if isinstance(obj, (pa.Table, pa.RecordBatch, duckdb.DuckDBPyRelation)):
+        return True
+    pandas = sys.modules.get("pandas")  # a DataFrame means pandas is already imported
+    return pandas is not None and isinstance(obj, pandas.DataFrame)
+
+
+def _memory_source(s: _Section) -> SourceConfig:
+    """[source] data: a DataFrame, an Arrow table or a DuckDB relation (Python only)."""
+    obj = s.data["data"]
+    others = [k for k in ("path", "duckdb", "table", "format", *CSV_KEYS) if s.has(k)]
+    if others:
+        raise ConfigError(s.where(others[0]), "does not apply with data (a table in memory)",
+                          f"remove {others[0]}")
+    if not _is_table(obj):
+        raise ConfigError(s.where("data"), f"a {type(obj).__name__} is not a table retain can "
+                          "read", "give a pandas DataFrame, a pyarrow Table or a DuckDB "
+                          "relation (or a path to a CSV or Parquet file)")
+    return SourceConfig(path=None, duckdb=None, table=None, format="memory", data=obj)
 
 
 def _one_character(s: _Section, key: str, default: str) -> str:

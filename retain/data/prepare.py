@@ -181,6 +181,16 @@ def _import(con: duckdb.DuckDBPyConnection, config: Config) -> None:
             con.execute("create or replace view source_table as select * from user_db."
                         + ".".join(_ident(p) for p in parts))
             run_step(con, "import_table", create="raw")
+        elif src.format == "memory":
+            data = src.data
+            if isinstance(data, duckdb.DuckDBPyRelation):
+                # runs on the relation's own connection, streamed into ours
+                data = data.to_arrow_reader()
+            con.register("source_table", data)
+            try:
+                run_step(con, "import_table", create="raw")
+            finally:
+                con.unregister("source_table")
         elif src.format == "parquet":
             run_step(con, "import_parquet", {"path": str(src.path)}, create="raw")
         else:
