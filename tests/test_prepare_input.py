@@ -14,7 +14,7 @@ from test_prepare_support import toml_text
 
 from retain.data.config import load_config
 from retain.data.prepare import prepare
-from retain.errors import ConfigError
+from retain.errors import ConfigError, DataError
 
 ATTRS = """
 [attributes.plan]
@@ -293,3 +293,12 @@ def test_mixed_line_ends_are_read_record_by_record(tmp_path):
         (3, "c,2024-01-03,signup"), (4, 'd,2024-01-04,signup,,"bad"quote')]
     plans = {r["customer_id"]: r["plan"] for r in p.arrow.to_pylist()}
     assert plans == {"a": "Gold #2", "b": "x\r\ny", "e": None}
+
+
+def test_a_wrong_delimiter_is_pointed_at(tmp_path):
+    body = b"account;occurred_at;kind;cancel_reason;plan\n1;2024-01-01;signup;;x\n"
+    with pytest.raises(DataError) as err:
+        prepare(write(tmp_path, body))
+    assert err.value.message.endswith(
+        "columns found: account;occurred_at;kind;cancel_reason;plan (one column only: is "
+        "[source] delimiter ',' the file's?)")

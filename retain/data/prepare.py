@@ -199,6 +199,9 @@ def _import(con: duckdb.DuckDBPyConnection, config: Config) -> None:
         raise  # prepare names [engine] memory_limit
     except duckdb.Error as exc:
         first = _first_line(exc)
+        if src.format == "memory":
+            raise DataError(src.label, f"cannot be read ({first})",
+                            "give columns DuckDB can read (text, numbers, times)") from exc
         raise DataError(src.label, f"cannot be read as {src.format} ({first})",
                         "check the file and [source] in retain.toml") from exc
 
@@ -236,9 +239,13 @@ def _source_view(con: duckdb.DuckDBPyConnection, config: Config) -> None:
         wanted.append((a.prefix + a.name, a.column, f"[attributes.{a.name}] column"))
     for _, theirs, key in wanted:
         if theirs not in found:
+            hint = ""
+            if config.source.format == "csv" and len(found) == 1:
+                hint = (f" (one column only: is [source] delimiter "
+                        f"{config.source.dialect.delimiter!r} the file's?)")
             raise DataError(f"{config.source.label}", f"has no column {theirs!r} (named by "
                             f"{key} in {config.path})",
-                            f"columns found: {', '.join(found)}")
+                            f"columns found: {', '.join(found)}{hint}")
     select = ["rowid + 1 as source_row"]
     select += [f"{_ident(theirs)} as {_ident(ours)}" for ours, theirs, _ in wanted]
     # a CSV record that did not split into the columns (see retain/data/source.py)
