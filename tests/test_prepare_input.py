@@ -283,7 +283,7 @@ def test_mixed_line_ends_are_read_record_by_record(tmp_path):
             + "b,2024-01-02,signup,,\"x\r\ny\"\r"
             + "c,2024-01-03,signup\n"                       # too few fields
             + "d,2024-01-04,signup,,\"bad\"quote\r\n"       # a bad quote
-            + "e,2024-01-05,signup,,\n").encode("utf-8")
+            + "e,2024-01-05,signup,,,,\n").encode("utf-8")      # trailing empty fields
     p = prepare(write(tmp_path, body))
     rec = p.reconciliation
     assert rec.rows_in == 5 and rec.used == 3
@@ -302,3 +302,21 @@ def test_a_wrong_delimiter_is_pointed_at(tmp_path):
     assert err.value.message.endswith(
         "columns found: account;occurred_at;kind;cancel_reason;plan (one column only: is "
         "[source] delimiter ',' the file's?)")
+
+
+def test_malformed_records_in_several_files_keep_their_places(tmp_path):
+    # a glob reads the files in name order; source_row counts records across them.
+    # (Extra fields that are all empty, "d,,,,,,", are not an error: no value is lost.)
+    one = crlf([HEAD, "a,2024-01-01,signup,,x", "a,2024-01-02", "b,2024-01-03,signup,,y"],
+               bom=False)
+    two = crlf([HEAD, "", "c,2024-01-04,signup,,z", "d,1,2,3,4,5", "e,2024-01-05,signup,,w"],
+               bom=False)
+    (tmp_path / "log_1.csv").write_bytes(one)
+    (tmp_path / "log_2.csv").write_bytes(two)
+    cfg = write(tmp_path, b"", source='path = "log_*.csv"')
+    p = prepare(cfg)
+    assert p.reconciliation.rows_in == 6 and p.reconciliation.used == 4
+    q = p.quarantine.to_pylist()
+    assert [(r["source_row"], r["malformed_record"]) for r in q] == [
+        (2, "a,2024-01-02"), (5, "d,1,2,3,4,5")]
+    assert sorted(r["customer_id"] for r in p.arrow.to_pylist()) == ["a", "b", "c", "e"]

@@ -130,6 +130,8 @@ def _import_by_record(con: duckdb.DuckDBPyConnection, src: SourceConfig,
         try:
             with _open_text(path, d.encoding) as fh:
                 for fields, text in _records(fh, d, skip_header=d.header):
+                    if fields is not None and len(fields) > n and not any(fields[n:]):
+                        fields = fields[:n]  # trailing empty fields, as DuckDB takes them
                     if fields is not None and len(fields) == n:
                         for i, value in enumerate(fields):
                             columns[i].append(value if value != "" else None)

@@ -14,12 +14,13 @@ from typing import TYPE_CHECKING
 
 import pyarrow.compute as pc
 
+from retain.data.reasons import REASONS
 from retain.errors import DataError
 
 if TYPE_CHECKING:  # pragma: no cover
     from retain.data.prepare import Prepared
 
-UNPARSEABLE = "unparseable time"
+UNPARSEABLE = next(r.sentence for r in REASONS if r.code == "unparseable_time")
 SAMPLES = 3
 
 
