@@ -64,6 +64,7 @@ def projects(draw):
         "zone": draw(st.sampled_from(ZONES)),
         "time_format": draw(st.sampled_from(FORMATS)),
         "ignore": draw(st.booleans()),
+        "delimiter": draw(st.sampled_from([",", ",", ";", "\t"])),
     }
 
 
@@ -114,7 +115,7 @@ def write_project(folder, project, rows, malformed) -> int:
     header = ["id", "time", "event"] + (["why"] if project["reason"] else []) + \
         [name for name, *_ in project["attrs"]]
     with open(folder / "events.csv", "w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
+        w = csv.writer(fh, delimiter=project["delimiter"])
         w.writerow(header)
         w.writerows(rows)
         if malformed is not None:
@@ -125,7 +126,8 @@ def write_project(folder, project, rows, malformed) -> int:
     if project["time_format"]:
         columns += f'time_format = "{project["time_format"]}"\n'
     events = ", ".join(f'{k} = "{v}"' for k, v in EVENTS.items())
-    text = (f'[source]\npath = "events.csv"\n\n[columns]\n{columns}\n'
+    delimiter = {",": ",", ";": ";", "\t": "\\t"}[project["delimiter"]]
+    text = (f'[source]\npath = "events.csv"\ndelimiter = "{delimiter}"\n\n[columns]\n{columns}\n'
             f"[events]\nmap = {{ {events} }}\n"
             + ('ignore = ["noise"]\n' if project["ignore"] else "") + "\n")
     if project["reason"] and project["reason_map"]:
@@ -143,9 +145,9 @@ def write_project(folder, project, rows, malformed) -> int:
     return len(rows) + (malformed is not None)
 
 
-def read_header(path) -> list[str]:
+def read_header(path, delimiter: str) -> list[str]:
     with open(path, newline="", encoding="utf-8") as fh:
-        return next(csv.reader(fh))
+        return next(csv.reader(fh, delimiter=delimiter))
 
 
 @settings(max_examples=60, deadline=None, derandomize=True, database=None,
@@ -162,7 +164,7 @@ def test_prepare_succeeds_and_balances_or_raises_a_retain_error(tmp_path_factory
         config = load_config(folder / "retain.toml")
         if in_memory:
             doc = tomllib.loads((folder / "retain.toml").read_text(encoding="utf-8"))
-            header = read_header(folder / "events.csv")
+            header = read_header(folder / "events.csv", project["delimiter"])
             table = pa.table({name: pa.array([r[i] or None for r in rows], type=pa.string())
                               for i, name in enumerate(header)})
             doc.pop("source")
