@@ -320,3 +320,29 @@ def test_malformed_records_in_several_files_keep_their_places(tmp_path):
     assert [(r["source_row"], r["malformed_record"]) for r in q] == [
         (2, "a,2024-01-02"), (5, "d,1,2,3,4,5")]
     assert sorted(r["customer_id"] for r in p.arrow.to_pylist()) == ["a", "b", "c", "e"]
+
+
+def test_a_header_naming_a_column_twice_is_refused(tmp_path):
+    body = b"account,occurred_at,kind,cancel_reason,Plan,plan\n1,2024-01-01,signup,,x,y\n"
+    with pytest.raises(DataError) as err:
+        prepare(write(tmp_path, body))
+    assert err.value.message == (f"{tmp_path / 'events.csv'}: the header names column 'plan' "
+                                 "twice -- give every column its own name in the first row")
+
+
+def test_an_engine_error_in_a_step_becomes_one_line_naming_the_step(tmp_path):
+    import duckdb
+
+    from retain.data.prepare import _engine_error
+
+    cfg = simple(tmp_path, [])
+    with pytest.raises(duckdb.Error) as raised:   # a real engine error, as a step would meet
+        duckdb.connect().execute("select to_timestamp(1e20)")
+    err = _engine_error(raised.value, "normalise", cfg)
+    assert isinstance(err, DataError)
+    assert err.message == (
+        f"{tmp_path / 'events.csv'}: preparation step 'normalise': the engine stopped "
+        "(ConversionException: Conversion Error: Epoch seconds out of range for TIMESTAMP WITH "
+        f"TIME ZONE) -- check the log against [source] and [columns] in "
+        f"{tmp_path / 'retain.toml'}; if they match, this is a bug in retain: rerun with "
+        "--debug and report it")

@@ -586,12 +586,15 @@ def _time_format(s: _Section) -> str | None:
                           "nor an epoch unit", fix)
     import duckdb
 
+    con = duckdb.connect()
     try:
-        duckdb.execute("select try_strptime('', ?)", [fmt]).fetchall()
+        con.execute("select try_strptime('', ?)", [fmt]).fetchall()
     except duckdb.Error as exc:
         detail = str(exc).strip().splitlines()[0].split(": ", 1)[-1]
         raise ConfigError(s.where("time_format"), f"{fmt!r} is not a pattern DuckDB's strptime "
                           f"reads ({detail})", fix) from exc
+    finally:
+        con.close()
     return fmt
 
 

@@ -544,6 +544,8 @@ def prepare(config: Config, *, progress: Progress | None = None,
                 run_step(con, "compress").to_arrow_table()))
     except RetainError:
         raise
+    except duckdb.InterruptException as exc:  # Ctrl-C inside the engine
+        raise KeyboardInterrupt from exc
     except (duckdb.Error, pa.ArrowException) as exc:
         # no engine message reaches the user as it is: where, which step, what to do
         raise _engine_error(exc, timer.step, config) from exc
