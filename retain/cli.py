@@ -199,10 +199,14 @@ def _build_site(args: argparse.Namespace, prepared, out: Path) -> Path:  # noqa:
             print(f"  {step}", file=sys.stderr, flush=True)
 
     index, run = build_from_config(prepared.config, out, prepared=prepared, progress=show)
+    skipped = [name for name, outcome in run.outcomes.items() if outcome.skipped]
     for name, outcome in run.outcomes.items():
-        if not outcome.ok:
+        if not outcome.ok and not outcome.skipped:
             print(f"retain: warning: {name} failed and its page says why: {outcome.error}",
                   file=sys.stderr)
+    if skipped and not quiet:
+        print(f"retain: not set up in the project file (their pages say which key turns them "
+              f"on): {', '.join(skipped)}", file=sys.stderr)
     return index
 
 

@@ -28,6 +28,11 @@ from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
 BASE_VALUE_DRAWS = 200  # parameter draws for the base's interval (the residual sum is the cost)
 
 
+class NotSetUp(RetainError):
+    """A step the project file does not ask for (no covariates, no margin): recorded as
+    skipped with the key that would turn it on, never as a failure."""
+
+
 @dataclass(frozen=True)
 class Outcome:
     """What one step of the run produced: a value, or the message of its failure."""
@@ -35,11 +40,17 @@ class Outcome:
     name: str
     value: Any = None
     error: str | None = None
-    kind: str = ""  # "retain" for a RetainError, "internal" for any other exception
+    # "retain" for a RetainError, "internal" for any other exception, "skipped" for a
+    # step the project file does not ask for
+    kind: str = ""
 
     @property
     def ok(self) -> bool:
         return self.error is None
+
+    @property
+    def skipped(self) -> bool:
+        return self.kind == "skipped"
 
     def to_dict(self) -> dict[str, Any]:
         if not self.ok:
@@ -57,6 +68,8 @@ def attempt(name: str, step: Callable[[], Any]) -> Outcome:
     """
     try:
         return Outcome(name, step())
+    except NotSetUp as exc:
+        return Outcome(name, error=exc.message, kind="skipped")
     except RetainError as exc:
         return Outcome(name, error=exc.message, kind="retain")
     except Exception as exc:  # noqa: BLE001 - a bug must not take the site down
@@ -263,12 +276,15 @@ def _model_steps(table: StartStop, options: RunOptions,
     cuts = options.piecewise_cuts
 
     def cox_fit() -> Any:
+        _need_covariates(cov)
         return cox.fit_cox(table, cov, strata=list(options.strata) or None, reference=ref,
                            missing=miss)
 
     def after(name: str, what: Callable[[Any], Any]) -> Callable[[], Any]:
         def run() -> Any:
             first = done[name]
+            if first.skipped:
+                raise NotSetUp(name, "not set up", first.error or "")
             if not first.ok:
                 raise ModelError(name, "the step this one needs failed", first.error or "")
             return what(first.value)
@@ -301,11 +317,24 @@ def _model_steps(table: StartStop, options: RunOptions,
         *([("decrements:bands", lambda: decrements.decrement_table(
             table, band_edges=options.decrement_edges))] if options.decrement_edges else []),
         ("incidence", lambda: competing.cumulative_incidence(table)),
-        ("cause-cox", lambda: competing.cause_specific_cox(
+        ("cause-cox", lambda: _need_covariates(cov) or competing.cause_specific_cox(
             table, cov, strata=list(options.strata) or None, reference=ref, missing=miss)),
     ]
     steps += _decision_steps(table, options, done)
     return steps
+
+
+def _need_covariates(cov: list[str]) -> None:
+    if not cov:
+        raise NotSetUp("[model] covariates", "no covariates are named, so there is no "
+                       "hazard-ratio model", 'add covariates = ["plan", ...] to [model] in the '
+                       "project file")
+
+
+def _need_margin(spec: Mapping[str, Any]) -> None:
+    if spec.get("margin_rate") is None and spec.get("margin_per_month") is None:
+        raise NotSetUp("[value]", "no margin is set, so no lifetime value is computed",
+                       "set margin_rate (with price) or margin_per_month in [value]")
 
 
 def _actual_vs_expected(table: StartStop, basis: Any, options: RunOptions) -> Any:
@@ -330,6 +359,8 @@ def _finance_table(done: dict[str, Outcome]) -> pd.DataFrame:
     from retain.decisions import value
 
     new, base = done["value:segments"], done["value:base"]
+    if new.skipped:
+        raise NotSetUp("value:finance", "not set up", new.error or "")
     if not (new.ok or base.ok):
         raise ModelError("finance file", "neither value figure could be computed",
                          new.error or base.error or "")
@@ -347,10 +378,10 @@ def _decision_steps(table: StartStop, options: RunOptions,
     steps: list[tuple[str, Callable[[], Any]]] = []
     if spec:
         steps += [
-            ("value:all", lambda: value.value_by_segment(table, spec, (), as_of=options.as_of)),
-            ("value:segments", lambda: value.value_by_segment(table, spec, by,
+            ("value:all", lambda: _need_margin(spec) or value.value_by_segment(table, spec, (), as_of=options.as_of)),
+            ("value:segments", lambda: _need_margin(spec) or value.value_by_segment(table, spec, by,
                                                               as_of=options.as_of)),
-            ("value:base", lambda: value.base_value_by_segment(
+            ("value:base", lambda: _need_margin(spec) or value.base_value_by_segment(
                 table, spec, by, as_of=options.as_of, n_draws=BASE_VALUE_DRAWS)),
             ("value:finance", lambda: _finance_table(done)),
         ]

@@ -64,6 +64,10 @@ def _f(x: Any) -> float:
 
 
 def failure_section(title: str, outcome: Any, intro: str = "") -> Section:
+    """The section of a step that failed, or (said as a note, not an alert) one that the
+    project file does not ask for."""
+    if getattr(outcome, "kind", "") == "skipped":
+        return Section(title=title, intro=f"Not set up: {outcome.error}")
     return Section(title=title, intro=intro, failure=getattr(outcome, "error", None)
                    or "this part was not run")
 
