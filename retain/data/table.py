@@ -36,17 +36,22 @@ CAUSES = ("voluntary", "involuntary")
 
 @dataclass(frozen=True)
 class Categorical:
-    """A text column as integer codes into sorted ``levels`` (code -1 = missing)."""
+    """A column as integer codes into sorted ``levels`` (code -1 = missing).
+
+    Levels are text, except for customer ids given as integers, which stay
+    numbers (sorted numerically).
+    """
 
     codes: np.ndarray
-    levels: tuple[str, ...]
+    levels: tuple[Any, ...]
 
     def __len__(self) -> int:
         return len(self.codes)
 
     def values(self) -> np.ndarray:
         """Decoded values as an object array (missing -> None)."""
-        lv = np.array(list(self.levels) + [None], dtype=object)
+        lv = np.empty(len(self.levels) + 1, dtype=object)
+        lv[:-1] = self.levels
         return lv[self.codes]
 
     def take(self, index: np.ndarray) -> Categorical:
@@ -58,6 +63,11 @@ class Categorical:
                         minlength=len(self.levels))
         return {lv: float(c[i]) for i, lv in enumerate(self.levels)}
 
+    @property
+    def numeric(self) -> bool:
+        """Whether the levels are numbers (integer customer ids)."""
+        return bool(self.levels) and not isinstance(self.levels[0], str)
+
     @classmethod
     def from_values(cls, values: Any) -> Categorical:
         arr = pa.array(values) if not isinstance(values, (pa.Array, pa.ChunkedArray)) else values
@@ -65,33 +75,115 @@ class Categorical:
             arr = arr.combine_chunks()
         if pa.types.is_dictionary(arr.type):
             arr = arr.cast(arr.type.value_type)
-        arr = pc.cast(arr, pa.string())
+        if pa.types.is_integer(arr.type):
+            return cls.from_numbers(arr.to_numpy(zero_copy_only=False) if arr.null_count == 0
+                                    else pc.cast(arr, pa.float64()).fill_null(np.nan).to_numpy())
+        if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+            arr = pc.cast(arr, pa.string())
         # distinct values in Arrow (no Python-level sort): sorted by UTF-8 bytes, which
         # is code-point order, the order Python's sorted() gives
         encoded = pc.dictionary_encode(arr)
         dictionary = encoded.dictionary
         if len(dictionary) == 0:
             return cls(np.full(len(arr), -1, dtype=np.int32), ())
-        order = pc.sort_indices(dictionary).to_numpy()
-        rank = np.empty(len(order), dtype=np.int32)
-        rank[order] = np.arange(len(order), dtype=np.int32)
         raw = encoded.indices.fill_null(-1).to_numpy(zero_copy_only=False)
-        # a missing value's index -1 picks the appended -1
-        codes = np.append(rank, np.int32(-1))[raw]
+        if len(dictionary) < 2 or pc.all(pc.less(dictionary[:-1], dictionary[1:])).as_py():
+            # first-seen order is already sorted (a table ordered by customer): no sort
+            return cls(raw.astype(np.int32, copy=False), tuple(dictionary.to_pylist()))
+        order = pc.sort_indices(dictionary).to_numpy()
         levels = tuple(dictionary.take(pa.array(order)).to_pylist())
-        return cls(codes, levels)
+        return cls(_ranked_codes(raw, order), levels)
+
+    @classmethod
+    def from_numbers(cls, values: np.ndarray) -> Categorical:
+        """Codes for numbers (ids): one hash pass, levels sorted numerically; NaN is missing."""
+        codes, uniques = pd.factorize(np.asarray(values), sort=True, use_na_sentinel=True)
+        if uniques.dtype.kind == "f" and np.all(uniques == np.rint(uniques)) \
+                and (len(uniques) == 0 or np.abs(uniques).max() < 2**53):
+            uniques = uniques.astype(np.int64)  # float ids that are whole numbers (NaN made float)
+        return cls(codes.astype(np.int32, copy=False), tuple(uniques.tolist()))
+
+    @classmethod
+    def from_sorted(cls, values: np.ndarray) -> Categorical | None:
+        """Codes by runs, when equal values sit together and the runs ascend.
+
+        A table ordered by customer (as prepare writes it) needs no hashing of its
+        ids: one comparison of neighbours finds the runs. None when the values are
+        not so ordered, or any is missing.
+        """
+        values = np.asarray(values)
+        if len(values) < 2:
+            return None
+        change = values[1:] != values[:-1]
+        starts = np.flatnonzero(np.r_[True, change])
+        levels = values[starts]
+        if pd.isna(levels).any():
+            return None
+        if values.dtype == object and pd.api.types.infer_dtype(levels, skipna=False) != "string":
+            return None
+        if not bool(np.all(levels[1:] > levels[:-1])):
+            return None
+        codes = np.empty(len(values), dtype=np.int32)
+        codes[0] = 0
+        np.cumsum(change, out=codes[1:])
+        return cls(codes, tuple(levels.tolist()))
+
+    @classmethod
+    def from_series(cls, series: pd.Series) -> Categorical:
+        """Codes for a pandas column of text: factorised once, the distinct values sorted.
+
+        Arrow-backed strings are encoded in Arrow; a pandas categorical keeps its
+        codes (unused categories dropped); other text is hashed once by
+        :func:`pandas.factorize` and only the distinct values are sorted.
+        """
+        dtype = series.dtype
+        if isinstance(dtype, pd.CategoricalDtype):
+            cats = np.asarray(dtype.categories, dtype=object)
+            if not all(type(c) is str for c in cats):
+                return cls.from_values(pa.array(series.to_numpy(dtype=object), from_pandas=True))
+            raw = series.cat.codes.to_numpy().astype(np.int64)
+            used = np.flatnonzero(np.bincount(raw[raw >= 0], minlength=len(cats)))
+            order = used[sorted(range(len(used)), key=lambda i: cats[used[i]])]
+            return cls(_ranked_codes(raw, order, len(cats)), tuple(cats[order].tolist()))
+        if isinstance(dtype, pd.StringDtype) and dtype.storage.startswith("pyarrow"):
+            return cls.from_values(pa.array(series.array))
+        raw, uniques = pd.factorize(series, sort=False, use_na_sentinel=True)
+        uniques = np.asarray(uniques, dtype=object)
+        if len(uniques) and pd.api.types.infer_dtype(uniques, skipna=False) != "string":
+            # mixed or non-text values (dates, numbers in an object column): Arrow's rule
+            return cls.from_values(pa.array(series.to_numpy(dtype=object), from_pandas=True))
+        if len(uniques) < 2 or bool(np.all(uniques[:-1] < uniques[1:])):
+            order = np.arange(len(uniques))  # already in order (a table sorted by customer)
+        elif len(uniques) > 256:
+            order = pc.sort_indices(pa.array(uniques, type=pa.string())).to_numpy()
+        else:
+            order = np.array(sorted(range(len(uniques)), key=uniques.__getitem__), dtype=np.int64)
+        return cls(_ranked_codes(raw, order), tuple(uniques[order].tolist()))
+
+
+def _ranked_codes(raw: np.ndarray, order: np.ndarray, n_values: int | None = None
+                  ) -> np.ndarray:
+    """Codes into sorted levels, by one lookup.
+
+    ``raw`` holds codes into ``n_values`` distinct values in any order (-1 missing);
+    ``order`` lists the values kept, in level order (default: all of them).
+    """
+    n_values = len(order) if n_values is None else n_values
+    rank = np.full(n_values + 1, -1, dtype=np.int32)  # the last entry answers raw == -1
+    rank[np.asarray(order, dtype=np.int64)] = np.arange(len(order), dtype=np.int32)
+    return rank[raw]
 
 
 Column = "np.ndarray | Categorical"
 
 
-def _row_order(customer: np.ndarray, spell: np.ndarray, start: np.ndarray) -> np.ndarray:
-    """Row order by (customer, spell, start); tables from prepare are already in it."""
-    n = customer.shape[0]
+def _row_order(customer: np.ndarray, spell: np.ndarray, start: np.ndarray) -> np.ndarray | None:
+    """Row order by (customer, spell, start); None when the rows are in it already
+    (tables from prepare are)."""
     dc, ds = np.diff(customer), np.diff(spell)
     ordered = (dc > 0) | ((dc == 0) & ((ds > 0) | ((ds == 0) & (np.diff(start) >= 0))))
     if ordered.all():
-        return np.arange(n)
+        return None
     return np.lexsort((start, spell, customer))
 
 
@@ -223,7 +315,7 @@ class StartStop:
             i = int(np.flatnonzero(bad)[0])
             raise DataError(where, f"start must be >= 0 (tenure in days); {self._who(i)} has "
                             f"start {self.start[i]:g}", "tenure counts from the spell's start day")
-        bad = ~np.isin(churned, (0.0, 1.0))
+        bad = (churned != 0.0) & (churned != 1.0)
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
             raise DataError(where, f"churned must be 0 or 1; {self._who(i)} has {churned[i]!r}",
@@ -245,17 +337,22 @@ class StartStop:
                             "cause belongs on churn rows only")
         # within (customer, spell): ordered, non-overlapping, churn only on the last row
         order = _row_order(self.customer.codes, self.spell, self.start)
-        c = self.customer.codes[order]
-        s = self.spell[order]
+        in_order = order is None  # tables from prepare: no gathers below
+        if in_order:
+            order = np.arange(n)
+        c = self.customer.codes if in_order else self.customer.codes[order]
+        s = self.spell if in_order else self.spell[order]
         same = (c[1:] == c[:-1]) & (s[1:] == s[:-1])
         if same.any():
-            overlap = same & (self.start[order][1:] < self.stop[order][:-1])
+            start = self.start if in_order else self.start[order]
+            stop = self.stop if in_order else self.stop[order]
+            overlap = same & (start[1:] < stop[:-1])
             if overlap.any():
                 i = int(order[1:][np.flatnonzero(overlap)[0]])
                 raise DataError(where, f"intervals overlap within a spell: {self._who(i)} has a "
                                 f"row starting at {self.start[i]:g} before the previous row stops",
                                 "times must increase within a spell; rebuild the intervals")
-            early = same & (churned[order][:-1] == 1)
+            early = same & ((churned if in_order else churned[order])[:-1] == 1)
             if early.any():
                 i = int(order[:-1][np.flatnonzero(early)[0]])
                 raise DataError(where, f"churned = 1 on a row that is not the last of its spell "
@@ -415,8 +512,13 @@ class StartStop:
 
     # ------------------------------------------------------------------ conversion
     def to_arrow(self) -> pa.Table:
+        if self.customer.numeric:
+            ids = np.asarray(self.customer.levels)[np.maximum(self.customer.codes, 0)]
+            customer_id = pa.array(ids, mask=self.customer.codes < 0)
+        else:
+            customer_id = pa.array(self.customer.values(), type=pa.string())
         cols: dict[str, Any] = {
-            "customer_id": pa.array(self.customer.values(), type=pa.string()),
+            "customer_id": customer_id,
             "spell": pa.array(self.spell, type=pa.int64()),
             "start": pa.array(self.start, type=pa.float64()),
             "stop": pa.array(self.stop, type=pa.float64()),
@@ -495,7 +597,59 @@ class StartStop:
 
     @classmethod
     def from_frame(cls, frame: pd.DataFrame, source: str = "start-stop table") -> StartStop:
-        return cls.from_arrow(pa.Table.from_pandas(frame, preserve_index=False), source=source)
+        """From a pandas DataFrame, column by column (no detour through an Arrow table).
+
+        Numbers (numpy or nullable dtypes, booleans) are copied once as float64;
+        text is factorised once (:meth:`Categorical.from_series`); integer customer
+        ids stay numbers. Same columns and rules as :meth:`from_arrow`.
+        """
+        names = [str(c) for c in frame.columns]
+        if len(set(names)) != len(names):
+            dup = sorted({n for n in names if names.count(n) > 1})
+            raise DataError(source, f"column names repeat: {', '.join(dup)}",
+                            "give every column its own name")
+        for req in ("start", "stop", "churned"):
+            if req not in names:
+                raise DataError(source, f"required column {req!r} is missing",
+                                "a start-stop table needs start, stop and churned "
+                                f"(found: {', '.join(names)})")
+        columns = {name: frame.iloc[:, i] for i, name in enumerate(names)}
+
+        def num(name: str) -> np.ndarray:
+            return _frame_numbers(columns[name], name, source)
+
+        kwargs: dict[str, Any] = {
+            "start": num("start"), "stop": num("stop"), "churned": num("churned"),
+        }
+        if "weight" in names:
+            kwargs["weight"] = num("weight")
+        if "customer_id" in names:
+            ids = columns["customer_id"]
+            numeric = _is_number_column(ids) and ids.dtype.kind != "b"
+            if numeric and ids.dtype.kind in "iu":
+                by_runs = Categorical.from_sorted(ids.to_numpy())
+            elif ids.dtype == object:
+                by_runs = Categorical.from_sorted(ids.to_numpy())
+            else:
+                by_runs = None
+            if by_runs is None:
+                by_runs = (Categorical.from_numbers(num("customer_id")) if numeric
+                           else Categorical.from_series(ids))
+            kwargs["customer_id"] = by_runs
+        if "spell" in names:
+            kwargs["spell"] = num("spell").astype(np.int64)
+        if "cause" in names:
+            kwargs["cause"] = Categorical.from_series(columns["cause"])
+        if "start_date" in names:
+            kwargs["start_date"] = pc.cast(pa.array(columns["start_date"], from_pandas=True),
+                                           pa.date32()).to_numpy(zero_copy_only=False)
+        covs: dict[str, Any] = {}
+        for name in names:
+            if name in CORE_COLUMNS:
+                continue
+            col = columns[name]
+            covs[name] = num(name) if _is_number_column(col) else Categorical.from_series(col)
+        return cls(**kwargs, covariates=covs, source=source)
 
     @classmethod
     def from_parquet(cls, path: str | Path) -> StartStop:
@@ -510,6 +664,25 @@ class StartStop:
         """From a DuckDB relation (``con.sql(...)`` or ``con.table(...)``)."""
         return cls.from_arrow(relation.to_arrow_table() if hasattr(relation, "to_arrow_table")
                               else relation.arrow(), source=source)
+
+
+def _is_number_column(series: pd.Series) -> bool:
+    """Numbers or booleans (numpy or nullable pandas dtypes, numeric categoricals)."""
+    dtype = series.dtype
+    if isinstance(dtype, pd.CategoricalDtype):
+        return pd.api.types.is_numeric_dtype(dtype.categories.dtype)
+    return pd.api.types.is_numeric_dtype(dtype) or pd.api.types.is_bool_dtype(dtype)
+
+
+def _frame_numbers(series: pd.Series, name: str, source: str) -> np.ndarray:
+    """A column as a new float64 array (missing -> NaN): models may write to it."""
+    try:
+        if isinstance(series.dtype, pd.CategoricalDtype):
+            series = series.astype(series.dtype.categories.dtype if not
+                                   series.isna().any() else "float64")
+        return series.to_numpy(dtype=np.float64, na_value=np.nan, copy=True)
+    except (TypeError, ValueError) as exc:
+        raise DataError(source, f"column {name!r} must be numeric", "check its type") from exc
 
 
 def _coerce_covariate(name: str, values: Any) -> np.ndarray | Categorical:
