@@ -139,8 +139,30 @@ def _cmd_check(args: argparse.Namespace) -> int:
     prepared = _prepare(args, args.config)
     print(f"Read as: {prepared.config.source.describe()}")
     print_reconciliation(prepared)
+    print_completeness(prepared)
     check_thresholds(prepared)  # too many unparseable times or unknown events: exit 2
     return 0
+
+
+def print_completeness(prepared) -> None:  # noqa: ANN001 - retain.data.prepare.Prepared
+    """Missing values per attribute of the start-stop table, and what the models will do."""
+    from retain.data.completeness import missing_by_attribute
+
+    found = missing_by_attribute(prepared.table)
+    if not found.attributes:
+        return
+    if not found.incomplete:
+        print(f"Attributes: no missing values ({', '.join(found.attributes)})")
+        return
+    print("Missing values per attribute (rows of the start-stop table):")
+    for name, rows, customers in zip(found.attributes, found.rows, found.customers, strict=True):
+        if rows:
+            print(f"  {name:<24} {rows:>10,} of {found.n_rows:,} rows, {customers:,} customers")
+    model = prepared.config.model
+    hit = [c for c in model.covariates if c in found.incomplete]
+    if hit and model.missing == "stop":
+        print(f"  the models stop on these covariates ({', '.join(hit)}): set [model] missing = "
+              '"complete_cases" (or "missing_level" for categorical ones) to fit without them')
 
 
 def _args_prepare(parser: argparse.ArgumentParser) -> None:

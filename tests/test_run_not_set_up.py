@@ -94,3 +94,26 @@ def test_numeric_time_varying_attribute_without_ratio_fits(veterans_log) -> None
                     np.log(run.get("cox").value.hazard_ratios["hazard_ratio"]), strict=True))
     key = next(k for k in coef if k.startswith("karnofsky"))
     assert -0.045 < coef[key] < -0.02
+
+
+def test_check_reports_missing_values_per_attribute(veterans_log, tmp_path, capsys) -> None:
+    """`retain check` names the attribute with blanks and the key that fits without them;
+    with [model] missing = "complete_cases" the Cox fit drops exactly those customers."""
+    from retain.cli import print_completeness
+
+    frame, _, _ = veterans_log
+    frame = frame.copy()
+    starts = frame.index[frame["what"] == "enrolled"][:10]
+    frame.loc[starts, "karnofsky"] = ""  # ten patients without a score
+    attrs = {"karnofsky": {"kind": "numeric", "varies": True}}
+    prepared = prepare(_project(frame, attributes=attrs, model={"covariates": ["karnofsky"]}))
+    print_completeness(prepared)
+    out = capsys.readouterr().out
+    assert "karnofsky" in out and "10 customers" in out
+    assert "[model] missing" in out
+    config = _project(frame, attributes=attrs,
+                      model={"covariates": ["karnofsky"], "missing": "complete_cases"})
+    run = run_table(prepared.table, options_from_config(config), prepared=prepared)
+    fit = run.get("cox")
+    assert fit.ok, fit.error
+    assert fit.value.n_customers == 137 - 10
