@@ -163,3 +163,17 @@ def test_customer_codes_by_runs_or_by_hashing_agree(ids, levels, codes):
     assert t.customer.levels == levels and list(t.customer.codes) == codes
     if c is not None:
         assert c.levels == levels and list(c.codes) == codes
+
+
+def test_object_columns_of_numbers_are_numeric_as_on_the_arrow_route():
+    import pyarrow as pa
+
+    df = frame(price=pd.Series([1.5, None, 2.0], dtype=object),
+               flag=pd.Series([True, False, True], dtype=object),
+               count=pd.Series([1, 2, 3], dtype=object))
+    t = StartStop.from_frame(df)
+    _same_table(t, StartStop.from_arrow(pa.Table.from_pandas(df, preserve_index=False)))
+    np.testing.assert_array_equal(t.numeric("price"), [1.5, np.nan, 2.0])
+    np.testing.assert_array_equal(t.numeric("flag"), [1.0, 0.0, 1.0])
+    with pytest.raises(DataError, match="column 'plan' mixes kinds of values"):
+        StartStop.from_frame(frame(plan=pd.Series(["x", 2, "x"], dtype=object)))

@@ -148,6 +148,12 @@ class Categorical:
         if isinstance(dtype, pd.StringDtype) and dtype.storage.startswith("pyarrow"):
             return cls.from_values(pa.array(series.array))
         raw, uniques = pd.factorize(series, sort=False, use_na_sentinel=True)
+        return cls.from_factorized(raw, uniques, series)
+
+    @classmethod
+    def from_factorized(cls, raw: np.ndarray, uniques: Any, series: pd.Series) -> Categorical:
+        """Codes from :func:`pandas.factorize`'s ``(raw, uniques)`` of ``series``: the
+        distinct values sorted once (the rows are not hashed again)."""
         uniques = np.asarray(uniques, dtype=object)
         if len(uniques) and pd.api.types.infer_dtype(uniques, skipna=False) != "string":
             # mixed or non-text values (dates, numbers in an object column): Arrow's rule
@@ -634,12 +640,12 @@ class StartStop:
                 by_runs = None
             if by_runs is None:
                 by_runs = (Categorical.from_numbers(num("customer_id")) if numeric
-                           else Categorical.from_series(ids))
+                           else _frame_column(ids, "customer_id", source, numbers=False))
             kwargs["customer_id"] = by_runs
         if "spell" in names:
             kwargs["spell"] = num("spell").astype(np.int64)
         if "cause" in names:
-            kwargs["cause"] = Categorical.from_series(columns["cause"])
+            kwargs["cause"] = _frame_column(columns["cause"], "cause", source, numbers=False)
         if "start_date" in names:
             kwargs["start_date"] = pc.cast(pa.array(columns["start_date"], from_pandas=True),
                                            pa.date32()).to_numpy(zero_copy_only=False)
@@ -647,8 +653,7 @@ class StartStop:
         for name in names:
             if name in CORE_COLUMNS:
                 continue
-            col = columns[name]
-            covs[name] = num(name) if _is_number_column(col) else Categorical.from_series(col)
+            covs[name] = _frame_column(columns[name], name, source)
         return cls(**kwargs, covariates=covs, source=source)
 
     @classmethod
@@ -672,6 +677,29 @@ def _is_number_column(series: pd.Series) -> bool:
     if isinstance(dtype, pd.CategoricalDtype):
         return pd.api.types.is_numeric_dtype(dtype.categories.dtype)
     return pd.api.types.is_numeric_dtype(dtype) or pd.api.types.is_bool_dtype(dtype)
+
+
+def _frame_column(series: pd.Series, name: str, source: str, *, numbers: bool = True
+                  ) -> np.ndarray | Categorical:
+    """One column of a DataFrame: float64 for numbers, else a :class:`Categorical`.
+
+    The Arrow route's rule: an object column whose values are all numbers or
+    booleans is numeric (with ``numbers=True``); text is factorised once.
+    """
+    if numbers and _is_number_column(series):
+        return _frame_numbers(series, name, source)
+    try:
+        if series.dtype != object:
+            return Categorical.from_series(series)
+        raw, uniques = pd.factorize(series, sort=False, use_na_sentinel=True)
+        kind = pd.api.types.infer_dtype(uniques, skipna=True) if len(uniques) else "string"
+        if numbers and kind in ("integer", "floating", "mixed-integer-float", "boolean",
+                                "decimal"):
+            return np.append(np.asarray(uniques, dtype=np.float64), np.nan)[raw]
+        return Categorical.from_factorized(raw, uniques, series)
+    except (pa.ArrowInvalid, pa.ArrowTypeError) as exc:
+        raise DataError(source, f"column {name!r} mixes kinds of values (text and numbers)",
+                        "give every value of the column the same kind") from exc
 
 
 def _frame_numbers(series: pd.Series, name: str, source: str) -> np.ndarray:
