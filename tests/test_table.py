@@ -177,3 +177,33 @@ def test_object_columns_of_numbers_are_numeric_as_on_the_arrow_route():
     np.testing.assert_array_equal(t.numeric("flag"), [1.0, 0.0, 1.0])
     with pytest.raises(DataError, match="column 'plan' mixes kinds of values"):
         StartStop.from_frame(frame(plan=pd.Series(["x", 2, "x"], dtype=object)))
+
+
+def _copies(texts):
+    """Equal text in a new object each time (as text built row by row is)."""
+    return ["".join(list(t)) if t else t for t in texts]
+
+
+@pytest.mark.parametrize("case", ["shared", "equal copies", "missing", "distinct", "strided"])
+def test_factorizing_by_object_identity_equals_pandas_factorize(case):
+    """The identity-first coding is held to pandas.factorize itself (the reference)."""
+    from retain.data.table import _SAMPLE, _factorize_objects
+
+    rng = np.random.default_rng(7)
+    n = 3 * _SAMPLE
+    levels = np.array(["Seedling", "Bloom", "Orchard", ""], dtype=object)
+    values = levels[rng.integers(0, 4, n)]  # one object per level
+    if case == "equal copies":  # a few rows hold equal text in other objects: merged by value
+        pick = rng.choice(n, 40, replace=False)
+        values[pick] = np.array(_copies(values[pick]), dtype=object)
+    if case == "missing":
+        values[rng.random(n) < 0.1] = None
+        values[rng.random(n) < 0.05] = float("nan")
+    if case == "distinct":
+        values = np.array([f"c{i % 5000}" for i in range(n)], dtype=object)
+    if case == "strided":
+        values = np.stack([values, values[::-1]], axis=1)[:, 0]
+    codes, uniques = _factorize_objects(values)
+    expect_codes, expect_uniques = pd.factorize(values, sort=False, use_na_sentinel=True)
+    np.testing.assert_array_equal(codes, expect_codes)
+    assert list(uniques) == list(expect_uniques)

@@ -117,9 +117,10 @@ class Categorical:
         change = values[1:] != values[:-1]
         starts = np.flatnonzero(np.r_[True, change])
         levels = values[starts]
-        if pd.isna(levels).any():
-            return None
-        if values.dtype == object and pd.api.types.infer_dtype(levels, skipna=False) != "string":
+        if values.dtype == object:  # text only: None or NaN makes it "mixed"
+            if pd.api.types.infer_dtype(levels, skipna=False) != "string":
+                return None
+        elif levels.dtype.kind == "f" and np.isnan(levels).any():
             return None
         if not bool(np.all(levels[1:] > levels[:-1])):
             return None
@@ -147,7 +148,10 @@ class Categorical:
             return cls(_ranked_codes(raw, order, len(cats)), tuple(cats[order].tolist()))
         if isinstance(dtype, pd.StringDtype) and dtype.storage.startswith("pyarrow"):
             return cls.from_values(pa.array(series.array))
-        raw, uniques = pd.factorize(series, sort=False, use_na_sentinel=True)
+        if series.dtype == object:
+            raw, uniques = _factorize_objects(series.to_numpy())
+        else:
+            raw, uniques = pd.factorize(series, sort=False, use_na_sentinel=True)
         return cls.from_factorized(raw, uniques, series)
 
     @classmethod
@@ -679,6 +683,42 @@ def _is_number_column(series: pd.Series) -> bool:
     return pd.api.types.is_numeric_dtype(dtype) or pd.api.types.is_bool_dtype(dtype)
 
 
+#: rows looked at to decide whether a column shares one object per distinct value
+_SAMPLE = 4096
+
+
+def _factorize_objects(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``pandas.factorize(values)`` for an object array, hashing object identities first.
+
+    The same object is the same value, so rows are first coded by the address of
+    their object (one machine word, read from the array's buffer; no text is
+    hashed) and only the distinct objects are then coded by value. Text that
+    pandas or Arrow read shares one object per distinct value, so a million rows
+    of a few levels come down to a few objects. When a sample shows many objects
+    (an id column) or many more objects than values (text built row by row), the
+    values are hashed directly.
+    Same codes and uniques as :func:`pandas.factorize` (missing -> -1).
+    """
+    values = np.ascontiguousarray(values, dtype=object)  # holds every object while we work
+    n = len(values)
+    if n > _SAMPLE:
+        try:
+            address = np.frombuffer(values, dtype=np.intp)
+        except (TypeError, ValueError, BufferError):  # no buffer of addresses here
+            address = None
+        if address is not None and address.shape == (n,):
+            head = slice(0, _SAMPLE)
+            objects = len(pd.unique(address[head]))
+            if objects <= min(_SAMPLE // 8, 64 + 2 * len(pd.unique(values[head]))):
+                by_object, _ = pd.factorize(address, sort=False)
+                one_row = np.empty(int(by_object.max()) + 1, dtype=np.intp)
+                one_row[by_object] = np.arange(n)  # any row of each object will do
+                codes, uniques = pd.factorize(values[one_row], sort=False,
+                                              use_na_sentinel=True)
+                return codes[by_object], uniques
+    return pd.factorize(values, sort=False, use_na_sentinel=True)
+
+
 def _frame_column(series: pd.Series, name: str, source: str, *, numbers: bool = True
                   ) -> np.ndarray | Categorical:
     """One column of a DataFrame: float64 for numbers, else a :class:`Categorical`.
@@ -691,7 +731,7 @@ def _frame_column(series: pd.Series, name: str, source: str, *, numbers: bool = 
     try:
         if series.dtype != object:
             return Categorical.from_series(series)
-        raw, uniques = pd.factorize(series, sort=False, use_na_sentinel=True)
+        raw, uniques = _factorize_objects(series.to_numpy())
         kind = pd.api.types.infer_dtype(uniques, skipna=True) if len(uniques) else "string"
         if numbers and kind in ("integer", "floating", "mixed-integer-float", "boolean",
                                 "decimal"):
