@@ -343,3 +343,21 @@ def test_user_bands_are_not_a_monthly_basis():
     from retain.models.decrements import graduate
     with pytest.raises(ModelError, match="user bands of unequal width"):
         graduate(dec)
+
+
+def test_monthly_churn_exactly_on_a_month_edge():
+    """487 days = 16 x 30.4375 exactly, so a whole-day exit falls on the edge between tenure
+    months 15 and 16. Bands are (a, b]: the churn belongs to month 15, the band that ends
+    there. Rows (0, 487] churn and (0, 500] censored, worked by hand:
+      month 15 = (456.5625, 487]: exposure 30.4375 + 30.4375 days = 2 months, 1 churn;
+      month 16 = (487, 517.4375]: exposure 500 - 487 = 13 days, no churn.
+    Both engines; a band taken as [a, b) moves the churn to month 16 and fails."""
+    t = StartStop([0.0, 0.0], [487.0, 500.0], [1, 0], cause=["voluntary", ""],
+                  start_date=np.array(["2023-01-01", "2023-01-01"], dtype="datetime64[D]"))
+    for engine in ("numpy", "duckdb"):
+        f = decrement_table(t, engine=engine).frame.set_index("month")
+        assert f.loc[15, "churns"] == 1.0, engine
+        assert f.loc[15, "exposure"] == pytest.approx(2.0, rel=1e-13), engine
+        assert f.loc[16, "churns"] == 0.0, engine
+        assert f.loc[16, "exposure"] == pytest.approx(13.0 / D, rel=1e-13), engine
+        assert float(f["churns"].sum()) == 1.0, engine
