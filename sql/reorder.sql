@@ -13,9 +13,12 @@
 -- "Open at the start of the day": among the customer's rows of earlier days,
 -- starts outnumber ends.
 -- Reads `troubled_events` and `repeats`. Same columns as troubled_events, with
--- `ord` rewritten within its day's range [day_ord, day_ord + 2^81): a moved start
--- takes same-day rank 7; a time-ordered day's key is day_ord + time * 2^43 +
--- rank * 2^40 + source row (time: the field of ord between bits 40 and 78).
+-- `ord` rewritten within its day's range [day_ord, day_ord + 2^81): first the
+-- rules' key (a moved start takes same-day rank 7; a time-ordered day's key is
+-- day_ord + time * 2^43 + rank * 2^40 + source row, time being the field of ord
+-- between bits 40 and 78), then day_ord + (place in the day) * 2^40 + source row,
+-- so that no two rows of a customer share the fields above the source row (the
+-- states step sorts on those alone).
 with kept as (
     select t.*, date_diff('day', date '1970-01-01', t.day) as day_number
     from troubled_events as t
@@ -36,10 +39,10 @@ counted as (
         same_day as (partition by customer_id, day)
 ),
 
-final as (
+by_rule as (
     select
         * exclude (day_number, open_at_day_start, day_starts, day_ends, ord),
-        cast(case
+        case
             when day_starts > 1 or day_ends > 1
                 then day_ord
                     + (ord - day_ord - event_rank * cast(2 ^ 78 as hugeint) - source_row)
@@ -48,8 +51,16 @@ final as (
             when event_rank = 0 and open_at_day_start and day_ends > 0
                 then ord + 7 * cast(2 ^ 78 as hugeint)
             else ord
-        end as hugeint) as ord
+        end as rule_ord
     from counted
+),
+
+final as (
+    select
+        * exclude (rule_ord),
+        cast(day_ord + cast(row_number() over (partition by customer_id, day order by rule_ord)
+                            as hugeint) * cast(2 ^ 40 as hugeint) + source_row as hugeint) as ord
+    from by_rule
 )
 
 select * from final

@@ -5,7 +5,13 @@
 -- every usable row, then at `state_input_redo`, the used rows of the few
 -- customers the first pass flags). Events in the fixed order `ord` (day,
 -- same-day rank start < update < pause < resume < payment_failed <
--- payment_recovered < end, time, source row).
+-- payment_recovered < end, time, source row). The windows sort on
+-- `ord_key`, the fields of `ord` above the source row (day, rank, time) as a
+-- BIGINT: a RANGE frame over a HUGEINT key costs a generic comparison at each
+-- step of its bound search, which made one long history cost many times more
+-- per event than short ones. Rows with equal keys (same day, rank and time)
+-- are `same_moment`, so their customer is suspect and its states come from the
+-- second pass, where the reorder step makes every key unique.
 --   spell        number of starts so far (1, 2, ...)
 --   start_day    day of the spell's start (tenure 0)
 --   varying attributes: last non-empty value on a start or update row
@@ -39,10 +45,10 @@ with keyed as (
         day,
         event_rank,
         cause_given,
-        ord,
-        day_ord,
+        cast(ord >> 40 as bigint) as ord_key,
+        cast(day_ord >> 40 as bigint) as day_key,
         -- the RANGE offset that ends a frame just before the day's first event
-        ord - day_ord + 1 as since_day_start,
+        cast((ord - day_ord) >> 40 as bigint) + 1 as since_day_start,
         -- starts in the high bits, ends in the low bits: one running sum gives both
         case event_rank when 0 then cast(1 as bigint) << 32 when 6 then 1 else 0 end
             as boundary_code,
@@ -61,27 +67,35 @@ walked as (
         day,
         event_rank,
         cause_given,
-        ord,
-        day_ord,
+        ord_key,
+        day_key,
         sum(boundary_code) over upto as boundaries,
-        last_value(columns('^set__(start_day|paused|in_recovery|v[cnr]__[A-Za-z].*)$')
+        -- starts come in day order, so the spell's start day is the latest so far (a
+        -- running max: no backward search for the last non-null over a long history)
+        max(set__start_day) over upto as start_day,
+        last_value(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$')
                    ignore nulls) over upto as '\1',
         last_value(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$') ignore nulls)
             over before_day as 'before__\1',
-        first_value(columns('^(sc__0|s[cn]__[A-Za-z].*)$') ignore nulls) over whole as '\1',
+        -- the first non-empty value (first_value ignoring nulls searches forward from
+        -- each row, so an all-empty column costs a long history a scan per row: the
+        -- pattern's extra match is customer_id, never empty, not the placeholder sc__0)
+        first_value(columns('^(customer_id|s[cn]__[A-Za-z].*)$') ignore nulls) over whole
+            as 'first__\1',
         -- the next end on or after this row ends this row's spell (for a
-        -- customer without suspect rows every end closes an open spell)
-        first_value(case when event_rank = 6 then day end ignore nulls) over rest as end_day,
-        lead(ord) over upto as next_ord
+        -- customer without suspect rows every end closes an open spell); ends
+        -- come in day order, so it is the earliest end day from here on
+        min(case when event_rank = 6 then day end) over rest as end_day,
+        lead(ord_key) over upto as next_key
     from keyed
     window
-        upto as (partition by customer_id order by ord
+        upto as (partition by customer_id order by ord_key
                  rows between unbounded preceding and current row),
-        rest as (partition by customer_id order by ord
+        rest as (partition by customer_id order by ord_key
                  rows between current row and unbounded following),
-        whole as (partition by customer_id order by ord
+        whole as (partition by customer_id order by ord_key
                   rows between unbounded preceding and unbounded following),
-        before_day as (partition by customer_id order by ord
+        before_day as (partition by customer_id order by ord_key
                        range between unbounded preceding and since_day_start preceding)
 ),
 
@@ -90,17 +104,17 @@ packed as (
         *,
         boundaries >> 32 as spell,
         (boundaries >> 32) - (boundaries & 4294967295) as open_spells,
-        -- the next row falls on a later day (day_ord steps by 2^81 a day)
-        coalesce(next_ord >= day_ord + cast(2 ^ 81 as hugeint), true) as is_last_of_day,
-        -- the next row has the same day, rank and time (the fields of ord above the
-        -- source row, which is below 2^40)
-        coalesce(next_ord - ord + source_row < cast(2 ^ 40 as hugeint), false) as same_moment,
+        -- the next row falls on a later day (day_key steps by 2^41 a day)
+        coalesce(next_key >= day_key + (cast(1 as bigint) << 41), true) as is_last_of_day,
+        -- the next row has the same day, rank and time (the same key)
+        coalesce(next_key = ord_key, false) as same_moment,
         row(*columns('^(v[cnr]__[A-Za-z].*|paused|in_recovery)$')) as state_after,
         row(*columns('^before__.*$')) as state_before,
+        cast(null as category) as first__sc__0,
         cast(null as category) as vc__0,
         cast(null as double) as vn__0,
         cast(null as double) as vr__0,
-        cast(null as double) as sn__0
+        cast(null as double) as first__sn__0
     from walked
 ),
 
@@ -128,7 +142,7 @@ final as (
         cast(coalesce(paused, 0) as integer) as paused,
         cast(coalesce(in_recovery, 0) as integer) as in_recovery,
         columns('^v[cnr]__.*$'),  -- typed by normalise: category or double
-        columns('^s[cn]__.*$'),
+        columns('^first__(s[cn]__.*)$') as '\1',
         cast(case when event_rank = 6 then open_spells <> 0 else open_spells <> 1 end
              or same_moment as boolean) as suspect
     from packed
