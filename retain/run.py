@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from retain import step_names
 from retain.data.table import StartStop
 from retain.errors import ModelError, RetainError
 from retain.results import Result, to_jsonable
@@ -210,7 +211,7 @@ def run_table(table: StartStop, options: RunOptions, *, prepared: Any = None,
         out[name] = attempt(name, fn)
         return out[name]
 
-    step("book", lambda: book_summary(table))
+    step(step_names.BOOK, lambda: book_summary(table))
     for name, fn in _model_steps(table, options, out):
         step(name, fn)
     return RunResults(options=options, table=table, outcomes=out, prepared=prepared)
@@ -291,33 +292,37 @@ def _model_steps(table: StartStop, options: RunOptions,
         return run
 
     def from_cox(what: Callable[[Any], Any]) -> Callable[[], Any]:
-        return after("cox", what)
+        return after(step_names.COX, what)
 
     steps: list[tuple[str, Callable[[], Any]]] = [
-        ("km", lambda: curves.kaplan_meier(table)),
+        (step_names.KM, lambda: curves.kaplan_meier(table)),
     ]
     for seg in options.segments:
-        steps.append((f"curves:{seg}", lambda seg=seg: curves.curves_by(table, seg)))
+        steps.append((step_names.curves_by(seg),
+                      lambda seg=seg: curves.curves_by(table, seg)))
     steps += [
-        ("cohorts", lambda: curves.cohort_retention(table, months=options.cohort_months)),
-        ("fit:exponential", lambda: parametric.fit_exponential(table)),
-        ("fit:weibull", lambda: parametric.fit_weibull(table)),
-        ("compare", lambda: parametric.compare_models(table, cov, cuts, reference=ref,
-                                                      missing=miss)),
-        ("weibull", lambda: done["compare"].value.fits["weibull"] if done["compare"].ok
+        (step_names.COHORTS,
+         lambda: curves.cohort_retention(table, months=options.cohort_months)),
+        (step_names.EXPONENTIAL, lambda: parametric.fit_exponential(table)),
+        (step_names.WEIBULL, lambda: parametric.fit_weibull(table)),
+        (step_names.COMPARE, lambda: parametric.compare_models(table, cov, cuts, reference=ref,
+                                                               missing=miss)),
+        (step_names.WEIBULL_COVARIATES, lambda: done[step_names.COMPARE].value.fits["weibull"]
+         if done[step_names.COMPARE].ok
          else parametric.fit_weibull(table, cov, reference=ref, missing=miss)),
-        ("loglog", lambda: parametric.loglog_diagnostic(table, first_segment)),
-        ("cox", cox_fit),
-        ("cox:ph", from_cox(lambda f: f.proportional_hazards_test())),
-        ("cox:concordance", from_cox(lambda f: f.concordance())),
-        ("cox:curve", from_cox(lambda f: f.segment_retention(f.fitted_table, grid))),
-        ("decrements", lambda: decrements.decrement_table(table)),
-        ("graduation", after("decrements", lambda d: decrements.graduate(d))),
-        ("ae", after("decrements", lambda d: _actual_vs_expected(table, d, options))),
-        *([("decrements:bands", lambda: decrements.decrement_table(
+        (step_names.LOGLOG, lambda: parametric.loglog_diagnostic(table, first_segment)),
+        (step_names.COX, cox_fit),
+        (step_names.COX_PH, from_cox(lambda f: f.proportional_hazards_test())),
+        (step_names.COX_CONCORDANCE, from_cox(lambda f: f.concordance())),
+        (step_names.COX_CURVE, from_cox(lambda f: f.segment_retention(f.fitted_table, grid))),
+        (step_names.DECREMENTS, lambda: decrements.decrement_table(table)),
+        (step_names.GRADUATION, after(step_names.DECREMENTS, lambda d: decrements.graduate(d))),
+        (step_names.ACTUAL_VS_EXPECTED,
+         after(step_names.DECREMENTS, lambda d: _actual_vs_expected(table, d, options))),
+        *([(step_names.DECREMENTS_BANDS, lambda: decrements.decrement_table(
             table, band_edges=options.decrement_edges))] if options.decrement_edges else []),
-        ("incidence", lambda: competing.cumulative_incidence(table)),
-        ("cause-cox", lambda: _need_covariates(cov) or competing.cause_specific_cox(
+        (step_names.INCIDENCE, lambda: competing.cumulative_incidence(table)),
+        (step_names.CAUSE_COX, lambda: _need_covariates(cov) or competing.cause_specific_cox(
             table, cov, strata=list(options.strata) or None, reference=ref, missing=miss)),
     ]
     steps += _decision_steps(table, options, done)
@@ -358,9 +363,9 @@ def _finance_table(done: dict[str, Outcome]) -> pd.DataFrame:
 
     from retain.decisions import value
 
-    new, base = done["value:segments"], done["value:base"]
+    new, base = done[step_names.VALUE_SEGMENTS], done[step_names.VALUE_BASE]
     if new.skipped:
-        raise NotSetUp("value:finance", "not set up", new.error or "")
+        raise NotSetUp(step_names.VALUE_FINANCE, "not set up", new.error or "")
     if not (new.ok or base.ok):
         raise ModelError("finance file", "neither value figure could be computed",
                          new.error or base.error or "")
@@ -378,15 +383,15 @@ def _decision_steps(table: StartStop, options: RunOptions,
     steps: list[tuple[str, Callable[[], Any]]] = []
     if spec:
         steps += [
-            ("value:all", lambda: _need_margin(spec) or value.value_by_segment(table, spec, (), as_of=options.as_of)),
-            ("value:segments", lambda: _need_margin(spec) or value.value_by_segment(table, spec, by,
-                                                              as_of=options.as_of)),
-            ("value:base", lambda: _need_margin(spec) or value.base_value_by_segment(
+            (step_names.VALUE_ALL, lambda: _need_margin(spec) or value.value_by_segment(table, spec, (), as_of=options.as_of)),
+            (step_names.VALUE_SEGMENTS, lambda: _need_margin(spec) or value.value_by_segment(
+                table, spec, by, as_of=options.as_of)),
+            (step_names.VALUE_BASE, lambda: _need_margin(spec) or value.base_value_by_segment(
                 table, spec, by, as_of=options.as_of, n_draws=BASE_VALUE_DRAWS)),
-            ("value:finance", lambda: _finance_table(done)),
+            (step_names.VALUE_FINANCE, lambda: _finance_table(done)),
         ]
     price = str(spec.get("price") or "price")
     for name, exp in options.experiments.items():
-        steps.append((f"experiment:{name}", lambda exp=exp: experiments.experiment_verdict(
+        steps.append((step_names.experiment(name), lambda exp=exp: experiments.experiment_verdict(
             table, exp, as_of=options.as_of, price=price, missing=options.missing)))
     return steps

@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from retain import step_names as step
 from retain.publish import charts
 from retain.publish.content import Fact, Figure, Page, Section, SiteContent, slug
 from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
@@ -142,8 +143,8 @@ def _heat_colours(values: np.ndarray) -> dict[str, Any]:
 
 # --------------------------------------------------------------------------- pages
 def overview_page(run: Any) -> Page:
-    book = run.get("book")
-    km = run.get("km")
+    book = run.get(step.BOOK)
+    km = run.get(step.KM)
     facts: list[Fact] = []
     sections: list[Section] = []
     if book.ok:
@@ -186,7 +187,7 @@ def overview_page(run: Any) -> Page:
 
 
 def _hazard_words(run: Any) -> Section:
-    cox = run.get("cox")
+    cox = run.get(step.COX)
     title = "What moves churn most"
     if not cox.ok:
         return failure_section(title, cox)
@@ -228,7 +229,7 @@ def hazard_frame(cox: Any) -> pd.DataFrame:
 
 def curves_page(run: Any) -> Page:
     sections: list[Section] = []
-    km = run.get("km")
+    km = run.get(step.KM)
     if km.ok:
         c = km.value
         sections.append(Section(
@@ -242,7 +243,7 @@ def curves_page(run: Any) -> Page:
     else:
         sections.append(failure_section("All customers", km))
     for seg in run.options.segments:
-        o = run.get(f"curves:{seg}")
+        o = run.get(step.curves_by(seg))
         title = f"By {seg}"
         if not o.ok:
             sections.append(failure_section(title, o))
@@ -266,7 +267,7 @@ def curves_page(run: Any) -> Page:
 
 
 def cohorts_page(run: Any) -> Page:
-    o = run.get("cohorts")
+    o = run.get(step.COHORTS)
     title = "Retention by signup cohort"
     if not o.ok:
         return Page("cohorts", "Cohorts", "Signup cohorts month by month.",
@@ -385,7 +386,7 @@ def _term_frame(frame: pd.DataFrame, label: str = "label") -> pd.DataFrame:
 
 def hazards_page(run: Any) -> Page:
     sections: list[Section] = [_cox_section(run)]
-    w = run.get("weibull")
+    w = run.get(step.WEIBULL_COVARIATES)
     title = "Weibull model: shape and time ratios"
     if not w.ok:
         sections.append(failure_section(title, w))
@@ -431,7 +432,7 @@ def _ph_rows(t: pd.DataFrame) -> pd.DataFrame:
 
 
 def _cox_section(run: Any) -> Section:
-    o = run.get("cox")
+    o = run.get(step.COX)
     title = "Cox model: hazard ratios"
     if not o.ok:
         return failure_section(title, o)
@@ -441,12 +442,12 @@ def _cox_section(run: Any) -> Section:
 def cox_section(run: Any, cox: Any) -> Section:
     frame = hazard_frame(cox)
     facts: list[Fact] = []
-    conc = run.get("cox:concordance")
+    conc = run.get(step.COX_CONCORDANCE)
     if conc.ok:
         facts.append(Fact("Concordance (Harrell's C)", f"{conc.value.c_index:.3f}",
                           "0.5 = no better than chance, 1 = perfect ranking", "concordance",
                           conc.value.c_index))
-    ph = run.get("cox:ph")
+    ph = run.get(step.COX_PH)
     bullets = list(cox.warnings)
     figs = [Figure(
         key="hazards-cox", title="Hazard ratios (Cox)",
@@ -486,7 +487,7 @@ FIT_MONTHS_STEP = 0.5
 
 def fit_page(run: Any) -> Page:
     sections: list[Section] = []
-    km = run.get("km")
+    km = run.get(step.KM)
     curves_title = "Kaplan–Meier against the fitted curves"
     if not km.ok:
         sections.append(failure_section(curves_title, km))
@@ -497,7 +498,7 @@ def fit_page(run: Any) -> Page:
         top = float(c.follow_up)
         grid = np.arange(0.0, top + 1e-9, FIT_MONTHS_STEP * DAYS_PER_MONTH)
         notes = []
-        for name, label in (("fit:exponential", "exponential"), ("fit:weibull", "Weibull")):
+        for name, label in ((step.EXPONENTIAL, "exponential"), (step.WEIBULL, "Weibull")):
             o = run.get(name)
             if not o.ok:
                 notes.append(f"{label}: {o.error}")
@@ -530,7 +531,7 @@ def fit_page(run: Any) -> Page:
                                      y_title="Still subscribed", dashed=dashed,
                                      y_domain=[0, 1]),
             table=wide, csv=frame),)))
-    ll = run.get("loglog")
+    ll = run.get(step.LOGLOG)
     ll_title = "The log(−log) check of the Weibull shape"
     if not ll.ok:
         sections.append(failure_section(ll_title, ll))
@@ -546,7 +547,7 @@ def fit_page(run: Any) -> Page:
                   "not proportional.",
             chart=charts.loglog_chart(d.points, d.lines, "fit_loglog"),
             table=d.points, csv=d.points),)))
-    cm = run.get("compare")
+    cm = run.get(step.COMPARE)
     cm_title = "Information criteria"
     if not cm.ok:
         sections.append(failure_section(cm_title, cm))
@@ -570,7 +571,7 @@ def fit_page(run: Any) -> Page:
 
 
 def _cox_population_curve(run: Any, grid: np.ndarray) -> pd.DataFrame | str:
-    o = run.get("cox:curve")
+    o = run.get(step.COX_CURVE)
     if not o.ok:
         return o.error or "not run"
     curve = o.value
@@ -605,7 +606,7 @@ ACTUARIAL_CAUTIONS = (
 
 
 def decrements_page(run: Any) -> Page:
-    o = run.get("decrements")
+    o = run.get(step.DECREMENTS)
     title = "Decrement table by tenure month"
     if not o.ok:
         return Page("decrements", "Decrement table", "Churn as decrements with exposure.",
@@ -614,7 +615,7 @@ def decrements_page(run: Any) -> Page:
     dt = o.value
     frame = dt.to_frame()
     seg = frame[frame["segment"] == frame["segment"].iloc[0]]
-    grad = run.get("graduation")
+    grad = run.get(step.GRADUATION)
     chart_parts = [pd.DataFrame({"rate": "crude q", "month": seg["month"] + 1,
                                  "q": seg["q"], "lower": seg["q_lower"], "upper": seg["q_upper"]})]
     notes = []
@@ -661,7 +662,7 @@ def decrements_page(run: Any) -> Page:
             table=gr.tests, note=gr.summary()))
     sections = [Section(title, intro=dt.summary(), facts=facts,
                         bullets=tuple(notes) + tuple(dt.warnings), figures=tuple(figs))]
-    bands = run.get("decrements:bands")
+    bands = run.get(step.DECREMENTS_BANDS)
     if bands.kind != "absent":
         sections.append(_band_decrements_section(bands))
     return Page("decrements", "Decrement table", "Churn read as decrements: exposure in "
@@ -695,7 +696,7 @@ def _band_decrements_section(o: Any) -> Section:
 
 
 def expected_page(run: Any) -> Page:
-    o = run.get("ae")
+    o = run.get(step.ACTUAL_VS_EXPECTED)
     title = "Actual against expected by segment"
     if not o.ok:
         return Page("expected", "Actual vs expected", "Observed churns against a basis.",
@@ -754,7 +755,7 @@ def ae_page(run: Any, ae: Any) -> Page:
 
 
 def _cause_cox_section(run: Any) -> Section:
-    o = run.get("cause-cox")
+    o = run.get(step.CAUSE_COX)
     title = "What drives each kind of churn"
     if not o.ok:
         return failure_section(title, o)
@@ -782,7 +783,7 @@ def _cause_cox_section(run: Any) -> Section:
 
 
 def causes_page(run: Any) -> Page:
-    o = run.get("incidence")
+    o = run.get(step.INCIDENCE)
     title = "Cumulative incidence by cause"
     if not o.ok:
         return Page("causes", "Churn by cause", "Voluntary and involuntary churn apart.",
@@ -849,7 +850,7 @@ def value_page(run: Any) -> Page:
         assumptions += [margin, f"annual discount rate {rate:g} %",
                         f"horizon {spec.get('horizon_months')} months",
                         f"retention curve: {spec.get('curve')} model fitted per segment"]
-    allv = run.get("value:all")
+    allv = run.get(step.VALUE_ALL)
     if allv.ok and allv.value.values:
         v = allv.value.values[0]
         assumptions += [v.timing, f"interval: {v.interval_method}"]
@@ -860,7 +861,7 @@ def value_page(run: Any) -> Page:
         sections.append(Section("A new customer", facts=facts, bullets=tuple(v.warnings)))
     else:
         sections.append(failure_section("A new customer", allv))
-    seg = run.get("value:segments")
+    seg = run.get(step.VALUE_SEGMENTS)
     if seg.ok:
         sv = seg.value
         frame = sv.to_frame()
@@ -880,7 +881,7 @@ def value_page(run: Any) -> Page:
             table=shown, csv=frame),)))
     else:
         sections.append(failure_section("By segment", seg))
-    base = run.get("value:base")
+    base = run.get(step.VALUE_BASE)
     if base.ok:
         bv = base.value
         frame = bv.to_frame()
@@ -898,7 +899,7 @@ def value_page(run: Any) -> Page:
             table=shown, csv=frame),)))
     else:
         sections.append(failure_section("The active base", base))
-    finance = run.get("value:finance")
+    finance = run.get(step.VALUE_FINANCE)
     if finance.ok:
         fin = finance.value
         sections.append(Section("Finance file", intro="One row per figure and segment, with "
@@ -928,7 +929,7 @@ def experiments_page(run: Any) -> Page:
                                 "retention experiment in retain.toml under [experiments.NAME] "
                                 "to see its verdict here."))
     for name in names:
-        o = run.get(f"experiment:{name}")
+        o = run.get(step.experiment(name))
         title = f"Experiment {name}"
         if not o.ok:
             sections.append(failure_section(title, o))

@@ -1,0 +1,88 @@
+"""Every page section of the demo is assembled, and pages name the run's steps by constant.
+
+The page builders look results up by the step names of ``retain.step_names``;
+a literal such as ``"cox:ph"`` in a page builder would break silently when the
+step is renamed, so the publishing code is scanned for them.
+"""
+
+from __future__ import annotations
+
+import ast
+from pathlib import Path
+
+import pytest
+
+from retain import step_names
+
+PUBLISH = Path(__file__).resolve().parents[1] / "retain" / "publish"
+LOOKUPS = ("get", "value")  # RunResults.get(name) and RunResults.value(name)
+
+
+def step_literals(source: str) -> list[tuple[int, str]]:
+    """(line, literal) of each step name written as a string in ``source``.
+
+    A lookup ``x.get("km")`` / ``x.value("km")`` of any step name counts, and so
+    does any string holding a step name that no other text would (one with a ``:``
+    or ``-``, or the start of a formatted step name such as ``f"curves:{seg}"``).
+    """
+    names = set(step_names.ALL)
+    distinct = {n for n in names if ":" in n or "-" in n}
+    found = []
+    for node in ast.walk(ast.parse(source)):
+        if isinstance(node, ast.Constant) and isinstance(node.value, str):
+            text = node.value
+            if text in distinct or text.startswith(step_names.PREFIXES):
+                found.append((node.lineno, text))
+        elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+              and node.func.attr in LOOKUPS and node.args
+              and isinstance(node.args[0], ast.Constant) and node.args[0].value in names):
+            found.append((node.lineno, node.args[0].value))
+    return sorted(set(found))
+
+
+def test_the_scan_finds_step_literals():
+    """Hand-written snippets: each way of writing a step name by hand is caught; a dict
+    lookup of an ordinary key and a page slug equal to a step name are not."""
+    planted = ('o = run.get("cox:ph")\n'
+               'k = run.value("km")\n'
+               'e = run.get(f"experiment:{name}")\n'
+               'pairs = (("fit:weibull", "Weibull"),)\n'
+               'm = spec.get("margin_per_month")\n'
+               'p = Page("cohorts", "Cohorts", "lead")\n')
+    assert step_literals(planted) == [(1, "cox:ph"), (2, "km"), (3, "experiment:"),
+                                      (4, "fit:weibull")]
+
+
+def test_publish_names_steps_by_constant_only():
+    files = sorted(PUBLISH.rglob("*.py"))
+    assert any(f.name == "__init__.py" for f in files) and len(files) >= 4
+    found = {str(f.relative_to(PUBLISH)): hits for f in files
+             if (hits := step_literals(f.read_text(encoding="utf-8")))}
+    assert found == {}
+
+
+def test_step_names_are_the_keys_results_json_has_always_had():
+    """The values are a file format (results.json's outcome keys): fixed here by hand."""
+    assert (step_names.COX, step_names.COX_PH, step_names.WEIBULL,
+            step_names.WEIBULL_COVARIATES, step_names.ACTUAL_VS_EXPECTED,
+            step_names.CAUSE_COX) == ("cox", "cox:ph", "fit:weibull", "weibull", "ae",
+                                      "cause-cox")
+    assert step_names.curves_by("plan") == "curves:plan"
+    assert step_names.experiment("intro_discount") == "experiment:intro_discount"
+    assert len(set(step_names.ALL)) == len(step_names.ALL)
+
+
+def test_step_names_imports_nothing_from_retain():
+    tree = ast.parse(Path(step_names.__file__).read_text(encoding="utf-8"))
+    imported = [a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names]
+    imported += [n.module or "" for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)]
+    assert [m for m in imported if m.split(".")[0] == "retain"] == []
+
+
+@pytest.fixture(scope="module")
+def demo_run(demo_prepared):
+    from retain.data.config import load_config
+    from retain.paths import DEMO_DIR
+    from retain.run import run_config
+
+    return run_config(load_config(DEMO_DIR / "retain.toml"), prepared=demo_prepared)
