@@ -10,14 +10,25 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from retain.data.table import StartStop
+from retain.publish.pages import STRICT_ENV
 
 CHROMIUM = "/usr/bin/chromium"
 CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync", "--no-first-run",
                  "--disable-quic"]
 EVIL = "<script>alert(1)</script>"
+
+
+@pytest.fixture(scope="module", autouse=True)
+def strict_pages():
+    """Imported by a test module: there, an exception inside a page builder raises instead
+    of becoming a could-not-be-assembled page, so a broken page fails its test."""
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setenv(STRICT_ENV, "1")
+        yield
 
 
 def small_table(n: int = 400, seed: int = 3, evil: bool = False) -> StartStop:

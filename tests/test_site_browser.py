@@ -17,7 +17,7 @@ from pathlib import Path
 from urllib.parse import urlparse
 
 import pytest
-from _site_support import CHROMIUM, CHROMIUM_ARGS, EVIL, small_table
+from _site_support import CHROMIUM, CHROMIUM_ARGS, EVIL, small_table, strict_pages  # noqa: F401
 
 from retain.data.config import load_config
 from retain.paths import DEMO_DIR

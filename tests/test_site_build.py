@@ -12,7 +12,7 @@ import shutil
 from pathlib import Path
 
 import pytest
-from _site_support import EVIL, small_table, tree_bytes
+from _site_support import EVIL, small_table, strict_pages, tree_bytes  # noqa: F401 (autouse)
 
 from retain.errors import BuildError
 from retain.paths import TEMPLATES_DIR

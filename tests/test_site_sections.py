@@ -11,6 +11,7 @@ import ast
 from pathlib import Path
 
 import pytest
+from _site_support import small_table, strict_pages  # noqa: F401
 
 from retain import step_names
 
@@ -86,3 +87,98 @@ def demo_run(demo_prepared):
     from retain.run import run_config
 
     return run_config(load_config(DEMO_DIR / "retain.toml"), prepared=demo_prepared)
+
+
+@pytest.fixture(scope="module")
+def demo_content(demo_run):
+    from retain.publish.pages import site_content
+
+    return site_content(demo_run, strict=True)
+
+
+def test_every_demo_step_is_named_in_step_names(demo_run):
+    """results.json's outcome keys are the constants (or a prefix and a name)."""
+    keys = set(demo_run.outcomes)
+    plain = keys - {k for k in keys if k.startswith(step_names.PREFIXES)}
+    assert plain <= set(step_names.ALL) and len(plain) >= 20
+    assert step_names.curves_by(demo_run.options.segments[0]) in keys
+
+
+def test_every_demo_page_and_section_is_assembled(demo_content, demo_run, tmp_path):
+    """The demo is set up for every page: no step failed, no section shows a failure, no
+    page is the could-not-be-assembled page, and the built HTML names no internal error."""
+    from retain.publish.site import build_site
+
+    failed = {k: o.error for k, o in demo_run.outcomes.items() if not o.ok}
+    assert failed == {}
+    assert len(demo_content.pages) == 11
+    broken = [(p.slug, s.title, s.failure) for p in demo_content.pages for s in p.sections
+              if s.failure]
+    assert broken == []
+    assert [p.slug for p in demo_content.pages if "could not be assembled" in p.lead] == []
+    index = build_site(demo_content, tmp_path / "site")
+    for page in sorted(index.parent.glob("*.html")):
+        html = page.read_text(encoding="utf-8")
+        for text in ("internal error", "could not be assembled", "could not be computed",
+                     "bug in retain"):
+            assert text not in html, (page.name, text)
+
+
+# --------------------------------------------------------------------------- a page that breaks
+class _Refuses:
+    """A result whose table cannot be made: a refusal with a reason, not a bug."""
+
+    def to_frame(self):
+        from retain.errors import ModelError
+
+        raise ModelError("cohort table", "no cohort has a signup month", "add a start_date")
+
+
+@pytest.fixture(scope="module")
+def small_run():
+    from retain.run import RunOptions, run_table
+
+    return run_table(small_table(), RunOptions(as_of="2026-11-30", segments=("plan",)))
+
+
+def _with_cohorts(run, value):
+    """``run`` with the cohort step's result replaced by ``value`` (what a renamed
+    attribute or a changed result type looks like to the page builder)."""
+    import dataclasses
+
+    from retain.run import Outcome
+
+    return dataclasses.replace(run, outcomes={
+        **run.outcomes, step_names.COHORTS: Outcome(step_names.COHORTS, value=value)})
+
+
+def test_a_broken_page_builder_raises_when_strict(small_run, monkeypatch):
+    from retain.publish.pages import STRICT_ENV, site_content
+
+    broken = _with_cohorts(small_run, object())  # has no to_frame: cohorts_page fails
+    with pytest.raises(AttributeError, match="to_frame"):
+        site_content(broken, strict=True)
+    monkeypatch.setenv(STRICT_ENV, "1")
+    with pytest.raises(AttributeError, match="to_frame"):
+        site_content(broken)
+    assert len(site_content(broken, strict=False).pages) == 11  # the argument wins
+    monkeypatch.setenv(STRICT_ENV, "0")
+    assert len(site_content(broken).pages) == 11
+
+
+def test_a_broken_page_is_shown_with_its_cause_when_not_strict(small_run):
+    from retain.publish.pages import site_content
+
+    content = site_content(_with_cohorts(small_run, object()), strict=False)
+    pages = {p.slug: p for p in content.pages}
+    page = pages["cohorts"]
+    assert page.lead == "This page could not be assembled."
+    (section,) = page.sections
+    assert section.failure.startswith("internal error AttributeError: ")
+    assert "(at cohorts_page, " in section.failure and "bug in retain" in section.failure
+    assert all(s.failure is None for s in pages["curves"].sections)  # the others still build
+
+    refused = site_content(_with_cohorts(small_run, _Refuses()), strict=False)
+    (section,) = {p.slug: p for p in refused.pages}["cohorts"].sections
+    assert section.failure == ("cohort table: no cohort has a signup month -- add a "
+                               "start_date")

@@ -10,6 +10,8 @@ curve to show.
 from __future__ import annotations
 
 import math
+import os
+import traceback
 from collections.abc import Callable, Iterable
 from typing import Any
 
@@ -17,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from retain import step_names as step
+from retain.errors import RetainError
 from retain.publish import charts
 from retain.publish.content import Fact, Figure, Page, Section, SiteContent, slug
 from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
@@ -838,7 +841,7 @@ def causes_page(run: Any) -> Page:
 
 # --------------------------------------------------------------------------- value
 def value_page(run: Any) -> Page:
-    spec = dict(run.options.value)
+    spec = run.options.to_dict()["value"]  # the [value] keys as results.json has them
     sections: list[Section] = []
     assumptions: list[str] = []
     if spec:
@@ -1028,19 +1031,50 @@ PAGE_BUILDERS: tuple[Callable[[Any], Page], ...] = (
 )
 
 
-def _build_page(builder: Callable[[Any], Page], run: Any) -> Page:
-    """A page, or, if assembling it fails, a page that says why (the site still builds)."""
+STRICT_ENV = "RETAIN_STRICT_PAGES"  # "1": a page builder's exception raises (tests set it)
+
+
+def strict_pages() -> bool:
+    """Whether the environment asks page builders' exceptions to raise."""
+    return os.environ.get(STRICT_ENV, "").strip() not in ("", "0")
+
+
+def _build_page(builder: Callable[[Any], Page], run: Any, strict: bool) -> Page:
+    """A page, or, if assembling it fails, a page that names the cause (the site still
+    builds). With ``strict`` the exception is raised instead."""
     try:
         return builder(run)
     except Exception as exc:  # noqa: BLE001 - one broken page must not hide the others
-        name = builder.__name__.removesuffix("_page")
-        return Page(name, name.replace("_", " ").capitalize(), "This page could not be assembled.",
-                    (Section("Error", failure=f"{type(exc).__name__}: {exc} -- this is a bug "
-                             "in retain; please report it"),))
+        if strict:
+            raise
+        return error_page(builder.__name__.removesuffix("_page"), exc)
 
 
-def site_content(run: Any) -> SiteContent:
-    """All pages for one run, in navigation order."""
-    pages = tuple(_build_page(builder, run) for builder in PAGE_BUILDERS)
-    return SiteContent(title=run.options.title, as_of=run.options.as_of, pages=pages,
+def error_page(name: str, exc: Exception) -> Page:
+    """The page shown in place of page ``name`` when assembling it raised ``exc``.
+
+    A :class:`~retain.errors.RetainError` is a refusal with a reason and is shown as
+    its one line; any other exception is a bug, shown with the place it was raised.
+    """
+    if isinstance(exc, RetainError):
+        cause = exc.message
+    else:
+        tb = traceback.extract_tb(exc.__traceback__)
+        at = f" (at {tb[-1].name}, {tb[-1].filename.rsplit('/', 1)[-1]}:{tb[-1].lineno})" \
+            if tb else ""
+        cause = (f"internal error {type(exc).__name__}: {exc}{at} -- this is a bug in retain; "
+                 "please report it")
+    return Page(name, name.replace("_", " ").capitalize(), "This page could not be assembled.",
+                (Section("Error", failure=cause),))
+
+
+def site_content(run: Any, *, strict: bool | None = None) -> SiteContent:
+    """All pages for one run, in navigation order.
+
+    ``strict`` (default: the environment variable ``RETAIN_STRICT_PAGES``) makes an
+    exception inside a page builder raise instead of becoming an error page.
+    """
+    strict = strict_pages() if strict is None else strict
+    pages = tuple(_build_page(builder, run, strict) for builder in PAGE_BUILDERS)
+    return SiteContent(title=run.options.title, as_of=run.options.to_dict()["as_of"], pages=pages,
                        results=run.to_dict(), source=run.options.source)
