@@ -23,7 +23,7 @@ _WHERE: dict[str, str] = {
     "experiment_verdict": "retain.decisions.experiments",
     "events_needed": "retain.decisions.planning",
     "plan_experiment": "retain.decisions.planning",
-    "finance_export": "retain.decisions.value",
+    "finance_export": "retain.publish.finance",
     "lifetime_value": "retain.decisions.value",
     "residual_value": "retain.decisions.value",
     "BuildError": "retain.errors",
@@ -121,7 +121,7 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors only
     from retain.data.table import Categorical, StartStop
     from retain.decisions.experiments import experiment_verdict
     from retain.decisions.planning import events_needed, plan_experiment
-    from retain.decisions.value import finance_export, lifetime_value, residual_value
+    from retain.decisions.value import lifetime_value, residual_value
     from retain.errors import (
         BuildError,
         ConfigError,
@@ -151,3 +151,4 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors only
         fit_weibull,
     )
     from retain.models.renewal import backtest_renewal, fit_renewal
+    from retain.publish.finance import finance_export

@@ -11,18 +11,28 @@ run. The site builder reads the bundle and never fits anything itself.
 from __future__ import annotations
 
 import dataclasses
+import datetime as dt
 import math
 import traceback
-from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from retain import step_names
+from retain.data.config import (
+    ExperimentSpec,
+    ModelConfig,
+    ValueConfig,
+    as_date,
+    experiment_settings,
+    model_settings,
+    value_settings,
+)
 from retain.data.table import StartStop
-from retain.errors import ModelError, RetainError
+from retain.errors import ConfigError, ModelError, RetainError
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
 
@@ -81,23 +91,64 @@ def attempt(name: str, step: Callable[[], Any]) -> Outcome:
                        "this is a bug in retain; please report it", kind="internal")
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, init=False)
 class RunOptions:
-    """What to run, in the config's terms (see CONFIG.md)."""
+    """What to run: the project file's typed sections as they are, and what to show.
 
-    title: str = "Retention review"
-    source: str = "start-stop table"
-    as_of: str = ""
-    segments: tuple[str, ...] = ()
-    covariates: tuple[str, ...] = ()
-    strata: tuple[str, ...] = ()
-    reference: Mapping[str, str] = field(default_factory=dict)
-    missing: str = "stop"  # rule for missing covariate values (retain.models.missing)
-    piecewise_cuts: tuple[float, ...] | None = None  # days; None: the default bands
-    decrement_edges: tuple[float, ...] | None = None  # days; None: 30.44-day months
-    value: Mapping[str, Any] = field(default_factory=dict)
-    experiments: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
-    cohort_months: int = 24
+    ``model``, ``value`` and ``experiments`` hold the config's own
+    :class:`~retain.data.config.ModelConfig`, :class:`~retain.data.config.ValueConfig`
+    and :class:`~retain.data.config.ExperimentSpec` objects (their defaults live
+    there); ``value`` None means no value figures. A run set up in Python may
+    give the ``[model]`` keys one by one (``RunOptions(covariates=("plan",))``),
+    ``value`` and each experiment as a mapping with their keys, and ``as_of`` as
+    "YYYY-MM-DD" text: each is converted here, once.
+    """
+
+    title: str
+    source: str
+    as_of: dt.date | None
+    segments: tuple[str, ...]
+    model: ModelConfig
+    value: ValueConfig | None
+    experiments: Mapping[str, ExperimentSpec]
+    cohort_months: int
+
+    def __init__(self, title: str = "Retention review", source: str = "start-stop table",
+                 as_of: dt.date | str | None = None, segments: Sequence[str] = (),
+                 model: ModelConfig | None = None,
+                 value: ValueConfig | Mapping[str, Any] | None = None,
+                 experiments: Mapping[str, ExperimentSpec | Mapping[str, Any]] | None = None,
+                 cohort_months: int = 24, **model_keys: Any) -> None:
+        if model is not None and model_keys:
+            raise ConfigError("run options", "model and single [model] keys are both given",
+                              "pass model=ModelConfig(...) or the keys, not both")
+        exps = {name: experiment_settings(
+            spec if isinstance(spec, ExperimentSpec) else {"name": name, **spec})
+            for name, spec in (experiments or {}).items()}
+        for name, setting in (
+                ("title", title), ("source", source),
+                ("as_of", as_date(as_of, "run options: as_of")),
+                ("segments", tuple(segments)),
+                ("model", model_settings(model if model is not None else model_keys)),
+                ("value", value_settings(value) if value else None),
+                ("experiments", exps), ("cohort_months", int(cohort_months))):
+            object.__setattr__(self, name, setting)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The options as results.json carries them: the ``[model]`` keys at the top level,
+        ``as_of`` as "YYYY-MM-DD" (blank when unknown), ``value`` {} when not set."""
+        out: dict[str, Any] = {}
+        for f in dataclasses.fields(self):
+            v = getattr(self, f.name)
+            if f.name == "model":
+                out.update(to_jsonable(v))
+            elif f.name == "as_of":
+                out[f.name] = "" if v is None else v.isoformat()
+            elif f.name == "value":
+                out[f.name] = {} if v is None else to_jsonable(v)
+            else:
+                out[f.name] = to_jsonable(v)
+        return out
 
 
 @dataclass(frozen=True, eq=False)
@@ -117,9 +168,7 @@ class RunResults(Result):
         return None if o is None or not o.ok else o.value
 
     def to_dict(self) -> dict[str, Any]:
-        opts = {f.name: to_jsonable(getattr(self.options, f.name))
-                for f in dataclasses.fields(self.options)}
-        return {"options": opts,
+        return {"options": self.options.to_dict(),
                 "table": {"rows": self.table.n_rows, "customers": self.table.n_customers,
                           "churns": self.table.n_events},
                 "outcomes": {k: o.to_dict() for k, o in self.outcomes.items()}}
@@ -222,15 +271,10 @@ def options_from_config(config: Any) -> RunOptions:
     src = config.source
     name = src.path.name if getattr(src, "path", None) is not None else \
         f"{getattr(src, 'duckdb', '')}:{getattr(src, 'table', '')}"
-    experiments = {e.name: dataclasses.asdict(e) for e in config.experiments}
     return RunOptions(
-        title=f"Retention review: {name}", source=str(name),
-        as_of=config.window.as_of.isoformat(), segments=tuple(config.segments.by),
-        covariates=tuple(config.model.covariates), strata=tuple(config.model.strata),
-        reference=dict(config.model.reference), missing=config.model.missing,
-        piecewise_cuts=config.model.piecewise_cuts, decrement_edges=config.model.decrement_edges,
-        value=dataclasses.asdict(config.value),
-        experiments=experiments)
+        title=f"Retention review: {name}", source=str(name), as_of=config.window.as_of,
+        segments=config.segments.by, model=config.model, value=config.value,
+        experiments={e.name: e for e in config.experiments})
 
 
 def run_config(config: Any, *, prepared: Any = None,
@@ -268,18 +312,19 @@ def _model_steps(table: StartStop, options: RunOptions,
                  done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
     from retain.models import competing, cox, curves, decrements, parametric
 
-    cov = list(options.covariates)
-    ref = dict(options.reference) or None
+    model = options.model
+    cov = list(model.covariates)
+    ref = dict(model.reference) or None
+    strata = list(model.strata) or None
     first_segment = options.segments[0] if options.segments else None
     grid = np.arange(0.0, float(table.stop.max()) + 1e-9, DAYS_PER_MONTH / 2)
 
-    miss = options.missing
-    cuts = options.piecewise_cuts
+    miss = model.missing
+    cuts = model.piecewise_cuts
 
     def cox_fit() -> Any:
         _need_covariates(cov)
-        return cox.fit_cox(table, cov, strata=list(options.strata) or None, reference=ref,
-                           missing=miss)
+        return cox.fit_cox(table, cov, strata=strata, reference=ref, missing=miss)
 
     def after(name: str, what: Callable[[Any], Any]) -> Callable[[], Any]:
         def run() -> Any:
@@ -320,10 +365,10 @@ def _model_steps(table: StartStop, options: RunOptions,
         (step_names.ACTUAL_VS_EXPECTED,
          after(step_names.DECREMENTS, lambda d: _actual_vs_expected(table, d, options))),
         *([(step_names.DECREMENTS_BANDS, lambda: decrements.decrement_table(
-            table, band_edges=options.decrement_edges))] if options.decrement_edges else []),
+            table, band_edges=model.decrement_edges))] if model.decrement_edges else []),
         (step_names.INCIDENCE, lambda: competing.cumulative_incidence(table)),
         (step_names.CAUSE_COX, lambda: _need_covariates(cov) or competing.cause_specific_cox(
-            table, cov, strata=list(options.strata) or None, reference=ref, missing=miss)),
+            table, cov, strata=strata, reference=ref, missing=miss)),
     ]
     steps += _decision_steps(table, options, done)
     return steps
@@ -336,8 +381,8 @@ def _need_covariates(cov: list[str]) -> None:
                        "project file")
 
 
-def _need_margin(spec: Mapping[str, Any]) -> None:
-    if spec.get("margin_rate") is None and spec.get("margin_per_month") is None:
+def _need_margin(spec: ValueConfig) -> None:
+    if spec.margin_rate is None and spec.margin_per_month is None:
         raise NotSetUp("[value]", "no margin is set, so no lifetime value is computed",
                        "set margin_rate (with price) or margin_per_month in [value]")
 
@@ -354,13 +399,8 @@ def _actual_vs_expected(table: StartStop, basis: Any, options: RunOptions) -> An
 
 
 def _finance_table(done: dict[str, Outcome]) -> pd.DataFrame:
-    """The finance rows exactly as :func:`retain.decisions.value.finance_export` writes them.
-
-    The export writes a CSV and a JSON; it runs in a scratch folder and only its
-    table is kept (the site writes the CSV beside its other downloads).
-    """
-    import tempfile
-
+    """The finance rows (:func:`retain.decisions.value.finance_table`); the site writes
+    them as a CSV beside its other downloads."""
     from retain.decisions import value
 
     new, base = done[step_names.VALUE_SEGMENTS], done[step_names.VALUE_BASE]
@@ -369,29 +409,29 @@ def _finance_table(done: dict[str, Outcome]) -> pd.DataFrame:
     if not (new.ok or base.ok):
         raise ModelError("finance file", "neither value figure could be computed",
                          new.error or base.error or "")
-    with tempfile.TemporaryDirectory(prefix="retain-finance-") as tmp:
-        return value.finance_export(tmp, new_customers=new.value if new.ok else None,
-                                    base=base.value if base.ok else None).table
+    return value.finance_table(new_customers=new.value if new.ok else None,
+                               base=base.value if base.ok else None)
 
 
 def _decision_steps(table: StartStop, options: RunOptions,
                     done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
     from retain.decisions import experiments, value
 
-    spec = dict(options.value)
+    spec = options.value
     by = tuple(options.segments[:1])
     steps: list[tuple[str, Callable[[], Any]]] = []
-    if spec:
+    if spec is not None:
         steps += [
-            (step_names.VALUE_ALL, lambda: _need_margin(spec) or value.value_by_segment(table, spec, (), as_of=options.as_of)),
+            (step_names.VALUE_ALL, lambda: _need_margin(spec) or value.value_by_segment(
+                table, spec, (), as_of=options.as_of)),
             (step_names.VALUE_SEGMENTS, lambda: _need_margin(spec) or value.value_by_segment(
                 table, spec, by, as_of=options.as_of)),
             (step_names.VALUE_BASE, lambda: _need_margin(spec) or value.base_value_by_segment(
                 table, spec, by, as_of=options.as_of, n_draws=BASE_VALUE_DRAWS)),
             (step_names.VALUE_FINANCE, lambda: _finance_table(done)),
         ]
-    price = str(spec.get("price") or "price")
+    price = (spec.price if spec is not None else None) or "price"
     for name, exp in options.experiments.items():
         steps.append((step_names.experiment(name), lambda exp=exp: experiments.experiment_verdict(
-            table, exp, as_of=options.as_of, price=price, missing=options.missing)))
+            table, exp, as_of=options.as_of, price=price, missing=options.model.missing)))
     return steps

@@ -17,7 +17,6 @@ from retain.decisions.value import (
     SegmentValues,
     curve_from_model,
     curve_from_renewal,
-    finance_export,
     lifetime_value,
     residual_value,
 )
@@ -25,6 +24,7 @@ from retain.errors import DataError
 from retain.kernels import discount as kd
 from retain.models.parametric import fit_weibull
 from retain.models.renewal import fit_renewal
+from retain.publish.finance import finance_export
 from retain.units import DAYS_PER_MONTH
 
 #: Fader & Hardie (2007, Journal of Interactive Marketing 21(1), Table 1), "regular"

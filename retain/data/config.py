@@ -8,6 +8,7 @@ relative to the toml file.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import difflib
 import functools
@@ -252,6 +253,79 @@ def output_columns(attributes: tuple[AttributeSpec, ...]) -> tuple[str, ...]:
     varying = [a.name for a in attributes if a.varies]
     ratios = [f"{a.name}_ratio" for a in attributes if a.ratio]
     return (*CORE_OUTPUT, *static, *varying, *ratios, *DERIVED)
+
+
+# ---------------------------------------------------------------------- settings given in Python
+def as_date(value: Any, where: str) -> dt.date | None:
+    """A date from a ``date``, a ``datetime`` or "YYYY-MM-DD" text; None for None or blank text.
+
+    The one place text becomes a date for settings given in Python (the as-of
+    date of a run, an experiment's signup dates); inside, only dates travel.
+    """
+    if value is None or (isinstance(value, str) and not value.strip()):
+        return None
+    if isinstance(value, dt.datetime):
+        return value.date()
+    if isinstance(value, dt.date):
+        return value
+    try:
+        return dt.date.fromisoformat(str(value).strip())
+    except ValueError as exc:
+        raise ConfigError(where, f"{value!r} is not a date",
+                          'write it as "YYYY-MM-DD", e.g. "2026-11-30"') from exc
+
+
+def _settings_keys(cls: type, spec: Mapping[str, Any], where: str) -> dict[str, Any]:
+    allowed = [f.name for f in dataclasses.fields(cls)]
+    unknown = [k for k in spec if k not in allowed]
+    if unknown:
+        raise ConfigError(where, f"unknown key {unknown[0]!r}",
+                          f"allowed keys: {', '.join(allowed)}")
+    return dict(spec)
+
+
+def model_settings(spec: ModelConfig | Mapping[str, Any] | None) -> ModelConfig:
+    """``[model]`` settings as a :class:`ModelConfig`: one as it is, or a mapping with its
+    keys (lists become tuples; the class's defaults for the keys left out)."""
+    if isinstance(spec, ModelConfig):
+        return spec
+    keys = _settings_keys(ModelConfig, spec or {}, "[model]")
+    for key in ("covariates", "strata", "piecewise_cuts", "decrement_edges"):
+        if keys.get(key) is not None:
+            keys[key] = tuple(keys[key])
+    if "reference" in keys:
+        keys["reference"] = dict(keys["reference"] or {})
+    return ModelConfig(**keys)
+
+
+def value_settings(spec: ValueConfig | Mapping[str, Any] | None) -> ValueConfig:
+    """``[value]`` settings as a :class:`ValueConfig`: one as it is, or a mapping with its
+    keys (the class's defaults for the keys left out; None: every default)."""
+    if isinstance(spec, ValueConfig):
+        return spec
+    return ValueConfig(**_settings_keys(ValueConfig, spec or {}, "[value]"))
+
+
+def experiment_settings(spec: ExperimentSpec | Mapping[str, Any]) -> ExperimentSpec:
+    """``[experiments.<name>]`` settings as an :class:`ExperimentSpec`: one as it is, or a
+    mapping with its keys (lists become tuples, "YYYY-MM-DD" text becomes a date; the name
+    defaults to "experiment")."""
+    if isinstance(spec, ExperimentSpec):
+        return spec
+    keys = _settings_keys(ExperimentSpec, spec, "[experiments]")
+    name = str(keys.pop("name", None) or "experiment")
+    where = f"[experiments.{name}]"
+    for key in ("arm", "control"):
+        if not keys.get(key):
+            raise ConfigError(f"{where} {key}", "is required", f"add {key} = ... to the "
+                              "experiment")
+    for key in ("treatment", "cohorts"):
+        if keys.get(key) is not None:
+            keys[key] = tuple(keys[key])
+    keys["covariates"] = tuple(keys.get("covariates") or ())
+    for key in ("signup_from", "signup_to"):
+        keys[key] = as_date(keys.get(key), f"{where} {key}")
+    return ExperimentSpec(name=name, **keys)
 
 
 # ---------------------------------------------------------------------- reading
@@ -768,7 +842,7 @@ def _model(s: _Section, names: set[str], categorical: set[str]) -> ModelConfig:
         return out
 
     return ModelConfig(covariates=covs, strata=strata, reference=ref,
-                       missing=s.text("missing", default="stop",
+                       missing=s.text("missing", default=ModelConfig.missing,
                                       allowed=("stop", "complete_cases", "missing_level")),
                        piecewise_cuts=days("piecewise_cuts"),
                        decrement_edges=days("decrement_edges"))
@@ -790,11 +864,13 @@ def _value(s: _Section, attributes: tuple[AttributeSpec, ...]) -> ValueConfig:
         raise ConfigError(s.where("margin_rate"), "needs price = the attribute holding the "
                           "monthly price", "add price = \"price\"")
     return ValueConfig(price=price, margin_rate=rate, margin_per_month=per_month,
-                       annual_discount_rate=s.number("annual_discount_rate", default=0.10,
-                                                     low=0.0, high=1.0),
-                       horizon_months=s.number("horizon_months", default=60, low=1, high=600,
-                                               integer=True),
-                       curve=s.text("curve", default="weibull", allowed=CURVES))
+                       annual_discount_rate=s.number(
+                           "annual_discount_rate", default=ValueConfig.annual_discount_rate,
+                           low=0.0, high=1.0),
+                       horizon_months=s.number("horizon_months",
+                                               default=ValueConfig.horizon_months, low=1,
+                                               high=600, integer=True),
+                       curve=s.text("curve", default=ValueConfig.curve, allowed=CURVES))
 
 
 def _experiments(file: str, data: Any, attributes: tuple[AttributeSpec, ...],
@@ -840,10 +916,12 @@ def _experiments(file: str, data: Any, attributes: tuple[AttributeSpec, ...],
                               "churns can detect it", "give the effect sized for, e.g. 0.8")
         out.append(ExperimentSpec(name=name, arm=arm, control=control, treatment=treatment,
                                   cohorts=cohorts, signup_from=lo, signup_to=hi,
-                                  horizon_days=s.number("horizon_days", default=365, low=1,
-                                                        integer=True),
+                                  horizon_days=s.number("horizon_days",
+                                                        default=ExperimentSpec.horizon_days,
+                                                        low=1, integer=True),
                                   covariates=covs, target_hazard_ratio=target,
-                                  power=s.number("power", default=0.8, low=0.5, high=0.99)))
+                                  power=s.number("power", default=ExperimentSpec.power,
+                                                 low=0.5, high=0.99)))
     return tuple(out)
 
 

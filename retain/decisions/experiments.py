@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -33,8 +33,9 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 
+from retain.data.config import ExperimentSpec, as_date, experiment_settings
 from retain.data.table import Categorical, StartStop
-from retain.decisions.value import percentile_interval, spec_value
+from retain.decisions.value import percentile_interval
 from retain.errors import DataError, ModelError
 from retain.kernels import discount as kd
 from retain.kernels.risksets import first_of_spell
@@ -109,7 +110,7 @@ class ExperimentVerdict(Result):
     control: str
     treatments: tuple[str, ...]
     selection: str
-    as_of: str | None
+    as_of: dt.date | None
     planned_horizon_days: float
     analysis_horizon_days: float
     interim: bool
@@ -196,25 +197,24 @@ def _cohort_of_rows(table: StartStop, where: str) -> np.ndarray:
                     "use the start-stop table written by `retain prepare`")
 
 
-def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
+def select_experiment(table: StartStop, spec: ExperimentSpec | Mapping[str, Any]
+                      ) -> tuple[StartStop, str]:
     """The experiment's spells, one per customer, with follow-up cut at the horizon.
 
-    Returns the sub-table and a sentence describing the selection.
+    ``spec`` is an :class:`~retain.data.config.ExperimentSpec` (or a mapping with
+    its keys). Returns the sub-table and a sentence describing the selection.
     """
-    name = spec_value(spec, "name", "experiment")
-    where = f"experiment {name!r}"
-    arm = spec_value(spec, "arm")
-    control = spec_value(spec, "control")
-    horizon = float(spec_value(spec, "horizon_days", 365))
+    spec = experiment_settings(spec)
+    where = f"experiment {spec.name!r}"
+    arm, control = spec.arm, spec.control
+    horizon = float(spec.horizon_days)
     col = table.column(arm)
     if not isinstance(col, Categorical):
         raise DataError(where, f"the arm column {arm!r} is numeric", "declare it categorical")
     if control not in col.levels:
         raise DataError(where, f"control arm {control!r} does not occur in column {arm!r}",
                         f"arms found: {', '.join(col.levels) or '(none)'}")
-    treatment = spec_value(spec, "treatment")
-    treatments = tuple(treatment) if treatment else tuple(lv for lv in col.levels
-                                                         if lv != control)
+    treatments = spec.treatment or tuple(lv for lv in col.levels if lv != control)
     missing = [t for t in treatments if t not in col.levels]
     if missing:
         raise DataError(where, f"treatment arm(s) {', '.join(missing)} do not occur in {arm!r}",
@@ -226,8 +226,8 @@ def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
     arms_wanted = np.isin(np.asarray(col.levels, dtype=object), (control, *treatments))
     arm_code = col.codes[head]
     ok = (arm_code >= 0) & arms_wanted[np.clip(arm_code, 0, None)]
-    cohorts = spec_value(spec, "cohorts")
-    lo, hi = spec_value(spec, "signup_from"), spec_value(spec, "signup_to")
+    cohorts = spec.cohorts
+    lo, hi = spec.signup_from, spec.signup_to
     if cohorts:
         ok &= np.isin(_cohort_of_rows(table, where)[head], list(cohorts))
         selection = f"spells started in cohort(s) {', '.join(cohorts)}"
@@ -274,33 +274,17 @@ def select_experiment(table: StartStop, spec: Any) -> tuple[StartStop, str]:
 # ---------------------------------------------------------------- pieces
 
 
-def _planned_end(spec: Any) -> dt.date | None:
-    horizon = int(spec_value(spec, "horizon_days", 365))
-    cohorts = spec_value(spec, "cohorts")
+def _planned_end(spec: ExperimentSpec) -> dt.date | None:
     last: dt.date | None = None
-    if cohorts:
-        y, m = max(cohorts).split("-")
+    if spec.cohorts:
+        y, m = max(spec.cohorts).split("-")
         nxt = dt.date(int(y) + (int(m) == 12), int(m) % 12 + 1, 1)
         last = nxt - dt.timedelta(days=1)
-    elif spec_value(spec, "signup_to") is not None:
-        last = _as_date(spec_value(spec, "signup_to"))
+    elif spec.signup_to is not None:
+        last = spec.signup_to
     if last is None:
         return None
-    return last + dt.timedelta(days=horizon)
-
-
-def _as_date(value: Any) -> dt.date | None:
-    if value is None or (isinstance(value, str) and not value.strip()):
-        return None  # no as-of date (a table prepared elsewhere): nothing is interim
-    if isinstance(value, dt.datetime):
-        return value.date()
-    if isinstance(value, dt.date):
-        return value
-    try:
-        return dt.date.fromisoformat(str(value).strip())
-    except ValueError as exc:
-        raise DataError("experiment dates", f"{value!r} is not a date",
-                        'write it as "YYYY-MM-DD"') from exc
+    return last + dt.timedelta(days=spec.horizon_days)
 
 
 def balance_table(table: StartStop, arm: str, control: str, treatments: Sequence[str],
@@ -413,13 +397,13 @@ def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
 
 def experiment_verdict(
     table: StartStop,
-    spec: Any,
+    spec: ExperimentSpec | Mapping[str, Any],
     *,
-    as_of: Any = None,
+    as_of: dt.date | str | None = None,
     price: str = "price",
     conf: float = 0.95,
     target_hazard_ratio: float | None = None,
-    power: float = 0.8,
+    power: float | None = None,
     alpha: float = 0.05,
     n_boot: int = DEFAULT_BOOT,
     seed: int = DEFAULT_SEED,
@@ -432,15 +416,16 @@ def experiment_verdict(
     table : StartStop
         The prepared start-stop table (with customer ids and spell start dates).
     spec : ExperimentSpec
-        From retain.toml ``[experiments.<name>]``.
+        From retain.toml ``[experiments.<name>]`` (or a mapping with its keys).
     as_of : date or "YYYY-MM-DD"
         The data's as-of date; before the planned end (last signup day of the
-        experiment + horizon) the verdict is interim.
+        experiment + horizon) the verdict is interim. None or blank: no as-of
+        date (a table prepared elsewhere), nothing is interim.
     price : str
         Numeric column with the monthly price on each row.
     target_hazard_ratio, power, alpha
         The effect the experiment was sized for (default: the spec's
-        ``target_hazard_ratio`` and ``power``); with a target, a warning is
+        ``target_hazard_ratio``; ``power`` defaults to the spec's); with a target, a warning is
         raised when the events observed are fewer than Schoenfeld's (1983)
         number. The smallest hazard ratio detectable with the events observed
         is always reported.
@@ -451,24 +436,27 @@ def experiment_verdict(
         (:mod:`retain.models.missing`); what it left out is in ``missing`` and
         ``warnings``. Curves, restricted means and revenue use every row.
     """
-    name = spec_value(spec, "name", "experiment")
+    spec = experiment_settings(spec)
+    as_of_d = as_date(as_of, f"experiment {spec.name!r}: as_of")
+    name = spec.name
     where = f"experiment {name!r}"
     if target_hazard_ratio is None:
-        target_hazard_ratio = spec_value(spec, "target_hazard_ratio")
-        power = float(spec_value(spec, "power", power))
+        target_hazard_ratio = spec.target_hazard_ratio
+        power = spec.power
+    elif power is None:
+        power = spec.power
     if not table.has_customers:
         raise DataError(where, "the table has no customer_id", "use the uncompressed table")
     if not 0.5 <= conf < 1.0:
         raise ModelError(where, f"conf must be in [0.5, 1), got {conf!r}", "use 0.95")
-    arm = spec_value(spec, "arm")
-    control = spec_value(spec, "control")
+    arm, control = spec.arm, spec.control
     sub, selection = select_experiment(table, spec)
     acol = sub.column(arm)
     assert isinstance(acol, Categorical)
     present = set(acol.take(np.unique(first_of_spell(sub.customer.codes, sub.spell,
                                                      sub.start))).values())
-    treatment = spec_value(spec, "treatment")
-    treatments = tuple(t for t in (treatment or sorted(present - {control})) if t != control)
+    treatments = tuple(t for t in (spec.treatment or sorted(present - {control}))
+                       if t != control)
     warnings: list[str] = []
     if control not in present:
         raise DataError(where, f"no customer of the experiment is in the control arm {control!r}",
@@ -480,8 +468,7 @@ def experiment_verdict(
     if not treatments:
         raise DataError(where, "no treatment arm has customers", "check the arm values")
 
-    planned = float(spec_value(spec, "horizon_days", 365))
-    as_of_d = _as_date(as_of)
+    planned = float(spec.horizon_days)
     end = _planned_end(spec)
     interim = bool(as_of_d is not None and end is not None and as_of_d < end)
     follow = float(sub.stop.max())
@@ -497,7 +484,7 @@ def experiment_verdict(
     warnings.extend(curves.warnings)
     logrank = compare_groups(sub, arm)
     warnings.extend(logrank.warnings)
-    covariates = tuple(spec_value(spec, "covariates", ()) or ())
+    covariates = spec.covariates
     adjusted, cox_warn, dropped = _adjusted_hazard_ratios(sub, arm, control, treatments,
                                                           covariates, conf, missing)
     warnings.extend(cox_warn)
@@ -581,7 +568,7 @@ def experiment_verdict(
 
     return ExperimentVerdict(
         name=name, arm=arm, control=control, treatments=treatments, selection=selection,
-        as_of=None if as_of_d is None else as_of_d.isoformat(), planned_horizon_days=planned,
+        as_of=as_of_d, planned_horizon_days=planned,
         analysis_horizon_days=analysis, interim=interim, arms=arms, curves=curves,
         logrank=logrank, adjusted=adjusted, rmst=tuple(rmst), revenue=tuple(revenue),
         balance=balance, power=power_info, conf=conf, warnings=tuple(warnings), missing=dropped)

@@ -28,16 +28,16 @@ These are statistical estimates, not accounting figures: see :data:`CAUTION`.
 from __future__ import annotations
 
 import dataclasses
-import json
+import datetime as dt
 import math
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
-from pathlib import Path
+from dataclasses import dataclass
 from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
 import pandas as pd
 
+from retain.data.config import CURVES, ValueConfig, as_date, value_settings
 from retain.data.table import Categorical, StartStop
 from retain.errors import ConfigError, DataError, ModelError, RetainError
 from retain.kernels import discount as kd
@@ -564,9 +564,12 @@ class SegmentValues(Result):
     by: tuple[str, ...]
     curve: str
     values: tuple[LifetimeValue, ...]
-    as_of: str | None = None
+    as_of: dt.date | None = None
     caution: str = CAUTION
     warnings: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "as_of", as_date(self.as_of, "lifetime value: as_of"))
 
     def to_frame(self) -> pd.DataFrame:
         if not self.values:
@@ -616,9 +619,12 @@ class BaseValue(Result):
     level: float
     interval_method: str
     n_draws: int
-    as_of: str | None = None
+    as_of: dt.date | None = None
     caution: str = CAUTION
     warnings: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "as_of", as_date(self.as_of, "residual value: as_of"))
 
     @property
     def total(self) -> float:
@@ -683,7 +689,7 @@ def lifetime_value(
     *,
     margin_per_month: float,
     annual_discount_rate: float,
-    horizon_months: int | None = 60,
+    horizon_months: int | None = ValueConfig.horizon_months,
     segment: str = "all",
     customers: int = 0,
     margin_basis: str | None = None,
@@ -894,13 +900,6 @@ def _margin_for_rows(table: StartStop, rows: np.ndarray, *, margin_per_month: fl
     return float(margin_rate) * p, f"margin_rate {margin_rate:g} x {price}"
 
 
-def spec_value(spec: Any, name: str, default: Any = None) -> Any:
-    """A setting from a config dataclass or a plain mapping."""
-    if isinstance(spec, Mapping):
-        return spec.get(name, default)
-    return getattr(spec, name, default)
-
-
 def _residual_per_tenure(fn: DrawFn, points: np.ndarray, inverse: np.ndarray,
                          shape: tuple[int, int], factors: np.ndarray) -> np.ndarray:
     """``sum_k S(t + k) / S(t) v^k`` for each tenure (per unit margin).
@@ -921,9 +920,9 @@ def residual_value(
     margin_per_month: float | None = None,
     margin_rate: float | None = None,
     price: str = "price",
-    annual_discount_rate: float = 0.10,
-    horizon_months: int | None = 60,
-    as_of: str | None = None,
+    annual_discount_rate: float = ValueConfig.annual_discount_rate,
+    horizon_months: int | None = ValueConfig.horizon_months,
+    as_of: dt.date | str | None = None,
     level: float = 0.95,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
@@ -1028,10 +1027,8 @@ def residual_value(
 
 # ---------------------------------------------------------------- by segment from the config
 
-CURVES = ("weibull", "exponential", "cox", "km_weibull_tail", "renewal")
 
-
-def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = "weibull", *,
+def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = ValueConfig.curve, *,
                    min_events: float = 5.0, conf: float = 0.95
                    ) -> tuple[dict[str, SurvivalCurve], tuple[str, ...]]:
     """One retention curve per segment (spells grouped by their starting values).
@@ -1098,12 +1095,12 @@ def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = "weibu
     return curves, tuple(warnings)
 
 
-def _segment_margin(table: StartStop, mask: np.ndarray, spec: Any) -> tuple[float, str]:
-    per_month = spec_value(spec, "margin_per_month")
+def _segment_margin(table: StartStop, mask: np.ndarray, spec: ValueConfig) -> tuple[float, str]:
+    per_month = spec.margin_per_month
     if per_month is not None:
         return float(per_month), f"margin_per_month = {per_month:g}"
-    rate = spec_value(spec, "margin_rate")
-    price = spec_value(spec, "price") or "price"
+    rate = spec.margin_rate
+    price = spec.price or "price"
     if rate is None:
         raise ConfigError("[value]", "neither margin_per_month nor margin_rate is set",
                           "set margin_rate (share of the monthly price) or margin_per_month")
@@ -1120,11 +1117,11 @@ def _segment_margin(table: StartStop, mask: np.ndarray, spec: Any) -> tuple[floa
 
 def value_by_segment(
     table: StartStop,
-    spec: Any,
+    spec: ValueConfig | Mapping[str, Any],
     by: Sequence[str] = (),
     *,
     curves: Mapping[str, SurvivalCurve] | None = None,
-    as_of: str | None = None,
+    as_of: dt.date | str | None = None,
     level: float = 0.95,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
@@ -1137,7 +1134,8 @@ def value_by_segment(
     of a customer in the segment brings in). Curves: fitted by
     :func:`segment_curves` with ``spec.curve`` unless given.
     """
-    kind = str(spec_value(spec, "curve", "weibull"))
+    spec = value_settings(spec)
+    kind = spec.curve
     warnings: list[str] = []
     if curves is None:
         curves, w = segment_curves(table, by, kind)
@@ -1154,8 +1152,8 @@ def value_by_segment(
         margin, basis = _segment_margin(table, mask, spec)
         values.append(lifetime_value(
             curve, margin_per_month=margin,
-            annual_discount_rate=float(spec_value(spec, "annual_discount_rate", 0.10)),
-            horizon_months=spec_value(spec, "horizon_months", 60), segment=seg,
+            annual_discount_rate=float(spec.annual_discount_rate),
+            horizon_months=spec.horizon_months, segment=seg,
             customers=int(round(float(table.weight[mask & head_mask].sum()))),
             margin_basis=basis, level=level, n_draws=n_draws, seed=seed))
     return SegmentValues(by=tuple(by), curve=kind, values=tuple(values), as_of=as_of,
@@ -1164,11 +1162,11 @@ def value_by_segment(
 
 def base_value_by_segment(
     table: StartStop,
-    spec: Any,
+    spec: ValueConfig | Mapping[str, Any],
     by: Sequence[str] = (),
     *,
     curves: Mapping[str, SurvivalCurve] | None = None,
-    as_of: str | None = None,
+    as_of: dt.date | str | None = None,
     level: float = 0.95,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
@@ -1178,37 +1176,20 @@ def base_value_by_segment(
     Each active customer's margin is ``margin_per_month``, or ``margin_rate``
     x the price on their last row (their current price).
     """
+    spec = value_settings(spec)
     warnings: tuple[str, ...] = ()
     if curves is None:
-        curves, warnings = segment_curves(table, by, str(spec_value(spec, "curve", "weibull")))
+        curves, warnings = segment_curves(table, by, spec.curve)
     out = residual_value(
-        table, curves, by=by, margin_per_month=spec_value(spec, "margin_per_month"),
-        margin_rate=spec_value(spec, "margin_rate"), price=spec_value(spec, "price") or "price",
-        annual_discount_rate=float(spec_value(spec, "annual_discount_rate", 0.10)),
-        horizon_months=spec_value(spec, "horizon_months", 60), as_of=as_of, level=level,
+        table, curves, by=by, margin_per_month=spec.margin_per_month,
+        margin_rate=spec.margin_rate, price=spec.price or "price",
+        annual_discount_rate=float(spec.annual_discount_rate),
+        horizon_months=spec.horizon_months, as_of=as_of, level=level,
         n_draws=n_draws, seed=seed)
     return dataclasses.replace(out, warnings=tuple(warnings) + out.warnings)
 
 
-# ---------------------------------------------------------------- finance export
-
-
-@dataclass(frozen=True)
-class FinanceExport(Result):
-    """The finance file pair of one run: rows, assumptions, caution, paths."""
-
-    csv_path: str
-    json_path: str
-    table: pd.DataFrame
-    assumptions: dict[str, Any] = field(default_factory=dict)
-    caution: str = CAUTION
-
-    def to_frame(self) -> pd.DataFrame:
-        return self.table.copy()
-
-    def summary(self) -> str:
-        return f"Finance export: {len(self.table)} rows written to {self.csv_path}."
-
+# ---------------------------------------------------------------- the finance table
 
 EXPORT_COLUMNS = (
     "figure", "segment", "customers", "value_per_customer", "lower", "upper", "total",
@@ -1217,24 +1198,24 @@ EXPORT_COLUMNS = (
 )
 
 
-def finance_export(
-    out_dir: str | Path,
+def finance_table(
     *,
     new_customers: SegmentValues | None = None,
     base: BaseValue | None = None,
-    as_of: str | None = None,
-    stem: str = "finance_value",
-) -> FinanceExport:
-    """Write one CSV and one JSON with every value figure and its assumptions.
+    as_of: dt.date | str | None = None,
+) -> pd.DataFrame:
+    """Every value figure and its assumptions, one row per (figure, segment).
 
-    One row per (figure, segment): ``figure`` is ``new customer`` (value of a
-    new customer; ``total`` is blank) or ``active base`` (residual value;
-    ``total`` is the segment's sum). Every assumption is a column, and the
-    caution text is on every row and at the top of the JSON.
+    ``figure`` is ``new customer`` (value of a new customer; ``total`` is
+    blank) or ``active base`` (residual value; ``total`` is the segment's
+    sum). Every assumption is a column and the caution text is on every row;
+    ``as_of`` (a date) defaults to the results' own. Writing the table to files
+    is :func:`retain.publish.finance.finance_export`.
     """
     if new_customers is None and base is None:
         raise ConfigError("finance export", "nothing to export",
                           "pass new_customers and/or base")
+    as_of = as_date(as_of, "finance export: as_of")
     rows: list[dict[str, Any]] = []
     if new_customers is not None:
         for v in new_customers.values:
@@ -1262,22 +1243,4 @@ def finance_export(
         r["caution"] = CAUTION
         if r["horizon_months"] is None:
             r["horizon_months"] = "no cap"
-    table = pd.DataFrame(rows, columns=list(EXPORT_COLUMNS))
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    csv_path = out / f"{stem}.csv"
-    json_path = out / f"{stem}.json"
-    table.to_csv(csv_path, index=False, lineterminator="\n")
-    warnings = list(new_customers.warnings if new_customers else ()) + \
-        list(base.warnings if base else ())
-    if new_customers is not None:
-        for v in new_customers.values:
-            warnings.extend(f"{v.segment}: {w}" for w in v.warnings)
-    assumptions = {"as_of": as_of or (new_customers.as_of if new_customers else None) or
-                   (base.as_of if base else None), "timing": TIMING,
-                   "time_unit": f"month = {DAYS_PER_MONTH} days of tenure"}
-    doc = {"caution": CAUTION, "assumptions": assumptions, "warnings": warnings,
-           "rows": to_jsonable(table)}
-    json_path.write_text(json.dumps(doc, indent=2, allow_nan=False) + "\n", encoding="utf-8")
-    return FinanceExport(csv_path=str(csv_path), json_path=str(json_path), table=table,
-                         assumptions=assumptions)
+    return pd.DataFrame(rows, columns=list(EXPORT_COLUMNS))
