@@ -55,6 +55,8 @@ from typing import NamedTuple
 import numpy as np
 from scipy import sparse
 
+from retain.kernels.newton import NewtonSolution, newton_maximize
+
 CHUNK = 1 << 14
 
 
@@ -521,44 +523,28 @@ def schoenfeld_residuals(index: RiskIndex, X: np.ndarray, weight: np.ndarray, be
     return X[index.event_rows] - xbar[index.event_k]
 
 
-class NewtonResult(NamedTuple):
-    beta: np.ndarray
-    loglik: float
-    grad: np.ndarray
-    info: np.ndarray
-    loglik0: float
-    grad0: np.ndarray
-    info0: np.ndarray
-    history: list
-    converged: bool
-    iterations: int
-    state: RiskState  # at beta: reused by the robust errors and the baseline
-
-
 def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.ndarray,
                offset: np.ndarray | None = None, efron: bool = True, penalty: float = 0.0,
                beta0: np.ndarray | None = None, max_iter: int = 50, tol: float = 1e-9,
-               max_halvings: int = 40, check_info0=None) -> NewtonResult:
+               max_halvings: int = 40, check_info0=None) -> NewtonSolution:
     r"""Maximise the (optionally L2-penalised) log partial likelihood by Newton–Raphson.
 
     Penalised objective :math:`\ell(\beta) - \tfrac{\lambda}{2}\lVert\beta\rVert^2`.
-    Each step solves :math:`(\mathcal I + \lambda I)s = U - \lambda\beta`; if the
-    objective falls (or is not finite) the step is halved, up to ``max_halvings``
-    times. Convergence rule: stop when every component of the Newton step is
-    below ``tol`` standard errors, :math:`\max_j |s_j| / \sqrt{[(\mathcal I+\lambda
-    I)^{-1}]_{jj}} < \text{tol}`, or when a step changes the objective by less
-    than :math:`10^{-14}(1+|\ell|)` after at least one full step (round-off
-    floor). Newton converges quadratically, so the error left in
-    :math:`\beta` is far below ``tol`` standard errors.
+    Each step solves :math:`(\mathcal I + \lambda I)s = U - \lambda\beta` and is
+    halved while the objective falls (:func:`retain.kernels.newton.newton_maximize`,
+    rule ``"standard_errors"``): stop when every component of the Newton step is
+    below ``tol`` standard errors, or at the round-off floor. Newton converges
+    quadratically, so the error left in :math:`\beta` is far below ``tol``
+    standard errors.
 
-    ``history`` lists ``(iteration, objective, max |step| in SE, halvings)``.
-    Only the current and the candidate state are alive at once. ``check_info0``,
-    if given, is called with the unpenalised information at ``beta0`` before
-    the first step (a caller's check for collinear columns; it may raise).
+    The solution's ``state`` is the :class:`RiskState` at the estimate (reused by
+    the robust errors and the baseline); only the current and the candidate state
+    are alive at once. ``check_info0``, if given, is called with the unpenalised
+    information at ``beta0`` before the first step (a caller's check for collinear
+    columns; it may raise).
     """
     p = X.shape[1]
     beta = np.zeros(p) if beta0 is None else np.array(beta0, dtype=float)
-    history: list = []
 
     X_ev = np.ascontiguousarray(X[index.churn_rows])
     dwX = weight[index.churn_rows] @ X_ev
@@ -573,56 +559,12 @@ def newton_cox(index: RiskIndex, X: np.ndarray, weight: np.ndarray, churned: np.
                 H = H + penalty * np.eye(p)
         return ll, g, H, st
 
-    ll, g, H, state = objective(beta)
-    ll0, g0, H0 = ll, g, H
+    check = None
     if check_info0 is not None:
-        check_info0(H - penalty * np.eye(p) if penalty else H)
-    converged = False
-    it = 0
-    for it in range(1, max_iter + 1):
-        try:
-            Hinv = np.linalg.inv(H)
-        except np.linalg.LinAlgError:
-            history.append((it, ll, float("nan"), 0))
-            break
-        step = Hinv @ g
-        sd = np.sqrt(np.abs(np.diag(Hinv)))
-        size = float(np.max(np.abs(step) / np.where(sd > 0, sd, 1.0))) if p else 0.0
-        if not np.isfinite(size):
-            history.append((it, ll, size, 0))
-            break
-        if size < tol:
-            history.append((it, ll, size, 0))
-            converged = True
-            break
-        halvings = 0
-        t = 1.0
-        while True:
-            # the full step is nearly always taken, so evaluate everything at once
-            cand = beta + t * step
-            with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-                ll_new, g_new, H_new, st_new = objective(cand, hess=halvings == 0)
-            if np.isfinite(ll_new) and ll_new >= ll - 1e-12 * (1 + abs(ll)):
-                break
-            halvings += 1
-            t *= 0.5
-            if halvings > max_halvings:
-                break
-        history.append((it, ll, size, halvings))
-        if halvings > max_halvings:
-            break
-        beta = cand
-        prev = ll
-        if halvings == 0:
-            ll, g, H, state = ll_new, g_new, H_new, st_new
-        else:
-            ll, g, H, state = objective(beta)
-        del st_new
-        if halvings == 0 and abs(ll - prev) < 1e-14 * (1 + abs(ll)) and size < 1e-4:
-            history.append((it + 1, ll, float("nan"), 0))
-            converged = True
-            break
-    return NewtonResult(beta, ll, g, H, ll0, g0, H0, history, converged, it, state)
+        def check(H: np.ndarray) -> None:
+            check_info0(H - penalty * np.eye(p) if penalty else H)
+    return newton_maximize(objective, beta, rule="standard_errors", tol=tol,
+                           max_iter=max_iter, max_halvings=max_halvings, check_start=check)
 
 
 def concordance_counts(index: RiskIndex, eta: np.ndarray, churned: np.ndarray,

@@ -22,13 +22,12 @@ Models (eta = b0 + x'b is the log-linear predictor)
 * piecewise-constant: h(t|x) = exp(a_k + x'b) for t in band k = (c_k, c_{k+1}]
 
 Each kernel returns ``(loglik, gradient, hessian)`` in closed form so that
-Newton's method with step halving (:func:`newton_maximize`) converges in a
-handful of passes over the rows.
+Newton's method with step halving (:func:`retain.kernels.newton.newton_maximize`)
+converges in a handful of passes over the rows.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -39,7 +38,6 @@ __all__ = [
     "SurvivalRows",
     "band_exposure",
     "exponential_loglik",
-    "newton_maximize",
     "piecewise_closed_form",
     "piecewise_loglik",
     "weibull_loglik",
@@ -433,94 +431,6 @@ def piecewise_loglik(theta: np.ndarray, rows: PiecewiseRows, *, derivatives: boo
         hess[K:, :K] = cross.T
         hess[K:, K:] = -hxx
     return ll, grad, hess
-
-
-# --------------------------------------------------------------------- Newton
-def _accept(ll_new: float, ll_old: float) -> bool:
-    return bool(np.isfinite(ll_new) and ll_new >= ll_old - 1e-12 * (1.0 + abs(ll_old)))
-
-
-Objective = Callable[..., tuple[float, "np.ndarray | None", "np.ndarray | None"]]
-
-
-def newton_maximize(fun: Objective, theta0: np.ndarray, *, max_iter: int = 100,
-                    tol: float = 1e-14, max_halvings: int = 40, max_step: float = 5.0
-                    ) -> tuple[np.ndarray, float, np.ndarray, np.ndarray, list[dict], bool]:
-    """Maximise a concave-near-the-optimum function with Newton's method.
-
-    Each step solves -H s = g (Cholesky; when -H is not positive definite a
-    Levenberg ridge is added until it is), then halves the step until the
-    objective does not decrease (Nocedal & Wright 2006, sec. 3.1 backtracking).
-    Steps longer than ``max_step`` in any coordinate are shortened first
-    (the parameters are logs, so 5 is a factor of about 150).
-    Stops when the Newton decrement g'(-H)^{-1} g / 2 falls below ``tol``
-    (Boyd & Vandenberghe 2004, sec. 9.5.1).
-
-    Parameters
-    ----------
-    fun : callable
-        ``fun(theta, derivatives=True) -> (value, gradient, hessian)``.
-
-    Returns
-    -------
-    theta, value, gradient, hessian, history (one dict per iteration), converged
-    """
-    theta = np.asarray(theta0, dtype=np.float64).copy()
-    ll, grad, hess = fun(theta)
-    history: list[dict] = []
-    converged = False
-    k = theta.shape[0]
-    for it in range(max_iter):
-        if not np.isfinite(ll) or not np.all(np.isfinite(grad)) or not np.all(np.isfinite(hess)):
-            history.append({"iteration": it, "loglik": ll, "note": "non-finite value"})
-            break
-        neg = -hess
-        ridge = 0.0
-        scale = float(np.max(np.abs(np.diag(neg)))) if k else 1.0
-        scale = scale if scale > 0 else 1.0
-        for _ in range(60):
-            try:
-                chol = np.linalg.cholesky(neg + ridge * np.eye(k))
-                break
-            except np.linalg.LinAlgError:
-                ridge = max(ridge * 10.0, 1e-10 * scale)
-        else:
-            history.append({"iteration": it, "loglik": ll, "note": "information not invertible"})
-            break
-        step = np.linalg.solve(chol.T, np.linalg.solve(chol, grad))
-        decrement = float(grad @ step) / 2.0
-        biggest = float(np.max(np.abs(step))) if k else 0.0
-        if biggest > max_step:   # every parameter is on a log scale: cap wild first steps
-            step = step * (max_step / biggest)
-        history.append({"iteration": it, "loglik": ll, "decrement": decrement,
-                        "max_gradient": float(np.max(np.abs(grad))) if k else 0.0,
-                        "ridge": ridge})
-        if decrement < tol and ridge == 0.0:
-            converged = True
-            break
-        # the full step is evaluated with derivatives (usually accepted: one pass);
-        # shorter steps are tried on the value alone
-        t = 1.0
-        cand = theta + step
-        ll_c, grad_c, hess_c = fun(cand)
-        ok = _accept(ll_c, ll)
-        for _ in range(max_halvings):
-            if ok:
-                break
-            t *= 0.5
-            cand = theta + t * step
-            ll_c, _, _ = fun(cand, derivatives=False)
-            ok = _accept(ll_c, ll)
-        if not ok:
-            history[-1]["note"] = "step halving failed"
-            break
-        history[-1]["step_length"] = t
-        theta = cand
-        if t == 1.0:
-            ll, grad, hess = ll_c, grad_c, hess_c
-        else:
-            ll, grad, hess = fun(theta)
-    return theta, ll, grad, hess, history, converged
 
 
 # --------------------------------------------------------------------- prediction

@@ -859,7 +859,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
 
     res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter,
                        check_info0=check_info0)
-    size = np.abs(res.beta)
+    size = np.abs(res.params)
     for j in np.flatnonzero(size > 1.0):  # |beta| x sd only where it could be large
         size[j] *= np.sqrt(np.dot(w * Xc[:, j], Xc[:, j]) / w.sum())
     if not res.converged:
@@ -872,10 +872,11 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
                              "penalty (e.g. penalty=1)")
         raise ConvergenceError(where, f"Newton-Raphson did not converge in {res.iterations} "
                                "iterations", "check the iteration history, rescale numeric "
-                               "covariates, or set a small penalty", history=res.history)
+                               "covariates, or set a small penalty",
+                               history=[h.as_row() for h in res.history])
     big = np.flatnonzero(size > SEPARATION_SIZE)
     for j in big:
-        warn.append(f"{design.labels[j]}: very large coefficient ({res.beta[j]:.2f}); possible "
+        warn.append(f"{design.labels[j]}: very large coefficient ({res.params[j]:.2f}); possible "
                     "quasi separation -- merge levels or use a penalty")
     try:
         cov_model = np.linalg.inv(res.info)
@@ -890,44 +891,44 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         clusters = "row"
         warn.append("the table has no customer_id (e.g. compressed): robust errors treat each "
                     "row (times its weight) as independent, not clustered by customer")
-    cov_robust = _robust_cov(index, Xc, w, d, res.beta, off, efron, cluster, cov_model,
+    cov_robust = _robust_cov(index, Xc, w, d, res.params, off, efron, cluster, cov_model,
                              res.state)
     se_model = np.sqrt(np.diag(cov_model))
     se_robust = np.sqrt(np.diag(cov_robust))
     se = se_robust if robust else se_model
     cov = cov_robust if robust else cov_model
     zq = float(stats.norm.ppf(0.5 + conf / 2))
-    z = res.beta / se
+    z = res.params / se
     pval = 2 * stats.norm.sf(np.abs(z))
-    lr = 2 * (res.loglik - res.loglik0)
+    lr = 2 * (res.loglik - res.start_loglik)
     try:
-        wald = float(res.beta @ np.linalg.solve(cov, res.beta))
+        wald = float(res.params @ np.linalg.solve(cov, res.params))
     except np.linalg.LinAlgError:
         wald = float("nan")
     try:
-        score = float(res.grad0 @ np.linalg.solve(res.info0, res.grad0))
+        score = float(res.start_grad @ np.linalg.solve(res.start_info, res.start_grad))
     except np.linalg.LinAlgError:
         score = float("nan")
     if penalty:
         warn.append(f"L2 penalty {penalty:g}: coefficients are shrunk towards 0 and the tests use "
                     "the penalised log likelihood")
-    dH0 = K.breslow_increments(index, Xc, w, res.beta, off, state=res.state)
+    dH0 = K.breslow_increments(index, Xc, w, res.params, off, state=res.state)
     xbar = res.state.stats.S1 / res.state.stats.S0[:, None]
-    res = res._replace(state=None)  # free the risk scores held for reuse
+    res = dataclasses.replace(res, state=None)  # free the risk scores held for reuse
     return CoxFit(
         covariates=tuple(covariates), columns=design.columns, labels=design.labels,
-        reference=dict(design.reference), coef=res.beta, se=se, se_model=se_model,
+        reference=dict(design.reference), coef=res.params, se=se, se_model=se_model,
         se_robust=se_robust, cov_model=cov_model, cov_robust=cov_robust, z=z, p_value=pval,
-        ci_low=res.beta - zq * se, ci_high=res.beta + zq * se, conf=float(conf), ties=ties,
+        ci_low=res.params - zq * se, ci_high=res.params + zq * se, conf=float(conf), ties=ties,
         strata=strata_t, stratum_labels=stratum_labels, penalty=float(penalty),
         robust=bool(robust), robust_clusters=clusters, n_rows=table.n_rows,
         n_customers=(int(np.count_nonzero(np.bincount(cluster))) if cluster is not None
                      else table.n_rows),
         n_events=n_events, events_per_parameter=float(epp), loglik=res.loglik,
-        loglik_null=res.loglik0, lr_test=_chi2("likelihood ratio", lr, p),
+        loglik_null=res.start_loglik, lr_test=_chi2("likelihood ratio", lr, p),
         wald_test=_chi2("Wald" + (" (robust)" if robust else ""), wald, p),
         score_test=_chi2("score (log-rank)", score, p), aic=-2 * res.loglik + 2 * p,
-        iterations=res.iterations, history=tuple(tuple(h) for h in res.history),
+        iterations=res.iterations, history=tuple(h.as_row() for h in res.history),
         warnings=tuple(warn), source=table.source, design=design, _index=index, _Xc=Xc,
         _weight=w, _churned=d, _offset=off, _stratum=stratum, _dH0=dH0, _xbar=xbar, _table=table,
         _cluster=cluster, missing=dropped,

@@ -53,6 +53,7 @@ from scipy import stats
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import parametric as K
+from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
 from retain.models.design import Design, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
 from retain.results import Result, to_jsonable
@@ -748,13 +749,14 @@ def _one_blas_thread() -> Any:
 
 def _newton(fun: Any, theta0: np.ndarray, where: str, max_iter: int) -> tuple:
     with _one_blas_thread():
-        theta, ll, grad, hess, history, converged = K.newton_maximize(fun, theta0,
-                                                                      max_iter=max_iter)
-    if not converged:
+        res = newton_maximize(hessian_objective(fun), theta0, max_iter=max_iter,
+                              max_step=MAX_LOG_STEP)
+    history = [h.as_dict() for h in res.history]
+    if not res.converged:
         raise ConvergenceError(where, f"Newton's method did not converge in {len(history)} "
                                "iterations", "check for covariate levels with no churns or very "
                                "few rows; the history is attached", history=history)
-    return theta, ll, hess, history
+    return res.params, res.loglik, res.hessian, history
 
 
 def _n_customers(table: StartStop) -> int:

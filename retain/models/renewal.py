@@ -41,7 +41,7 @@ from scipy import stats
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import renewal as R
-from retain.kernels.parametric import newton_maximize
+from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
 
@@ -391,7 +391,9 @@ def _fit_counts(counts: RenewalCounts, conf: float, where: str) -> RenewalFit:
     risk1 = counts.at_risk[0]
     q1 = min(max(counts.churned[0] / risk1 if risk1 > 0 else 0.3, 0.02), 0.98)
     theta0 = np.log([2.0 * q1, 2.0 * (1.0 - q1)])
-    theta, ll, _, hess, history, converged = newton_maximize(fun, theta0, max_iter=200)
+    res = newton_maximize(hessian_objective(fun), theta0, max_iter=200, max_step=MAX_LOG_STEP)
+    theta, ll, hess, converged = res.params, res.loglik, res.hessian, res.converged
+    history = [h.as_dict() for h in res.history]
     info_ok = bool(np.all(np.isfinite(hess))) and _negative_definite(hess)
     if np.max(theta) > math.log(1e6) or (converged and not info_ok):
         # the likelihood keeps rising as alpha, beta -> infinity with alpha/(alpha+beta)
