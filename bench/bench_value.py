@@ -37,9 +37,10 @@ from sksurv.nonparametric import kaplan_meier_estimator
 
 from retain.data.table import StartStop
 from retain.decisions.experiments import revenue_per_customer
-from retain.decisions.value import curve_from_model, residual_value
+from retain.decisions.value import residual_value
 from retain.kernels.discount import revenue_to_horizon
 from retain.models.parametric import fit_weibull
+from retain.models.value_curves import curve_from_model
 from retain.units import DAYS_PER_MONTH
 
 ROOT = Path(__file__).resolve().parent

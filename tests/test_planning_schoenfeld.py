@@ -10,9 +10,9 @@ from scipy import integrate
 from statsmodels.stats.power import NormalIndPower
 
 from retain.decisions.planning import events_needed, plan_experiment
-from retain.decisions.value import ConstantRetention, FunctionCurve
 from retain.errors import ConfigError, ModelError
 from retain.kernels import discount as kd
+from retain.models.value_curves import ConstantRetention, FunctionCurve
 from retain.units import DAYS_PER_MONTH
 
 

@@ -15,13 +15,12 @@ from scipy import special
 
 from retain.decisions.value import (
     NO_CAP_MONTHS,
-    ConstantRetention,
-    FunctionCurve,
     lifetime_value,
     value_sensitivity,
 )
 from retain.errors import ConfigError, ModelError
 from retain.kernels import discount as kd
+from retain.models.value_curves import ConstantRetention, FunctionCurve
 from retain.units import DAYS_PER_MONTH
 
 

@@ -15,9 +15,6 @@ from sksurv.datasets import load_whas500
 
 from retain.data.table import StartStop
 from retain.decisions.value import (
-    curve_from_cox,
-    curve_from_kaplan_meier,
-    curve_from_model,
     lifetime_value,
     segment_curves,
     value_by_segment,
@@ -27,6 +24,7 @@ from retain.kernels import discount as kd
 from retain.models.cox import fit_cox
 from retain.models.curves import kaplan_meier
 from retain.models.parametric import fit_exponential, fit_weibull
+from retain.models.value_curves import curve_from_cox, curve_from_kaplan_meier, curve_from_model
 from retain.units import DAYS_PER_MONTH
 
 

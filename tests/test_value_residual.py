@@ -13,10 +13,7 @@ from retain.data.table import StartStop
 from retain.decisions.value import (
     CAUTION,
     EXPORT_COLUMNS,
-    ConstantRetention,
     SegmentValues,
-    curve_from_model,
-    curve_from_renewal,
     lifetime_value,
     residual_value,
 )
@@ -24,6 +21,7 @@ from retain.errors import DataError
 from retain.kernels import discount as kd
 from retain.models.parametric import fit_weibull
 from retain.models.renewal import fit_renewal
+from retain.models.value_curves import ConstantRetention, curve_from_model, curve_from_renewal
 from retain.publish.finance import finance_export
 from retain.units import DAYS_PER_MONTH
 

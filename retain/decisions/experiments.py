@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 
-from retain.data.config import ExperimentSpec, as_date, experiment_settings
+from retain.data.config import ExperimentSpec, ModelConfig, as_date, experiment_settings
 from retain.data.table import Categorical, StartStop
 from retain.decisions.value import percentile_interval
 from retain.errors import DataError, ModelError
@@ -366,7 +366,7 @@ def revenue_per_customer(table: StartStop, price: str, horizon_days: float, *,
 
 def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
                             treatments: Sequence[str], covariates: Sequence[str], conf: float,
-                            missing: str = "stop"
+                            missing: str = ModelConfig.missing
                             ) -> tuple[tuple[AdjustedHazardRatio, ...], list[str], Any]:
     head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
     # pre-assignment covariates are read at the start of the spell
@@ -407,7 +407,7 @@ def experiment_verdict(
     alpha: float = 0.05,
     n_boot: int = DEFAULT_BOOT,
     seed: int = DEFAULT_SEED,
-    missing: str = "stop",
+    missing: str = ModelConfig.missing,
 ) -> ExperimentVerdict:
     """Verdict on one pricing experiment (see the module docstring for what it holds).
 

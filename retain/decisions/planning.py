@@ -29,9 +29,10 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from retain.decisions.value import SurvivalCurve, one_row_frame
+from retain.decisions.value import one_row_frame
 from retain.errors import ConfigError, ModelError
 from retain.kernels import discount as kd
+from retain.models.value_curves import SurvivalCurve
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
 
