@@ -47,7 +47,8 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-__all__ = ["MAX_LOG_STEP", "RULES", "NewtonSolution", "NewtonStep", "hessian_objective", "newton_maximize"]
+__all__ = ["MAX_LOG_STEP", "RULES", "NewtonSolution", "NewtonStep", "hessian_objective",
+           "newton_maximize"]
 
 #: the convergence rules :func:`newton_maximize` knows
 RULES = ("standard_errors", "decrement")

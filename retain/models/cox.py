@@ -24,7 +24,6 @@ in :math:`\hat\beta` (Tsiatis 1981).
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -37,31 +36,13 @@ from scipy import stats
 from retain.data.table import Categorical, StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import cox as K
+from retain.kernels.threads import one_blas_thread
 from retain.models.design import Design, check_collinear_matrix, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
 from retain.results import Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 TIES = ("efron", "breslow")
-
-
-_BLAS_CONTROLLER: list = []
-
-
-def _single_blas_thread() -> contextlib.AbstractContextManager:
-    """Limit BLAS to one thread for the fit.
-
-    The products here are tall and thin (n x 10); on a busy machine a
-    multi-threaded BLAS spends far longer waking threads than computing. The
-    scan for BLAS libraries (~10 ms) is done once per process.
-    """
-    try:
-        from threadpoolctl import ThreadpoolController
-    except ImportError:  # pragma: no cover - threadpoolctl ships with scikit-learn
-        return contextlib.nullcontext()
-    if not _BLAS_CONTROLLER:
-        _BLAS_CONTROLLER.append(ThreadpoolController())
-    return _BLAS_CONTROLLER[0].limit(limits=1, user_api="blas")
 
 #: events per parameter below which a warning is attached (common practice: ~10)
 MIN_EVENTS_PER_PARAMETER = 10.0
@@ -784,7 +765,7 @@ def fit_cox(
     ConvergenceError
         No convergence within ``max_iter``; ``history`` holds the iterations.
     """
-    with _single_blas_thread():
+    with one_blas_thread():
         return _fit_cox(table, covariates, strata=strata, ties=ties, offset=offset,
                         penalty=penalty, reference=reference, robust=robust, conf=conf,
                         max_iter=max_iter, missing=missing)

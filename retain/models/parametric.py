@@ -39,7 +39,6 @@ Conventions
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 import math
 from collections.abc import Mapping, Sequence
@@ -54,6 +53,7 @@ from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import parametric as K
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
+from retain.kernels.threads import one_blas_thread
 from retain.models.design import Design, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
 from retain.results import Result, to_jsonable
@@ -733,22 +733,8 @@ def _prepare(table: StartStop, covariates: Sequence[str], reference: Mapping[str
     return _Prepared(design, Xc, scale, where, table, dropped)
 
 
-def _one_blas_thread() -> Any:
-    """Limit BLAS to one thread while a fit runs.
-
-    The products here are tall and thin (n x p with p ~ 10) and memory-bound;
-    on a shared machine, multi-threaded BLAS spins waiting for busy cores and
-    was measured 5-7x slower than one thread (bench/results/parametric.md).
-    """
-    try:
-        from threadpoolctl import threadpool_limits
-    except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
-        return contextlib.nullcontext()
-    return threadpool_limits(limits=1, user_api="blas")
-
-
 def _newton(fun: Any, theta0: np.ndarray, where: str, max_iter: int) -> tuple:
-    with _one_blas_thread():
+    with one_blas_thread():
         res = newton_maximize(hessian_objective(fun), theta0, max_iter=max_iter,
                               max_step=MAX_LOG_STEP)
     history = [h.as_dict() for h in res.history]
