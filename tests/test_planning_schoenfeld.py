@@ -11,7 +11,7 @@ from statsmodels.stats.power import NormalIndPower
 
 from retain.decisions.planning import events_needed, plan_experiment
 from retain.errors import ConfigError, ModelError
-from retain.kernels import discount as kd
+from retain.kernels import power as kd
 from retain.models.value_curves import ConstantRetention, FunctionCurve
 from retain.units import DAYS_PER_MONTH
 

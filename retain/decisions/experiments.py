@@ -38,6 +38,7 @@ from retain.data.table import Categorical, StartStop
 from retain.decisions.value import percentile_interval
 from retain.errors import DataError, ModelError
 from retain.kernels import discount as kd
+from retain.kernels import power as kp
 from retain.kernels.risksets import first_of_spell
 from retain.models.cox import fit_cox
 from retain.models.curves import (
@@ -318,7 +319,7 @@ def balance_table(table: StartStop, arm: str, control: str, treatments: Sequence
             for t in treatments:
                 tm = (arm_vals == t) & np.isfinite(x)
                 row[t] = float(np.average(x[tm], weights=w[tm])) if tm.any() else math.nan
-                sd = (kd.standardised_difference(x[tm], w[tm], x[cm], w[cm], binary=binary)
+                sd = (kp.standardised_difference(x[tm], w[tm], x[cm], w[cm], binary=binary)
                       if tm.any() and cm.any() else math.nan)
                 row[f"std_difference {t}"] = sd
             sds = [row[f"std_difference {t}"] for t in treatments]
@@ -553,12 +554,12 @@ def experiment_verdict(
         d_pair = float(arms.loc[arms["arm"].isin([control, t]), "churns"].sum())
         frac = n_t / (n_t + n_ctrl)
         info = {"events": d_pair, "treated_fraction": frac,
-                "detectable_hazard_ratio": kd.detectable_hazard_ratio(d_pair, power, alpha, frac)}
+                "detectable_hazard_ratio": kp.detectable_hazard_ratio(d_pair, power, alpha, frac)}
         if target_hazard_ratio is not None:
-            need = kd.schoenfeld_events(target_hazard_ratio, power, alpha, frac)
+            need = kp.schoenfeld_events(target_hazard_ratio, power, alpha, frac)
             info["target_hazard_ratio"] = target_hazard_ratio
             info["events_needed"] = need
-            info["power_at_target"] = kd.schoenfeld_power(d_pair, target_hazard_ratio, alpha,
+            info["power_at_target"] = kp.schoenfeld_power(d_pair, target_hazard_ratio, alpha,
                                                           frac)
             if d_pair < need:
                 warnings.append(f"too few events for {t}: {d_pair:g} churns, {math.ceil(need)} "

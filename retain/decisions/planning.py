@@ -31,7 +31,7 @@ import pandas as pd
 
 from retain.decisions.value import one_row_frame
 from retain.errors import ConfigError, ModelError
-from retain.kernels import discount as kd
+from retain.kernels import power as kp
 from retain.models.value_curves import SurvivalCurve
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
@@ -63,7 +63,7 @@ def events_needed(hazard_ratio: float, power: float = 0.8, alpha: float = 0.05,
         raise ConfigError("experiment planning: sides", f"must be 1 or 2, got {sides!r}",
                           "use 2 for a two-sided test")
     p = _check(hazard_ratio, power, alpha, allocation)
-    return kd.schoenfeld_events(hazard_ratio, power, alpha, p, sides)
+    return kp.schoenfeld_events(hazard_ratio, power, alpha, p, sides)
 
 
 @dataclass(frozen=True)
@@ -146,7 +146,7 @@ def plan_experiment(
     if signups_per_month is not None and not signups_per_month > 0:
         raise ConfigError(f"{where}: signups_per_month", f"must be > 0, got "
                           f"{signups_per_month!r}", "e.g. 2000")
-    d = math.ceil(kd.schoenfeld_events(hazard_ratio, power, alpha, p) - 1e-9)
+    d = math.ceil(kp.schoenfeld_events(hazard_ratio, power, alpha, p) - 1e-9)
     f = follow_up_months * DAYS_PER_MONTH
     if accrual_months is None:
         s = np.asarray(baseline.survival(np.array([f])), dtype=np.float64)
@@ -157,8 +157,8 @@ def plan_experiment(
     else:
         a = accrual_months * DAYS_PER_MONTH
         s = np.asarray(baseline.survival(np.array([f, f + a / 2.0, f + a])), dtype=np.float64)
-        pc = kd.simpson_event_probability(*s)
-        pt = kd.simpson_event_probability(*(s ** hazard_ratio))
+        pc = kp.simpson_event_probability(*s)
+        pt = kp.simpson_event_probability(*(s ** hazard_ratio))
         method = (f"uniform signup over {accrual_months:g} months, then {follow_up_months:g} "
                   "months; P(churn) by Simpson's rule (Schoenfeld 1983)")
         reach = f + a
