@@ -140,3 +140,20 @@ def test_a_step_that_never_improves_is_reported():
 def test_unknown_rule_is_refused():
     with pytest.raises(ValueError, match="rule"):
         newton_maximize(_quadratic(np.zeros(1), np.eye(1)), np.zeros(1), rule="gradient")
+
+
+def test_half_day_grid_indices():
+    # hand-worked: 0, 0.5 and 3 days are half-day cells 0, 1 and 6; anything else
+    # (a third of a day, a negative or missing time) is off the grid
+    from retain.kernels.timegrid import half_day_grid, half_days
+
+    np.testing.assert_array_equal(half_days(np.array([0.0, 0.5, 3.0])), [0, 1, 6])
+    for bad in ([0.0, 1 / 3], [-0.5, 1.0], [np.nan, 1.0], [np.inf]):
+        assert half_days(np.array(bad)) is None
+    start, stop = np.array([0.0, 2.0]), np.array([0.5, 7.0])
+    i_start, i_stop, top = half_day_grid(start, stop)
+    np.testing.assert_array_equal(i_start, [0, 4])
+    np.testing.assert_array_equal(i_stop, [1, 14])
+    assert top == 14
+    assert half_day_grid(start, stop + 0.25) is None
+    assert half_day_grid(start + 0.25, stop) is None

@@ -56,6 +56,8 @@ import numpy as np
 from scipy import sparse
 
 from retain.kernels.newton import NewtonSolution, newton_maximize
+from retain.kernels.timegrid import event_order as _event_order
+from retain.kernels.timegrid import positions_right
 
 CHUNK = 1 << 14
 
@@ -80,51 +82,6 @@ class RiskIndex(NamedTuple):
     unit_k: np.ndarray        # (sum m_k,) owner time of each Efron unit
     unit_f: np.ndarray        # (sum m_k,) j / m_k of each Efron unit
     n_strata: int
-
-
-def positions_right(sorted_times: np.ndarray, values: np.ndarray,
-                    out: np.ndarray | None = None) -> np.ndarray:
-    """``np.searchsorted(sorted_times, values, side="right")``, faster for day counts.
-
-    When every value is a whole or half day (the start-stop contract's time
-    grid) a lookup table over the half-day grid replaces a binary search per
-    row; the result is identical. Works in bands of rows (no full-length
-    temporaries) and writes into ``out`` if given.
-    """
-    n = values.shape[0]
-    if out is None:
-        out = np.empty(n, dtype=np.int64)
-    if n > 4096:
-        lowest = float(values.min())
-        top = 2.0 * float(values.max())
-        if lowest >= 0 and top < 5e7:
-            grid = np.arange(int(top) + 1) / 2.0
-            lut = np.searchsorted(sorted_times, grid, side="right").astype(out.dtype)
-            band = 1 << 16
-            half = np.empty(min(band, n))
-            cell = np.empty(min(band, n), dtype=np.int32)
-            for a in range(0, n, band):
-                b = min(a + band, n)
-                h, c = half[:b - a], cell[:b - a]
-                np.multiply(values[a:b], 2.0, out=h)
-                c[:] = h
-                if not np.array_equal(c, h):  # not on the half-day grid
-                    break
-                np.take(lut, c, out=out[a:b])
-            else:
-                return out
-    out[:] = np.searchsorted(sorted_times, values, side="right")
-    return out
-
-
-def _event_order(t: np.ndarray) -> np.ndarray:
-    """``np.argsort(t, kind="stable")``; on the half-day grid with under 2**15 half
-    days, the same order from a radix sort of 16-bit half-day counts."""
-    if t.shape[0] > 4096 and float(t.min()) >= 0 and 2.0 * float(t.max()) < 2**15:
-        half = (2.0 * t).astype(np.int16)
-        if np.array_equal(half, 2.0 * t):
-            return np.argsort(half, kind="stable")
-    return np.argsort(t, kind="stable")
 
 
 def build_risk_index(start: np.ndarray, stop: np.ndarray, churned: np.ndarray,

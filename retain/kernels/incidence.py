@@ -30,21 +30,18 @@ from __future__ import annotations
 
 import numpy as np
 
-# times on a grid of 1/_GRID days up to _GRID_MAX steps are counted with bincount
-_GRID = 2.0
-_GRID_MAX = 50_000_000
+from retain.kernels.timegrid import half_day_grid, half_days
 
 
 def _weights_before(values: np.ndarray, weight: np.ndarray, times: np.ndarray) -> np.ndarray:
     """Σ weight over rows with value < t, for each t in ``times`` (sorted)."""
-    scaled = values * _GRID
-    top = scaled.max() if scaled.size else 0.0
-    if 0 <= scaled.min() and top < _GRID_MAX and np.array_equal(scaled, np.floor(scaled)):
+    scaled = half_days(values)
+    if scaled is not None:
         # counting sort: whole or half days (the usual case)
-        counts = np.bincount(scaled.astype(np.int64), weights=weight,
-                             minlength=int(top) + 2)
+        top = int(scaled.max()) if scaled.size else 0
+        counts = np.bincount(scaled, weights=weight, minlength=top + 2)
         cum = np.concatenate([[0.0], np.cumsum(counts)])  # cum[i] = Σ w with scaled < i
-        idx = np.ceil(times * _GRID).astype(np.int64)  # value < t  <=>  scaled < ceil(t*G)
+        idx = np.ceil(times * 2.0).astype(np.int64)  # value < t  <=>  2 value < ceil(2 t)
         return cum[np.clip(idx, 0, cum.shape[0] - 1)]
     order = np.argsort(values, kind="stable")
     cum = np.concatenate([[0.0], np.cumsum(weight[order])])
@@ -53,22 +50,12 @@ def _weights_before(values: np.ndarray, weight: np.ndarray, times: np.ndarray) -
 
 def _on_grid(start: np.ndarray, stop: np.ndarray
              ) -> tuple[np.ndarray, np.ndarray, int] | None:
-    """Grid cells of start and stop, and the cell count, if every time is a multiple of
-    1/_GRID days (and the grid is small enough); else None."""
+    """Half-day cells of start and stop, and the cell count, if every time is a whole or
+    half day (and the grid is small enough); else None."""
     if start.size == 0:
         return None
-    s2 = stop * _GRID
-    top = float(s2.max())
-    if not (top < _GRID_MAX and start.min() >= 0):
-        return None
-    s2i = s2.astype(np.int64)
-    if not np.array_equal(s2, s2i):
-        return None
-    a2 = start * _GRID
-    a2i = a2.astype(np.int64)
-    if not np.array_equal(a2, a2i):
-        return None
-    return a2i, s2i, int(top) + 2
+    grid = half_day_grid(start, stop)
+    return None if grid is None else (grid[0], grid[1], grid[2] + 2)
 
 
 def _grid_risk_and_events(a2: np.ndarray, s2: np.ndarray, kind: np.ndarray,
@@ -87,7 +74,7 @@ def _grid_risk_and_events(a2: np.ndarray, s2: np.ndarray, kind: np.ndarray,
     cum_stop = np.cumsum(np.bincount(s2, weights=weight, minlength=cells))
     before = np.maximum(cell - 1, 0)
     at_risk = np.where(cell > 0, cum_start[before] - cum_stop[before], 0.0)
-    return cell / _GRID, at_risk, events
+    return cell / 2.0, at_risk, events
 
 
 def risk_and_events(

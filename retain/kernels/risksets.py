@@ -18,7 +18,7 @@ difference exactly the rows with ``start < t_j <= stop``).
 
 Positions: tenure is whole days (0.5 for a churn on the start day), so times
 usually lie on a half-day grid and a cumulative count over that grid gives
-every position in O(n) (:func:`half_day_grid`); other times fall back to
+every position in O(n) (:func:`retain.kernels.timegrid.half_day_grid`); other times fall back to
 ``np.unique`` and ``searchsorted`` (O(n log m)). Both give identical results.
 
 Pure numpy, no validation: callers pass arrays that already meet the
@@ -30,6 +30,8 @@ from __future__ import annotations
 from typing import NamedTuple
 
 import numpy as np
+
+from retain.kernels.timegrid import half_day_grid
 
 
 class RiskTable(NamedTuple):
@@ -140,33 +142,6 @@ def risk_table(
     # counts of whole rows may pick up rounding in the cumulative sums
     np.maximum(at_risk, 0.0, out=at_risk)
     return RiskTable(times, at_risk, events, censored)
-
-
-#: largest half-day grid index for the lookup-table path (keeps the table < 400 MB)
-GRID_LIMIT = 50_000_000
-
-
-def half_day_grid(start: np.ndarray, stop: np.ndarray) -> tuple[np.ndarray, np.ndarray, int] | None:
-    """Integer half-day indices ``2 * start``, ``2 * stop`` and their maximum, or None.
-
-    Tenure in ``retain`` is whole days (0.5 for a churn on the start day), so
-    the times usually lie on a half-day grid; then positions among the times
-    come from a lookup table in O(n) instead of a binary search. Any other
-    value (or a range too wide for the table) returns None: callers fall back
-    to ``searchsorted``.
-    """
-    g_stop = stop * 2.0
-    top = float(g_stop.max()) if g_stop.size else 0.0
-    if not (0.0 <= top <= GRID_LIMIT) or (start.size and float(start.min()) < 0):
-        return None
-    i_stop = g_stop.astype(np.int64)
-    if not np.array_equal(i_stop, g_stop):
-        return None
-    g_start = start * 2.0
-    i_start = g_start.astype(np.int64)
-    if not np.array_equal(i_start, g_start):
-        return None
-    return i_start, i_stop, int(top)
 
 
 def positions(times: np.ndarray, values: np.ndarray, grid_values: np.ndarray | None,
