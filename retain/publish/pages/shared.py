@@ -1,0 +1,140 @@
+"""What several page groups share: number formatting, failure sections, curve figures."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from retain.publish import charts
+from retain.publish.content import Figure, Section
+from retain.units import DAYS_PER_MONTH
+
+AT_RISK_MONTHS = (0, 3, 6, 12, 18, 24, 36)
+VIRIDIS = ("#440154", "#482878", "#3e4989", "#31688e", "#26828e", "#1f9e89", "#35b779",
+           "#6ece58", "#b5de2b", "#fde725")
+
+
+# --------------------------------------------------------------------------- formatting
+def pct(x: float | None, digits: int = 1) -> str:
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    return f"{100.0 * x:.{digits}f} %"
+
+
+def num(x: float | None, digits: int = 0) -> str:
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    return f"{x:,.{digits}f}"
+
+
+def months_text(days: float | None) -> str:
+    if days is None or not math.isfinite(days):
+        return "not reached"
+    return f"{days / DAYS_PER_MONTH:.1f} months"
+
+
+def interval_text(lo: float | None, hi: float | None, fmt: Callable[[float | None], str]) -> str:
+    return f"95 % interval {fmt(lo)} to {fmt(hi)}"
+
+
+def p_text(p: float) -> str:
+    """A p-value as the pages print it."""
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def failure_section(title: str, outcome: Any, intro: str = "") -> Section:
+    """The section of a step that failed, or (said as a note, not an alert) one that the
+    project file does not ask for."""
+    if getattr(outcome, "kind", "") == "skipped":
+        return Section(title=title, intro=f"Not set up: {outcome.error}")
+    return Section(title=title, intro=intro, failure=getattr(outcome, "error", None)
+                   or "this part was not run")
+
+
+def term_frame(frame: pd.DataFrame, label: str = "label") -> pd.DataFrame:
+    """``frame`` with its ``label`` column first, renamed ``term``."""
+    out = frame.copy()
+    out.insert(0, "term", out.pop(label).astype(str))
+    return out
+
+
+def hazard_frame(cox: Any) -> pd.DataFrame:
+    """term, hazard_ratio, lower, upper, p_value of a Cox fit, in the model's order."""
+    hr = cox.hazard_ratios
+    return pd.DataFrame({"term": hr["term"].astype(str), "hazard_ratio": hr["hazard_ratio"],
+                         "lower": hr["hr_low"], "upper": hr["hr_high"],
+                         "p_value": hr["p_value"]})
+
+
+# --------------------------------------------------------------------------- curves
+def curve_points(curve: Any, label: str | None = None) -> pd.DataFrame:
+    """A curve's steps in months, starting at (0, 1)."""
+    t = np.concatenate(([0.0], np.asarray(curve.times, dtype=float)))
+    s = np.concatenate(([1.0], curve.survival))
+    lo = np.concatenate(([1.0], curve.lower))
+    hi = np.concatenate(([1.0], curve.upper))
+    frame = pd.DataFrame({"month": t / DAYS_PER_MONTH, "retention": s, "lower": lo, "upper": hi})
+    if label is not None:
+        frame.insert(0, "segment", label)
+    return frame
+
+
+def _curve_download(curve: Any, label: str) -> pd.DataFrame:
+    frame = curve.to_frame().rename(columns={"time": "day", "survival": "retention"})
+    frame.insert(0, "segment", label)
+    frame.insert(2, "month", frame["day"] / DAYS_PER_MONTH)
+    return frame
+
+
+def _at_risk_table(curves: Iterable[tuple[str, Any]]) -> pd.DataFrame:
+    rows = []
+    for label, c in curves:
+        d = np.array(AT_RISK_MONTHS, dtype=float) * DAYS_PER_MONTH
+        s = c.at(d)
+        lo, hi = c.interval_at(d)
+        n = c.at_risk_at(d)
+        for m, sv, a, b, k in zip(AT_RISK_MONTHS, s, lo, hi, n, strict=True):
+            seen = math.isfinite(sv)
+            rows.append({"segment": label, "month": m, "at_risk": float(k) if seen else math.nan,
+                         "retention": sv, "lower": a, "upper": b})
+    return pd.DataFrame(rows)
+
+
+def curves_figure(key: str, title: str, guide: str, curves: Iterable[tuple[str, Any]], *,
+                  series_title: str | None = None) -> Figure:
+    """Kaplan–Meier curves as a figure: step chart with bands, at-risk table, full-curve CSV.
+
+    One curve is drawn in one colour; several get a legend titled ``series_title``.
+    """
+    items = list(curves)
+    name = key.replace("-", "_")
+    if len(items) == 1 and series_title is None:
+        label, c = items[0]
+        chart = charts.survival_chart(curve_points(c), name)
+    else:
+        pts = pd.concat([curve_points(c, k) for k, c in items], ignore_index=True)
+        chart = charts.survival_chart(pts, name, series="segment", series_title=series_title)
+    return Figure(key=key, title=title, guide=guide, chart=chart, table=_at_risk_table(items),
+                  csv=pd.concat([_curve_download(c, k) for k, c in items], ignore_index=True))
+
+
+def heat_colours(values: np.ndarray) -> dict[str, Any]:
+    """Viridis cell colours and a readable ink for each cell of a 0–1 table (blank: none)."""
+    colours, inks = [], []
+    for row in values:
+        c_row, i_row = [""], [""]  # first column is the row label
+        for v in row:
+            if not math.isfinite(v):
+                c_row.append("")
+                i_row.append("")
+                continue
+            k = min(len(VIRIDIS) - 1, max(0, int(v * (len(VIRIDIS) - 1) + 0.5)))
+            c_row.append(VIRIDIS[k])
+            i_row.append("#ffffff" if k <= 5 else "#1e2a31")
+        colours.append(c_row)
+        inks.append(i_row)
+    return {"colours": colours, "inks": inks}

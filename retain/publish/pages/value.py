@@ -1,0 +1,86 @@
+"""The value page: lifetime value of a new customer, residual value of the base, finance file."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from retain import step_names as step
+from retain.publish import charts
+from retain.publish.content import Fact, Figure, Page, Section
+from retain.publish.pages import prose
+from retain.publish.pages.shared import failure_section, interval_text, num
+
+
+def value_page(run: Any) -> Page:
+    spec = run.options.to_dict()["value"]  # the [value] keys as results.json has them
+    sections: list[Section] = []
+    assumptions: list[str] = []
+    if spec:
+        margin = (f"margin per month {spec['margin_per_month']:g}"
+                  if spec.get("margin_per_month") is not None else
+                  f"margin per month = {spec.get('margin_rate')} × the segment's mean monthly "
+                  f"{spec.get('price') or 'price'}")
+        rate = 100 * float(spec.get("annual_discount_rate", 0))
+        assumptions += [margin, f"annual discount rate {rate:g} %",
+                        f"horizon {spec.get('horizon_months')} months",
+                        f"retention curve: {spec.get('curve')} model fitted per segment"]
+    allv = run.get(step.VALUE_ALL)
+    if allv.ok and allv.value.values:
+        v = allv.value.values[0]
+        assumptions += [v.timing, f"interval: {v.interval_method}"]
+        facts = (Fact("Value of a new customer", num(v.value, 2),
+                      interval_text(v.lower, v.upper, lambda x: num(x, 2)), "ltv-all", v.value),
+                 Fact("Expected months kept", num(v.expected_months, 1),
+                      f"within {v.horizon_months} months", "ltv-months", v.expected_months))
+        sections.append(Section("A new customer", facts=facts, bullets=tuple(v.warnings)))
+    else:
+        sections.append(failure_section("A new customer", allv))
+    seg = run.get(step.VALUE_SEGMENTS)
+    sections.append(_segments_section(seg.value) if seg.ok else
+                    failure_section("By segment", seg))
+    base = run.get(step.VALUE_BASE)
+    sections.append(_base_section(base.value) if base.ok else
+                    failure_section("The active base", base))
+    finance = run.get(step.VALUE_FINANCE)
+    if finance.ok:
+        sections.append(_finance_section(finance.value))
+    from_caution = getattr(seg.value, "caution", "") if seg.ok else ""
+    cautions = prose.MONEY_CAUTIONS + ((from_caution,) if from_caution else ())
+    return Page("value", "Value", prose.VALUE_LEAD, tuple(sections), cautions=cautions,
+                assumptions=tuple(assumptions), nav_label="Value")
+
+
+def _segments_section(sv: Any) -> Section:
+    frame = sv.to_frame()
+    shown = frame[["segment", "customers", "margin_per_month", "value", "lower", "upper",
+                   "expected_months", "survival_at_horizon", "extrapolated_months"]]
+    by = ", ".join(sv.by) or "all"
+    return Section(f"By {by}", bullets=tuple(sv.warnings) + tuple(
+        f"{x.segment}: {w}" for x in sv.values for w in x.warnings), figures=(Figure(
+            key="value-segments", title=f"Lifetime value of a new customer by {by}",
+            guide=prose.VALUE_SEGMENTS_GUIDE,
+            chart=charts.interval_bars(shown, "value_segments", label="segment",
+                                       estimate="value", lower="lower", upper="upper",
+                                       x_title="Value of a new customer", x_format=",.0f"),
+            table=shown, csv=frame),))
+
+
+def _base_section(bv: Any) -> Section:
+    frame = bv.to_frame()
+    shown = frame[["segment", "customers", "value_per_customer", "lower", "upper", "total",
+                   "total_lower", "total_upper", "extrapolated_months"]]
+    return Section("The active base", intro=bv.summary(),
+                   facts=(Fact("Residual value of the base", num(bv.total, 0),
+                               f"{num(sum(x.customers for x in bv.segments))} active customers",
+                               "base-total", bv.total),),
+                   bullets=tuple(bv.warnings), figures=(Figure(
+                       key="value-base", title="Residual value of active customers",
+                       guide=prose.VALUE_BASE_GUIDE, table=shown, csv=frame),))
+
+
+def _finance_section(fin: Any) -> Section:
+    return Section("Finance file", intro=prose.FINANCE_INTRO, figures=(Figure(
+        key="value-finance", title="Finance CSV", guide=prose.FINANCE_GUIDE,
+        table=fin[["figure", "segment", "customers", "value_per_customer", "lower", "upper",
+                   "total", "curve", "annual_discount_rate", "horizon_months", "as_of"]],
+        csv=fin, show_rows=20),))
