@@ -23,6 +23,7 @@ import pandas as pd
 
 from retain import step_names
 from retain.data.config import (
+    Config,
     ExperimentSpec,
     ModelConfig,
     ValueConfig,
@@ -266,11 +267,10 @@ def run_table(table: StartStop, options: RunOptions, *, prepared: Any = None,
     return RunResults(options=options, table=table, outcomes=out, prepared=prepared)
 
 
-def options_from_config(config: Any) -> RunOptions:
+def options_from_config(config: Config) -> RunOptions:
     """The parts of a loaded ``retain.toml`` that say what to run and show."""
     src = config.source
-    name = src.path.name if getattr(src, "path", None) is not None else \
-        f"{getattr(src, 'duckdb', '')}:{getattr(src, 'table', '')}"
+    name = src.path.name if src.path is not None else f"{src.duckdb}:{src.table}"
     return RunOptions(
         title=f"Retention review: {name}", source=str(name), as_of=config.window.as_of,
         segments=config.segments.by, model=config.model, value=config.value,

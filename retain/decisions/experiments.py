@@ -393,6 +393,132 @@ def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
     return tuple(out), list(getattr(fit, "warnings", ())), fit.missing
 
 
+def _horizons(spec: ExperimentSpec, as_of: dt.date | None, follow: float,
+              warnings: list[str]) -> tuple[float, float, bool]:
+    """(planned horizon, analysis horizon, interim): the analysis stops at the follow-up
+    reached; before the planned end (:func:`_planned_end`) the verdict is interim."""
+    planned = float(spec.horizon_days)
+    end = _planned_end(spec)
+    interim = bool(as_of is not None and end is not None and as_of < end)
+    analysis = min(planned, follow)
+    if interim:
+        warnings.append(f"interim analysis: the planned {planned:g}-day horizon is reached on "
+                        f"{end}, after the as-of date {as_of}; every figure is provisional")
+    if analysis < planned:
+        warnings.append(f"follow-up reaches only {analysis:g} of the planned {planned:g} days; "
+                        "restricted means and revenue are computed to that shorter horizon")
+    return planned, analysis, interim
+
+
+def _treatments_present(sub: StartStop, acol: Categorical, spec: ExperimentSpec, where: str,
+                        warnings: list[str]) -> tuple[str, ...]:
+    """The treatment arms with customers in the experiment (an empty one is a warning); the
+    control arm must have customers."""
+    control = spec.control
+    present = set(acol.take(np.unique(first_of_spell(sub.customer.codes, sub.spell,
+                                                     sub.start))).values())
+    treatments = tuple(t for t in (spec.treatment or sorted(present - {control}))
+                       if t != control)
+    if control not in present:
+        raise DataError(where, f"no customer of the experiment is in the control arm {control!r}",
+                        "check the arm values and cohorts")
+    absent = [t for t in treatments if t not in present]
+    if absent:
+        warnings.append(f"arm(s) {', '.join(absent)} have no customer in the experiment")
+        treatments = tuple(t for t in treatments if t in present)
+    if not treatments:
+        raise DataError(where, "no treatment arm has customers", "check the arm values")
+    return treatments
+
+
+def _revenue_and_rmst(sub: StartStop, arm: str, arm_of_row: np.ndarray, control: str,
+                      treatments: Sequence[str], curves: SegmentCurves, analysis: float, *,
+                      price: str, conf: float, n_boot: int, seed: int, warnings: list[str]
+                      ) -> tuple[list[RestrictedMeanDifference], list[RevenueComparison],
+                                 dict[str, tuple[float, np.ndarray]]]:
+    """Restricted-mean and revenue differences of each treatment arm against the control,
+    and each arm's revenue per customer with its bootstrap replicates."""
+    rmst: list[RestrictedMeanDifference] = []
+    revenue: list[RevenueComparison] = []
+    per_arm: dict[str, tuple[float, np.ndarray]] = {}
+    for k, a in enumerate((control, *treatments)):
+        part = sub.take(arm_of_row == a)
+        per_arm[a] = revenue_per_customer(part, price, analysis, n_boot=n_boot, seed=seed + k)
+    for t in treatments:
+        pair = sub.take(np.isin(arm_of_row, (control, t)))
+        limit = min(curves[control].known_until, curves[t].known_until)
+        h = min(analysis, limit)
+        try:
+            rmst.append(rmst_difference(pair, arm, h, levels=(control, t), conf=conf))
+        except ModelError as exc:
+            warnings.append(f"no restricted-mean difference for {t}: {exc.message}")
+        c_est, c_rep = per_arm[control]
+        t_est, t_rep = per_arm[t]
+        diff_rep = t_rep - c_rep
+        lo, hi = percentile_interval(diff_rep, conf)
+        clo, chi = percentile_interval(c_rep, conf)
+        tlo, thi = percentile_interval(t_rep, conf)
+        revenue.append(RevenueComparison(
+            control=control, treatment=t, horizon_days=analysis, control_revenue=c_est,
+            control_lower=clo, control_upper=chi, treatment_revenue=t_est, treatment_lower=tlo,
+            treatment_upper=thi, difference=t_est - c_est, lower=lo, upper=hi,
+            se=float(np.std(diff_rep, ddof=1)), conf=conf,
+            method=(f"price x months at risk to {analysis:g} days, Kaplan-Meier weighted "
+                    f"(Lin et al. 1997); percentile interval over {n_boot} bootstrap "
+                    "resamples of customers within each arm")))
+    return rmst, revenue, per_arm
+
+
+def _arm_rows(sub: StartStop, arm_of_row: np.ndarray, control: str, treatments: Sequence[str],
+              curves: SegmentCurves, analysis: float,
+              per_arm: dict[str, tuple[float, np.ndarray]], conf: float) -> pd.DataFrame:
+    """One row per arm: customers, churns, retention and revenue per customer at the
+    analysis horizon, with intervals."""
+    rows = []
+    for a in (control, *treatments):
+        c = curves[a]
+        s_h = float(c.at(analysis)[0]) if analysis <= c.follow_up else math.nan
+        lo_h, hi_h = (float(x[0]) for x in c.interval_at(analysis))
+        est, rep = per_arm[a]
+        rlo, rhi = percentile_interval(rep, conf)
+        rows.append({"arm": a, "role": "control" if a == control else "treatment",
+                     "customers": float(np.sum(sub.weight[(arm_of_row == a) &
+                                                          sub.last_of_spell])),
+                     "churns": float(np.sum(sub.weight * sub.churned * (arm_of_row == a))),
+                     "retained_at_horizon": s_h, "retained_lower": lo_h,
+                     "retained_upper": hi_h, "revenue_per_customer": est,
+                     "revenue_lower": rlo, "revenue_upper": rhi})
+    return pd.DataFrame(rows)
+
+
+def _power_info(arms: pd.DataFrame, control: str, treatments: Sequence[str], power: float,
+                alpha: float, target_hazard_ratio: float | None, warnings: list[str]
+                ) -> dict[str, Any]:
+    """Events seen, the smallest detectable hazard ratio and, with a target, the events
+    needed (Schoenfeld 1983) for each treatment arm against the control."""
+    events = float(arms["churns"].sum())
+    n_ctrl = float(arms.loc[arms["arm"] == control, "customers"].iloc[0])
+    power_info: dict[str, Any] = {"events": events, "power": power, "alpha": alpha}
+    for t in treatments:
+        n_t = float(arms.loc[arms["arm"] == t, "customers"].iloc[0])
+        d_pair = float(arms.loc[arms["arm"].isin([control, t]), "churns"].sum())
+        frac = n_t / (n_t + n_ctrl)
+        info = {"events": d_pair, "treated_fraction": frac,
+                "detectable_hazard_ratio": kp.detectable_hazard_ratio(d_pair, power, alpha, frac)}
+        if target_hazard_ratio is not None:
+            need = kp.schoenfeld_events(target_hazard_ratio, power, alpha, frac)
+            info["target_hazard_ratio"] = target_hazard_ratio
+            info["events_needed"] = need
+            info["power_at_target"] = kp.schoenfeld_power(d_pair, target_hazard_ratio, alpha,
+                                                          frac)
+            if d_pair < need:
+                warnings.append(f"too few events for {t}: {d_pair:g} churns, {math.ceil(need)} "
+                                f"needed to detect a hazard ratio of {target_hazard_ratio:g} "
+                                f"with {power:.0%} power at {alpha:g} (Schoenfeld 1983)")
+        power_info[t] = info
+    return power_info
+
+
 # ---------------------------------------------------------------- verdict
 
 
@@ -454,32 +580,10 @@ def experiment_verdict(
     sub, selection = select_experiment(table, spec)
     acol = sub.column(arm)
     assert isinstance(acol, Categorical)
-    present = set(acol.take(np.unique(first_of_spell(sub.customer.codes, sub.spell,
-                                                     sub.start))).values())
-    treatments = tuple(t for t in (spec.treatment or sorted(present - {control}))
-                       if t != control)
     warnings: list[str] = []
-    if control not in present:
-        raise DataError(where, f"no customer of the experiment is in the control arm {control!r}",
-                        "check the arm values and cohorts")
-    absent = [t for t in treatments if t not in present]
-    if absent:
-        warnings.append(f"arm(s) {', '.join(absent)} have no customer in the experiment")
-        treatments = tuple(t for t in treatments if t in present)
-    if not treatments:
-        raise DataError(where, "no treatment arm has customers", "check the arm values")
+    treatments = _treatments_present(sub, acol, spec, where, warnings)
 
-    planned = float(spec.horizon_days)
-    end = _planned_end(spec)
-    interim = bool(as_of_d is not None and end is not None and as_of_d < end)
-    follow = float(sub.stop.max())
-    analysis = min(planned, follow)
-    if interim:
-        warnings.append(f"interim analysis: the planned {planned:g}-day horizon is reached on "
-                        f"{end}, after the as-of date {as_of_d}; every figure is provisional")
-    if analysis < planned:
-        warnings.append(f"follow-up reaches only {analysis:g} of the planned {planned:g} days; "
-                        "restricted means and revenue are computed to that shorter horizon")
+    planned, analysis, interim = _horizons(spec, as_of_d, float(sub.stop.max()), warnings)
 
     curves = curves_by(sub, arm, conf=conf)
     warnings.extend(curves.warnings)
@@ -493,51 +597,10 @@ def experiment_verdict(
     # per-arm tables
     head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
     arm_of_row = acol.values()[head]
-    rmst: list[RestrictedMeanDifference] = []
-    revenue: list[RevenueComparison] = []
-    per_arm: dict[str, tuple[float, np.ndarray]] = {}
-    for k, a in enumerate((control, *treatments)):
-        part = sub.take(arm_of_row == a)
-        per_arm[a] = revenue_per_customer(part, price, analysis, n_boot=n_boot, seed=seed + k)
-    rest = sub
-    for t in treatments:
-        pair = rest.take(np.isin(arm_of_row, (control, t)))
-        limit = min(curves[control].known_until, curves[t].known_until)
-        h = min(analysis, limit)
-        try:
-            rmst.append(rmst_difference(pair, arm, h, levels=(control, t), conf=conf))
-        except ModelError as exc:
-            warnings.append(f"no restricted-mean difference for {t}: {exc.message}")
-        c_est, c_rep = per_arm[control]
-        t_est, t_rep = per_arm[t]
-        diff_rep = t_rep - c_rep
-        lo, hi = percentile_interval(diff_rep, conf)
-        clo, chi = percentile_interval(c_rep, conf)
-        tlo, thi = percentile_interval(t_rep, conf)
-        revenue.append(RevenueComparison(
-            control=control, treatment=t, horizon_days=analysis, control_revenue=c_est,
-            control_lower=clo, control_upper=chi, treatment_revenue=t_est, treatment_lower=tlo,
-            treatment_upper=thi, difference=t_est - c_est, lower=lo, upper=hi,
-            se=float(np.std(diff_rep, ddof=1)), conf=conf,
-            method=(f"price x months at risk to {analysis:g} days, Kaplan-Meier weighted "
-                    f"(Lin et al. 1997); percentile interval over {n_boot} bootstrap "
-                    "resamples of customers within each arm")))
-
-    rows = []
-    for a in (control, *treatments):
-        c = curves[a]
-        s_h = float(c.at(analysis)[0]) if analysis <= c.follow_up else math.nan
-        lo_h, hi_h = (float(x[0]) for x in c.interval_at(analysis))
-        est, rep = per_arm[a]
-        rlo, rhi = percentile_interval(rep, conf)
-        rows.append({"arm": a, "role": "control" if a == control else "treatment",
-                     "customers": float(np.sum(sub.weight[(arm_of_row == a) &
-                                                          sub.last_of_spell])),
-                     "churns": float(np.sum(sub.weight * sub.churned * (arm_of_row == a))),
-                     "retained_at_horizon": s_h, "retained_lower": lo_h,
-                     "retained_upper": hi_h, "revenue_per_customer": est,
-                     "revenue_lower": rlo, "revenue_upper": rhi})
-    arms = pd.DataFrame(rows)
+    rmst, revenue, per_arm = _revenue_and_rmst(sub, arm, arm_of_row, control, treatments,
+                                               curves, analysis, price=price, conf=conf,
+                                               n_boot=n_boot, seed=seed, warnings=warnings)
+    arms = _arm_rows(sub, arm_of_row, control, treatments, curves, analysis, per_arm, conf)
 
     balance = balance_table(sub, arm, control, treatments, covariates) if covariates else \
         pd.DataFrame(columns=["attribute", "kind", control, *treatments, "unbalanced"])
@@ -546,26 +609,8 @@ def experiment_verdict(
         warnings.append(f"arms are not balanced on {bad} (|standardised difference| > "
                         f"{BALANCE_LIMIT}); read the adjusted hazard ratio")
 
-    events = float(arms["churns"].sum())
-    n_ctrl = float(arms.loc[arms["arm"] == control, "customers"].iloc[0])
-    power_info: dict[str, Any] = {"events": events, "power": power, "alpha": alpha}
-    for t in treatments:
-        n_t = float(arms.loc[arms["arm"] == t, "customers"].iloc[0])
-        d_pair = float(arms.loc[arms["arm"].isin([control, t]), "churns"].sum())
-        frac = n_t / (n_t + n_ctrl)
-        info = {"events": d_pair, "treated_fraction": frac,
-                "detectable_hazard_ratio": kp.detectable_hazard_ratio(d_pair, power, alpha, frac)}
-        if target_hazard_ratio is not None:
-            need = kp.schoenfeld_events(target_hazard_ratio, power, alpha, frac)
-            info["target_hazard_ratio"] = target_hazard_ratio
-            info["events_needed"] = need
-            info["power_at_target"] = kp.schoenfeld_power(d_pair, target_hazard_ratio, alpha,
-                                                          frac)
-            if d_pair < need:
-                warnings.append(f"too few events for {t}: {d_pair:g} churns, {math.ceil(need)} "
-                                f"needed to detect a hazard ratio of {target_hazard_ratio:g} "
-                                f"with {power:.0%} power at {alpha:g} (Schoenfeld 1983)")
-        power_info[t] = info
+    power_info = _power_info(arms, control, treatments, power, alpha, target_hazard_ratio,
+                             warnings)
 
     return ExperimentVerdict(
         name=name, arm=arm, control=control, treatments=treatments, selection=selection,

@@ -249,7 +249,7 @@ def _check_curve(curve: Any, where: str) -> None:
 
 
 def _extrapolation(curve: SurvivalCurve, reach_days: float) -> tuple[float, str | None]:
-    horizon = float(getattr(curve, "data_horizon_days", math.inf))
+    horizon = float(curve.data_horizon_days)
     if not math.isfinite(horizon) or reach_days <= horizon:
         return 0.0, None
     months = (reach_days - horizon) / DAYS_PER_MONTH
@@ -488,6 +488,55 @@ def _residual_per_tenure(fn: DrawFn, points: np.ndarray, inverse: np.ndarray,
     return kd.discounted_value(kd.conditional_survival(s[:, :1], s[:, 1:]), 1.0, factors)
 
 
+def _base_segment(curve: SurvivalCurve, seg: str, t_seg: np.ndarray, w_seg: np.ndarray,
+                  m_seg: np.ndarray, d: float, factors: np.ndarray, *, closed_form: bool,
+                  level: float, n_draws: int, seed: int, where: str, warnings: list[str]
+                  ) -> tuple[BaseSegment, bool]:
+    """Residual value of one segment's active customers (tenures ``t_seg``, weights, margins)
+    and whether the curve offered draws; warnings are appended to ``warnings``."""
+    months = np.arange(1, factors.shape[0] + 1, dtype=np.float64) * DAYS_PER_MONTH
+    uniq, inv = np.unique(t_seg, return_inverse=True)
+    wm = np.bincount(inv, w_seg * m_seg, uniq.shape[0])  # margin mass at each tenure
+    table_days = np.concatenate((uniq[:, None], uniq[:, None] + months[None, :]), axis=1)
+    points, inverse = np.unique(table_days.ravel(), return_inverse=True)
+    shape = table_days.shape
+
+    closed = getattr(curve, "residual_months", None)  # a curve may offer a closed form
+    a_closed = closed(uniq, d) if closed_form and closed is not None else None
+    if a_closed is not None:
+        a = np.asarray(a_closed, dtype=np.float64)
+        method = "closed form: DERL (Fader & Hardie 2010, eq. 6) / (1 + d)"
+    else:
+        a = _residual_per_tenure(curve.survival, points, inverse, shape, factors)
+        method = "sum over months of S(t + k) / S(t) x margin x discount"
+    if not np.all(np.isfinite(a)):
+        raise ModelError(where, f"segment {seg!r}: the {curve.label} curve is not defined "
+                         f"out to {float(uniq.max() + months[-1]) / DAYS_PER_MONTH:.0f} "
+                         "months of tenure", "add a parametric tail (km_weibull_tail) or "
+                         "shorten horizon_months")
+    total = float(wm @ a)
+    n_cust = float(w_seg.sum())
+    fns = curve.draws(n_draws, seed)
+    lo = hi = tlo = thi = math.nan
+    if fns:
+        tot_d = np.array([wm @ _residual_per_tenure(f, points, inverse, shape, factors)
+                          for f in fns])
+        tlo, thi = percentile_interval(tot_d, level)
+        lo, hi = tlo / n_cust, thi / n_cust
+    else:
+        warnings.append(f"segment {seg!r}: no interval, the {curve.label} curve offers "
+                        "no parameter draws")
+    extra, msg = _extrapolation(curve, float(uniq.max() + months[-1]))
+    if msg:
+        warnings.append(f"segment {seg!r}: {msg}")
+    return BaseSegment(
+        segment=seg, curve=curve.label, customers=n_cust, value_per_customer=total / n_cust,
+        lower=lo, upper=hi, total=total, total_lower=tlo, total_upper=thi,
+        mean_tenure_months=float(np.average(t_seg, weights=w_seg) / DAYS_PER_MONTH),
+        mean_margin_per_month=float(np.average(m_seg, weights=w_seg)),
+        extrapolated_months=extra, method=method), bool(fns)
+
+
 def residual_value(
     table: StartStop,
     curves: SurvivalCurve | Mapping[str, SurvivalCurve],
@@ -535,7 +584,6 @@ def residual_value(
                                       margin_rate=margin_rate, price=price)
     tenure = table.stop[active]
     weight = table.weight[active]
-    months = np.arange(1, h + 1, dtype=np.float64) * DAYS_PER_MONTH
     segments: list[BaseSegment] = []
     warnings: list[str] = []
     any_draws = False
@@ -551,48 +599,12 @@ def residual_value(
             curve = curves
         _check_curve(curve, where)
         mask = labels == seg
-        t_seg, w_seg, m_seg = tenure[mask], weight[mask], margins[mask]
-        uniq, inv = np.unique(t_seg, return_inverse=True)
-        wm = np.bincount(inv, w_seg * m_seg, uniq.shape[0])  # margin mass at each tenure
-        table_days = np.concatenate((uniq[:, None], uniq[:, None] + months[None, :]), axis=1)
-        points, inverse = np.unique(table_days.ravel(), return_inverse=True)
-        shape = table_days.shape
-
-        closed = getattr(curve, "residual_months", None)
-        a_closed = closed(uniq, d) if horizon_months is None and closed is not None else None
-        if a_closed is not None:
-            a = np.asarray(a_closed, dtype=np.float64)
-            method = "closed form: DERL (Fader & Hardie 2010, eq. 6) / (1 + d)"
-        else:
-            a = _residual_per_tenure(curve.survival, points, inverse, shape, factors)
-            method = "sum over months of S(t + k) / S(t) x margin x discount"
-        if not np.all(np.isfinite(a)):
-            raise ModelError(where, f"segment {seg!r}: the {curve.label} curve is not defined "
-                             f"out to {float(uniq.max() + months[-1]) / DAYS_PER_MONTH:.0f} "
-                             "months of tenure", "add a parametric tail (km_weibull_tail) or "
-                             "shorten horizon_months")
-        total = float(wm @ a)
-        n_cust = float(w_seg.sum())
-        fns = curve.draws(n_draws, seed)
-        lo = hi = tlo = thi = math.nan
-        if fns:
-            any_draws = True
-            tot_d = np.array([wm @ _residual_per_tenure(f, points, inverse, shape, factors)
-                              for f in fns])
-            tlo, thi = percentile_interval(tot_d, level)
-            lo, hi = tlo / n_cust, thi / n_cust
-        else:
-            warnings.append(f"segment {seg!r}: no interval, the {curve.label} curve offers "
-                            "no parameter draws")
-        extra, msg = _extrapolation(curve, float(uniq.max() + months[-1]))
-        if msg:
-            warnings.append(f"segment {seg!r}: {msg}")
-        segments.append(BaseSegment(
-            segment=seg, curve=curve.label, customers=n_cust, value_per_customer=total / n_cust,
-            lower=lo, upper=hi, total=total, total_lower=tlo, total_upper=thi,
-            mean_tenure_months=float(np.average(t_seg, weights=w_seg) / DAYS_PER_MONTH),
-            mean_margin_per_month=float(np.average(m_seg, weights=w_seg)),
-            extrapolated_months=extra, method=method))
+        segment, drawn = _base_segment(curve, seg, tenure[mask], weight[mask], margins[mask],
+                                       d, factors, closed_form=horizon_months is None,
+                                       level=level, n_draws=n_draws, seed=seed, where=where,
+                                       warnings=warnings)
+        segments.append(segment)
+        any_draws |= drawn
     return BaseValue(
         by=tuple(by), segments=tuple(segments), margin_basis=basis,
         annual_discount_rate=float(annual_discount_rate), monthly_discount_rate=d,
