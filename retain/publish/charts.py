@@ -265,25 +265,6 @@ def heat_chart(frame: pd.DataFrame, name: str, *, row: str, column: str, value: 
     return finish(rect.properties(height=height), name, data)
 
 
-def bars_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str | None,
-               x_title: str, y_title: str, y_format: str = ",.0f",
-               stack: bool = True) -> dict[str, Any]:
-    """Vertical bars by a quantitative or ordinal x (e.g. rows by reason)."""
-    data = _Datasets(name)
-    base = alt.Chart(data(frame))
-    color: Any = alt.value(PALETTE[0])
-    if series:
-        levels = list(dict.fromkeys(frame[series].astype(str)))
-        color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series)
-    order = list(dict.fromkeys(frame[x].astype(str)))
-    chart = base.mark_bar().encode(
-        y=alt.Y(f"{x}:N", sort=order, title=x_title, axis=alt.Axis(labelLimit=340)),
-        x=alt.X(f"{y}:Q", title=y_title, axis=alt.Axis(format=y_format),
-                stack=True if stack else None),
-        color=color, tooltip=[alt.Tooltip(f"{x}:N"), alt.Tooltip(f"{y}:Q", format=y_format)])
-    return finish(chart.properties(height=max(80, 26 * len(order))), name, data)
-
-
 def loglog_chart(points: pd.DataFrame, lines: pd.DataFrame, name: str, *,
                  series: str = "segment") -> dict[str, Any]:
     """log(−log S) against log tenure: Kaplan–Meier dots and fitted Weibull lines."""
