@@ -430,7 +430,7 @@ def _decision_steps(table: StartStop, options: RunOptions,
                 table, spec, by, as_of=options.as_of, n_draws=BASE_VALUE_DRAWS)),
             (step_names.VALUE_FINANCE, lambda: _finance_table(done)),
         ]
-    price = (spec.price if spec is not None else None) or "price"
+    price = (spec or ValueConfig()).price_column
     for name, exp in options.experiments.items():
         steps.append((step_names.experiment(name), lambda exp=exp: experiments.experiment_verdict(
             table, exp, as_of=options.as_of, price=price, missing=options.model.missing)))

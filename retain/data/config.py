@@ -171,6 +171,10 @@ class ModelConfig:
     decrement_edges: tuple[float, ...] | None = None  # days of tenure; None: 30.44-day months
 
 
+#: the monthly price column read when no [value] price is named
+PRICE_COLUMN = "price"
+
+
 @dataclass(frozen=True)
 class ValueConfig:
     price: str | None = None
@@ -179,6 +183,11 @@ class ValueConfig:
     annual_discount_rate: float = 0.10
     horizon_months: int = 60
     curve: str = "weibull"
+
+    @property
+    def price_column(self) -> str:
+        """The numeric attribute holding the monthly price (:data:`PRICE_COLUMN` if unnamed)."""
+        return self.price or PRICE_COLUMN
 
 
 @dataclass(frozen=True)

@@ -33,7 +33,13 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 
-from retain.data.config import ExperimentSpec, ModelConfig, as_date, experiment_settings
+from retain.data.config import (
+    PRICE_COLUMN,
+    ExperimentSpec,
+    ModelConfig,
+    as_date,
+    experiment_settings,
+)
 from retain.data.table import Categorical, StartStop
 from retain.decisions.value import percentile_interval
 from retain.errors import DataError, ModelError
@@ -527,7 +533,7 @@ def experiment_verdict(
     spec: ExperimentSpec | Mapping[str, Any],
     *,
     as_of: dt.date | str | None = None,
-    price: str = "price",
+    price: str = PRICE_COLUMN,
     conf: float = 0.95,
     target_hazard_ratio: float | None = None,
     power: float | None = None,

@@ -33,7 +33,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from retain.data.config import CURVES, ValueConfig, as_date, value_settings
+from retain.data.config import CURVES, PRICE_COLUMN, ValueConfig, as_date, value_settings
 from retain.data.table import Categorical, StartStop
 from retain.errors import ConfigError, DataError, ModelError, RetainError
 from retain.kernels import discount as kd
@@ -544,7 +544,7 @@ def residual_value(
     by: Sequence[str] = (),
     margin_per_month: float | None = None,
     margin_rate: float | None = None,
-    price: str = "price",
+    price: str = PRICE_COLUMN,
     annual_discount_rate: float = ValueConfig.annual_discount_rate,
     horizon_months: int | None = ValueConfig.horizon_months,
     as_of: dt.date | str | None = None,
@@ -688,7 +688,7 @@ def _segment_margin(table: StartStop, mask: np.ndarray, spec: ValueConfig) -> tu
     if per_month is not None:
         return float(per_month), f"margin_per_month = {per_month:g}"
     rate = spec.margin_rate
-    price = spec.price or "price"
+    price = spec.price_column
     if rate is None:
         raise ConfigError("[value]", "neither margin_per_month nor margin_rate is set",
                           "set margin_rate (share of the monthly price) or margin_per_month")
@@ -770,7 +770,7 @@ def base_value_by_segment(
         curves, warnings = segment_curves(table, by, spec.curve)
     out = residual_value(
         table, curves, by=by, margin_per_month=spec.margin_per_month,
-        margin_rate=spec.margin_rate, price=spec.price or "price",
+        margin_rate=spec.margin_rate, price=spec.price_column,
         annual_discount_rate=float(spec.annual_discount_rate),
         horizon_months=spec.horizon_months, as_of=as_of, level=level,
         n_draws=n_draws, seed=seed)
