@@ -1,4 +1,4 @@
-"""Central exposure and decrements by band (tenure month or calendar month).
+"""Exposure and decrements by band (tenure month, calendar month, hazard band).
 
 Pure numpy: no validation, no pandas. Positions are in days; bands are given
 by their sorted edges ``e_0 < e_1 < ... < e_K``.
@@ -8,7 +8,10 @@ length of (lo, hi] ∩ (e_k, e_{k+1}], times the row's weight. The sum over band
 is therefore exactly the weighted sum of (hi - lo) inside [e_0, e_K] (the usual
 central exposed-to-risk of a life table, e.g. Benjamin and Pollard, 1980, ch. 2).
 
-The split avoids one output row per (row, band): each row adds its partial
+:func:`band_exposure` sums by (group, band); :func:`exposure_by_row` keeps one
+row per start-stop row for likelihoods with row covariates.
+
+The sum avoids one output row per (row, band): each row adds its partial
 first and last band directly, and +w / -w at the ends of its run of full
 bands, so a cumulative sum over bands gives how many full bands cover each
 band (a difference array). The work is O(n + K) per group.
@@ -78,6 +81,27 @@ def band_exposure(
     force -= np.bincount(base[ok] + kb[ok] + 1, weights=weight[ok], minlength=size)
     in_force = np.cumsum(force.reshape(n_groups, k + 1), axis=1)[:, :k]
     return exposure, in_force
+
+
+def exposure_by_row(lo: np.ndarray, hi: np.ndarray, edges: np.ndarray
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Time at risk of each row in each band, and the band of each row's exit.
+
+    The per-row form of :func:`band_exposure`, for likelihoods whose rows carry
+    their own covariates (the piecewise-constant hazard model), where no sum
+    over rows can be taken first. Same bands, (e_k, e_{k+1}]; the last edge
+    may be ``inf``; (lo, hi] must lie in [e_0, e_K]. One (n, K) pass of
+    ``min(hi, e_{k+1}) - max(lo, e_k)``, clipped at 0.
+
+    Returns
+    -------
+    exposure : (n, K) float array, the length of (lo, hi] ∩ (e_k, e_{k+1}]
+    exit_band : (n,) int array, the band k with e_k < hi <= e_{k+1} (clipped to 0 .. K-1)
+    """
+    exposure = np.clip(np.minimum(hi[:, None], edges[1:]) - np.maximum(lo[:, None], edges[:-1]),
+                       0.0, None)
+    exit_band = np.searchsorted(edges, hi, side="left") - 1
+    return exposure, np.clip(exit_band, 0, edges.shape[0] - 2)
 
 
 def band_counts(

@@ -33,10 +33,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
+from retain.kernels.exposure import exposure_by_row
+
 __all__ = [
     "PiecewiseRows",
     "SurvivalRows",
-    "band_exposure",
+    "band_edges",
     "exponential_loglik",
     "piecewise_closed_form",
     "piecewise_loglik",
@@ -299,24 +301,10 @@ def weibull_loglik(theta: np.ndarray, rows: SurvivalRows, *, derivatives: bool =
 
 
 # --------------------------------------------------------------------- piecewise
-def band_exposure(t1: np.ndarray, t2: np.ndarray, cuts: np.ndarray
-                  ) -> tuple[np.ndarray, np.ndarray]:
-    """Time at risk in each tenure band and the band of each row's exit.
-
-    Bands are (c_0, c_1], (c_1, c_2], ..., (c_{K-1}, inf) with c_0 = 0 and
-    ``cuts`` = (c_1, ..., c_{K-1}) increasing.
-
-    Returns
-    -------
-    exposure : (n, K) array, the length of (t1, t2] inside each band
-    exit_band : (n,) int array, the band that contains t2
-    """
-    edges = np.concatenate(([0.0], np.asarray(cuts, dtype=np.float64), [np.inf]))
-    lo = edges[:-1]
-    hi = edges[1:]
-    exposure = np.clip(np.minimum(t2[:, None], hi) - np.maximum(t1[:, None], lo), 0.0, None)
-    exit_band = np.searchsorted(edges, t2, side="left") - 1
-    return exposure, np.clip(exit_band, 0, len(lo) - 1)
+def band_edges(cuts: np.ndarray) -> np.ndarray:
+    """Edges of the tenure bands (c_0, c_1], (c_1, c_2], ..., (c_{K-1}, inf), c_0 = 0,
+    from the increasing ``cuts`` (c_1, ..., c_{K-1})."""
+    return np.concatenate(([0.0], np.asarray(cuts, dtype=np.float64), [np.inf]))
 
 
 @dataclass(frozen=True)
@@ -333,7 +321,8 @@ class PiecewiseRows:
     @classmethod
     def build(cls, X: np.ndarray, t1: np.ndarray, t2: np.ndarray, d: np.ndarray, w: np.ndarray,
               cuts: np.ndarray) -> PiecewiseRows:
-        exposure, band = band_exposure(np.asarray(t1, float), np.asarray(t2, float), cuts)
+        exposure, band = exposure_by_row(np.asarray(t1, float), np.asarray(t2, float),
+                                         band_edges(cuts))
         w = np.asarray(w, dtype=np.float64)
         X = np.asarray(X, dtype=np.float64).reshape(exposure.shape[0], -1)
         return cls(X, exposure, band, w, w * np.asarray(d, dtype=np.float64))
@@ -447,7 +436,7 @@ def _split(kind: str, theta: np.ndarray, n_bands: int) -> tuple[np.ndarray, floa
 
 def band_hazard_integral(cuts: np.ndarray, t: np.ndarray) -> np.ndarray:
     """E_k(t): time spent in each band by tenure t, shape (m, K)."""
-    exposure, _ = band_exposure(np.zeros_like(t), t, cuts)
+    exposure, _ = exposure_by_row(np.zeros_like(t), t, band_edges(cuts))
     return exposure
 
 

@@ -52,6 +52,7 @@ from scipy import stats
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import parametric as K
+from retain.kernels.exposure import exposure_by_row
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
 from retain.kernels.threads import one_blas_thread
 from retain.models.design import Design, design_matrix
@@ -686,7 +687,7 @@ class ParametricFit(Result):
         lin = X @ self.params[sl] if self.columns else np.zeros(table.n_rows)
         if self.model == "piecewise":
             k = len(self.cuts) + 1
-            expo, _ = K.band_exposure(table.start, table.stop, self._cuts)
+            expo, _ = exposure_by_row(table.start, table.stop, K.band_edges(self._cuts))
             h0 = expo @ np.exp(self.params[:k])
         else:
             a = self.shape_value
