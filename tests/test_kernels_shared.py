@@ -180,3 +180,21 @@ def test_exposure_by_row_hand_worked_and_summed_by_band():
     for g in range(3):
         np.testing.assert_allclose(total[g], (w[group == g, None] * rows[group == g]).sum(0),
                                    rtol=1e-12)
+
+
+def test_one_column_labeller_for_segments_curves_and_strata():
+    # hand-worked: numbers are coded by their distinct finite values, ascending, written
+    # with "g"; a missing value has code -1 (and its own "(missing)" segment)
+    from retain.data.table import Categorical
+    from retain.models._segments import _labels_of, column_codes
+
+    codes, levels = column_codes(np.array([9.5, 12.0, np.nan, 9.5]))
+    np.testing.assert_array_equal(codes, [0, 1, -1, 0])
+    assert levels == ("9.5", "12")
+    cat = Categorical(np.array([1, -1, 0], dtype=np.int32), ("annual", "monthly"))
+    codes, levels = column_codes(cat)
+    np.testing.assert_array_equal(codes, [1, -1, 0])
+    assert levels == ("annual", "monthly")
+    codes, labels = _labels_of(cat)
+    np.testing.assert_array_equal(codes, [1, 2, 0])
+    assert labels == ["annual", "monthly", "(missing)"]

@@ -1,4 +1,4 @@
-"""Shared helpers of the actuarial models: segment labels and DuckDB inputs.
+"""Shared helpers of the models: segment labels and DuckDB inputs.
 
 A segment is the value of one column (or a combination of several, joined
 with ", "); missing values form their own segment, "(missing)". The numpy
@@ -33,20 +33,31 @@ def by_names(by: str | Sequence[str] | None) -> tuple[str, ...]:
     return tuple(by)
 
 
-def _labels_of(col: np.ndarray | Categorical) -> tuple[np.ndarray, list[str]]:
+def column_codes(col: np.ndarray | Categorical) -> tuple[np.ndarray, tuple[str, ...]]:
+    """Code of each row's value and the levels' text: the one way a column is labelled.
+
+    A categorical column keeps its own codes and levels; a numeric one is coded by
+    its distinct finite values, ascending, written ``f"{v:g}"``. A missing value
+    (no level, NaN) has code -1. Every grouping by a column (segments, curves by
+    a column, Cox strata) starts here, so a value reads the same everywhere.
+    """
     if isinstance(col, Categorical):
-        levels = list(col.levels)
-        codes = col.codes.astype(np.int64)
-        if (codes < 0).any():
-            codes = np.where(codes < 0, len(levels), codes)
-            levels.append(MISSING)
-        return codes, levels
+        return col.codes, tuple(col.levels)
     finite = np.isfinite(col)
     values = np.unique(col[finite])
     codes = np.searchsorted(values, np.where(finite, col, 0.0)).astype(np.int64)
-    labels = [f"{v:g}" for v in values]
-    if not finite.all():
-        codes = np.where(finite, codes, len(labels))
+    codes[~finite] = -1
+    return codes, tuple(f"{v:g}" for v in values)
+
+
+def _labels_of(col: np.ndarray | Categorical) -> tuple[np.ndarray, list[str]]:
+    """Codes and labels with missing values as a segment of their own, "(missing)"."""
+    codes, levels = column_codes(col)
+    codes = codes.astype(np.int64)
+    labels = list(levels)
+    missing = codes < 0
+    if missing.any():
+        codes = np.where(missing, len(labels), codes)
         labels.append(MISSING)
     return codes, labels
 

@@ -37,6 +37,7 @@ from retain.data.table import Categorical, StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import cox as K
 from retain.kernels.threads import one_blas_thread
+from retain.models._segments import column_codes
 from retain.models.design import Design, check_collinear_matrix, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
 from retain.results import Result, to_jsonable
@@ -666,17 +667,12 @@ def concordance(table: StartStop, score: str | Sequence[float] | np.ndarray, *,
 def _stratum_labels(table: StartStop, strata: Sequence[str]) -> list[str]:
     parts = []
     for s in strata:
-        col = table.column(s)
-        if isinstance(col, Categorical):
-            if (col.codes < 0).any():
-                raise DataError(table.source, f"stratum column {s!r} is missing on "
-                                f"{int((col.codes < 0).sum())} rows", "fill or drop those rows")
-            vals = np.array(col.levels, dtype=object)[col.codes]
-        else:
-            if (~np.isfinite(col)).any():
-                raise DataError(table.source, f"stratum column {s!r} is missing on "
-                                f"{int((~np.isfinite(col)).sum())} rows", "fill or drop those rows")
-            vals = np.array([f"{v:g}" for v in col], dtype=object)
+        codes, levels = column_codes(table.column(s))
+        missing = int(np.count_nonzero(codes < 0))
+        if missing:
+            raise DataError(table.source, f"stratum column {s!r} is missing on "
+                            f"{missing} rows", "fill or drop those rows")
+        vals = np.array(levels, dtype=object)[codes]
         parts.append(np.char.add(f"{s}=", vals.astype(str)))
     out = parts[0]
     for p in parts[1:]:
@@ -687,14 +683,7 @@ def _stratum_labels(table: StartStop, strata: Sequence[str]) -> list[str]:
 def _stratum_codes(table: StartStop, strata: Sequence[str]) -> tuple[np.ndarray, tuple[str, ...]]:
     if not strata:
         return np.zeros(table.n_rows, dtype=np.int64), ("all",)
-    codes = []
-    for s in strata:
-        col = table.column(s)
-        if isinstance(col, Categorical):
-            codes.append(col.codes.astype(np.int64))
-        else:
-            codes.append(np.unique(col, return_inverse=True)[1].astype(np.int64))
-    key = np.stack(codes, axis=1)
+    key = np.stack([column_codes(table.column(s))[0].astype(np.int64) for s in strata], axis=1)
     uniq, inv = np.unique(key, axis=0, return_inverse=True)
     inv = inv.reshape(-1)
     first = np.zeros(uniq.shape[0], dtype=np.int64)

@@ -43,6 +43,7 @@ from retain.kernels.risksets import (
     first_of_spell,
     risk_table,
 )
+from retain.models._segments import column_codes
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
 
@@ -488,15 +489,7 @@ def spell_start_codes(table: StartStop, by: str) -> tuple[np.ndarray, tuple[str,
     values. Without customer ids each row keeps its own value (basis
     ``"row value"``). Code -1 marks a missing value.
     """
-    col = table.column(by)
-    if isinstance(col, Categorical):
-        codes, levels = col.codes, col.levels
-    else:
-        finite = np.isfinite(col)
-        uniq = np.unique(col[finite])
-        codes = np.full(col.shape[0], -1, dtype=np.int32)
-        codes[finite] = np.searchsorted(uniq, col[finite]).astype(np.int32)
-        levels = tuple(f"{v:g}" for v in uniq)
+    codes, levels = column_codes(table.column(by))
     if not table.has_customers:
         return codes, levels, "row value"
     head = first_of_spell(table.customer.codes, table.spell, table.start)
