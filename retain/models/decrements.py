@@ -320,15 +320,9 @@ def _numpy_counts(table: StartStop, names: tuple[str, ...], axis: str,
         churn_band = np.ceil(hi / DAYS_PER_MONTH).astype(np.int64) - 1
         band_number = np.arange(n_bands)
     else:
-        if table.start_date is None:
-            raise DataError(table.source, "calendar months need the column 'start_date'",
-                            "use tenure months, or prepare the table with start dates")
-        day0 = table.start_date.astype(np.int64).astype(float)
+        day0, first, last, edges = calendar_months(table)
         lo, hi = day0 + table.start, day0 + table.stop
-        first = _month_number(np.floor(lo).min())
-        last = max(_month_number(np.ceil(hi).max() - 1), _month_number(np.floor(hi).max()))
         band_number = np.arange(first, last + 1)
-        edges = _month_first_day(np.arange(first, last + 2)).astype(float)
         churn_band = _month_number(np.floor(hi)) - first
         n_bands = band_number.shape[0]
     exposure, in_force = band_exposure(lo, hi, w, edges, codes, g)
@@ -351,6 +345,25 @@ def _numpy_counts(table: StartStop, names: tuple[str, ...], axis: str,
         "churns_involuntary": by_cause["involuntary"].ravel(),
     }
     return pd.DataFrame(rows), table.n_rows, table.n_events, table.source
+
+
+def calendar_months(table: StartStop) -> tuple[np.ndarray, int, int, np.ndarray]:
+    """The calendar months a table's rows cover, as epoch days.
+
+    Returns (start day of each row's spell, first and last month number, the
+    months' edges: the first day of each month and of the month after the last).
+    A row at risk on (lo, hi] days of tenure covers epoch days (day0 + lo, day0 + hi];
+    the last month holds the last churn day, floor(day0 + hi).
+    """
+    if table.start_date is None:
+        raise DataError(table.source, "calendar months need the column 'start_date'",
+                        "use tenure months, or prepare the table with start dates")
+    day0 = table.start_date.astype(np.int64).astype(float)
+    lo, hi = day0 + table.start, day0 + table.stop
+    first = int(_month_number(np.floor(lo).min()))
+    last = int(max(_month_number(np.ceil(hi).max() - 1), _month_number(np.floor(hi).max())))
+    edges = _month_first_day(np.arange(first, last + 2)).astype(float)
+    return day0, first, last, edges
 
 
 def _month_number(day: Any) -> Any:

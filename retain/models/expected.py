@@ -41,8 +41,8 @@ from retain.kernels.exposure import split_at_edges
 from retain.models._segments import ALL, by_names, duckdb_input, segment_codes
 from retain.models.decrements import (
     DecrementTable,
-    _month_first_day,
     _month_number,
+    calendar_months,
     check_input,
     exposure_by_band,
     poisson_interval,
@@ -258,15 +258,7 @@ def _month_split(table: StartStop, kind: str) -> tuple[StartStop, np.ndarray, np
         edges = DAYS_PER_MONTH * np.arange(k + 1, dtype=float)
         first = 0
     else:
-        if table.start_date is None:
-            raise DataError(table.source, "calendar months need the column 'start_date'",
-                            "use tenure months, or prepare the table with start dates")
-        offset = table.start_date.astype(np.int64).astype(float)
-        lo_abs, hi_abs = offset + table.start, offset + table.stop
-        first = int(_month_number(np.floor(lo_abs).min()))
-        last = int(max(_month_number(np.ceil(hi_abs).max() - 1),
-                       _month_number(np.floor(hi_abs).max())))
-        edges = _month_first_day(np.arange(first, last + 2)).astype(float)
+        offset, first, _, edges = calendar_months(table)
     row, lo, hi, band, last_piece = split_at_edges(offset + table.start, offset + table.stop,
                                                    edges)
     pieces = table.take(row)
