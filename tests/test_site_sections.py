@@ -182,3 +182,31 @@ def test_a_broken_page_is_shown_with_its_cause_when_not_strict(small_run):
     (section,) = {p.slug: p for p in refused.pages}["cohorts"].sections
     assert section.failure == ("cohort table: no cohort has a signup month -- add a "
                                "start_date")
+
+
+def _page_texts(content):
+    """Every piece of wording on the pages (not the charts' specs or the tables)."""
+    for p in content.pages:
+        yield from (p.title, p.lead, *p.cautions, *p.assumptions)
+        for s in p.sections:
+            yield from (s.title, s.intro, s.verdict, s.failure or "", *s.bullets)
+            for f in s.facts:
+                yield from (f.label, f.text, f.detail)
+            for g in s.figures:
+                yield from (g.title, g.guide, g.note)
+
+
+def test_page_wording_has_every_field_filled(demo_content, small_run):
+    """The longer wording lives in pages/prose.py with {name} fields: each must be filled by
+    the page that shows it (the demo and a table without covariates, whose pages take the
+    not-set-up paths)."""
+    import re
+
+    from retain.publish.pages import site_content
+
+    texts = [*_page_texts(demo_content), *_page_texts(site_content(small_run, strict=True))]
+    assert len(texts) > 300
+    assert [t for t in texts if re.search(r"\{[a-z_]*(:[^{}]*)?\}", t)] == []
+    assert any(t.startswith("Each spell is placed by its plan at the start of the spell (")
+               for t in texts)
+
