@@ -7,11 +7,10 @@
 -- same-day rank start < update < pause < resume < payment_failed <
 -- payment_recovered < end, time, source row). The windows sort on
 -- `ord_key`, the fields of `ord` above the source row (day, rank, time) as a
--- BIGINT: a RANGE frame over a HUGEINT key costs a generic comparison at each
--- step of its bound search, which made one long history cost many times more
--- per event than short ones. Rows with equal keys (same day, rank and time)
--- are `same_moment`, so their customer is suspect and its states come from the
--- second pass, where the reorder step makes every key unique.
+-- BIGINT (a narrower sort key than the HUGEINT). Rows with equal keys (same
+-- day, rank and time) are `same_moment`, so their customer is suspect and its
+-- states come from the second pass, where the reorder step makes every key
+-- unique.
 --   spell        number of starts so far (1, 2, ...)
 --   start_day    day of the spell's start (tenure 0)
 --   varying attributes: last non-empty value on a start or update row
@@ -47,8 +46,6 @@ with keyed as (
         cause_given,
         cast(ord >> 40 as bigint) as ord_key,
         cast(day_ord >> 40 as bigint) as day_key,
-        -- the RANGE offset that ends a frame just before the day's first event
-        cast((ord - day_ord) >> 40 as bigint) + 1 as since_day_start,
         -- starts in the high bits, ends in the low bits: one running sum gives both
         case event_rank when 0 then cast(1 as bigint) << 32 when 6 then 1 else 0 end
             as boundary_code,
@@ -75,7 +72,9 @@ walked as (
         max(set__start_day) over upto as start_day,
         last_value(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$')
                    ignore nulls) over upto as '\1',
-        last_value(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$') ignore nulls)
+        -- the state at the end of the customer's previous day with events: over the
+        -- earlier days (peer groups of day_key), the value of the latest row that set it
+        arg_max(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$'), ord_key)
             over before_day as 'before__\1',
         -- the first non-empty value (first_value ignoring nulls searches forward from
         -- each row, so an all-empty column costs a long history a scan per row: the
@@ -89,14 +88,19 @@ walked as (
         lead(ord_key) over upto as next_key
     from keyed
     window
-        upto as (partition by customer_id order by ord_key
+        -- ord_key begins with the day, so (day_key, ord_key) is ord_key's order; written
+        -- so, the four windows share one sort. The earlier days are a GROUPS frame: a
+        -- RANGE frame ending just before the day's first key searched for its end in the
+        -- sorted partition at every row and expression, which made one customer with a
+        -- long history cost far more per event than short ones
+        upto as (partition by customer_id order by day_key, ord_key
                  rows between unbounded preceding and current row),
-        rest as (partition by customer_id order by ord_key
+        rest as (partition by customer_id order by day_key, ord_key
                  rows between current row and unbounded following),
-        whole as (partition by customer_id order by ord_key
+        whole as (partition by customer_id order by day_key, ord_key
                   rows between unbounded preceding and unbounded following),
-        before_day as (partition by customer_id order by ord_key
-                       range between unbounded preceding and since_day_start preceding)
+        before_day as (partition by customer_id order by day_key
+                       groups between unbounded preceding and 1 preceding)
 ),
 
 packed as (
