@@ -54,10 +54,11 @@ def test_the_scan_finds_step_literals():
                                       (4, "fit:weibull")]
 
 
-def test_publish_names_steps_by_constant_only():
+def test_publish_and_run_name_steps_by_constant_only():
     files = sorted(PUBLISH.rglob("*.py"))
     assert any(f.name == "__init__.py" for f in files) and len(files) >= 4
-    found = {str(f.relative_to(PUBLISH)): hits for f in files
+    files.append(PUBLISH.parent / "run.py")  # where the steps are recorded
+    found = {str(f.relative_to(PUBLISH.parent)): hits for f in files
              if (hits := step_literals(f.read_text(encoding="utf-8")))}
     assert found == {}
 
