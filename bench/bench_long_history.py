@@ -137,29 +137,27 @@ def table(runs: dict[str, dict], rows: dict[str, int]) -> list[str]:
     return out
 
 
-#: what the measurements showed (2026-12-04, 1M + 1M events), kept with the figures
+#: what the measurements showed (2026-12-04), kept with the figures
 NOTES = [
-    "Where the long customer's time goes (the states step, one window partition of 1M "
-    "rows; measured one window expression at a time on the long customer alone):",
+    "Where a long history's time went (the states step: one window partition per "
+    "customer; measured one window expression at a time on the long customer alone):",
     "",
     "- `first_value` / `last_value` ignoring nulls search from each row for the nearest "
-    "non-empty value, so a column that is empty for most of a long history costs a scan "
-    "per row (quadratic): the spell's start day (one start in 1M rows), its end day (none) "
-    "and the all-empty placeholder of the statics pattern. Fixed: the start day is a "
-    "running max and the end day a running min (both come in day order), and the statics "
-    "pattern's extra match is `customer_id`. Before these changes the same long log spent "
-    "38.5 s in the states step (14.1 s after, same machine and load, one run each).",
-    "- What remains is the RANGE frame that holds the customer's earlier days (the state "
-    "at the start of the day, for the cut test): DuckDB searches each row's frame end in "
-    "the sorted partition and reuses the previous row's bound only when the bound hits a "
-    "key exactly (it never does here: it lies between the previous day's last row and the "
-    "day's first), and each of the 2 + (time-varying attributes) expressions over that "
-    "frame searches again. On one partition of n rows that cost grows faster than n "
-    "(0.7 s, 2.0 s, 5.6 s of states at 100k, 200k, 400k rows of one customer before the "
-    "changes; 0.6, 1.5, 3.9 s after). A ROWS frame needs the row's place in its day, and "
-    "every way to get it is a second window (a second sort of every row), which costs "
-    "ordinary logs more than the 5% allowed; so a long history still costs several times "
-    "more per event than short ones.",
+    "non-empty value, so a column empty for most of a long history cost a scan per row "
+    "(quadratic): the spell's start day (one start in 1M rows), its end day (none) and the "
+    "all-empty placeholder of the statics pattern. Now the start day is a running max and "
+    "the end day a running min (both come in day order), and the statics pattern's extra "
+    "match is `customer_id`.",
+    "- The state at the start of the day came from a RANGE frame ending just before the "
+    "day's first key. DuckDB searches the sorted partition for each row's frame end, "
+    "reusing the previous bound only when it hits a key exactly (never here), and every "
+    "expression over the frame searched again: on one partition of n rows that grew "
+    "faster than n. Now it is a GROUPS frame over the peer groups of the day (the windows "
+    "sorted on (day, key) so all four share one sort) with `arg_max` by the key.",
+    "- States step on one customer alone, before -> after: 0.7 -> 0.39 s at 100k events, "
+    "2.0 -> 0.74 s at 200k, 5.6 -> 1.39 s at 400k; on the 2M log above 38.5 s before "
+    "(same machine, one run). What is left above an ordinary log's cost per event is "
+    "mostly that one partition is one thread's work.",
 ]
 
 
