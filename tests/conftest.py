@@ -3,10 +3,16 @@
 from __future__ import annotations
 
 import json
+import os
 
 import pytest
 
 from retain.paths import DEMO_DIR
+
+# every site a test builds (in this process or a `retain` subprocess) raises on a page
+# builder's exception instead of shipping an error page: a renamed result attribute
+# must fail the suite, not publish a broken page
+os.environ.setdefault("RETAIN_STRICT_PAGES", "1")
 
 DEMO_TOML = DEMO_DIR / "retain.toml"
 DEMO_TRUTH = DEMO_DIR / "truth.json"
