@@ -70,8 +70,10 @@ walked as (
         -- starts come in day order, so the spell's start day is the latest so far (a
         -- running max: no backward search for the last non-null over a long history)
         max(set__start_day) over upto as start_day,
-        last_value(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$')
-                   ignore nulls) over upto as '\1',
+        -- the value of the latest row that set it (last_value ignoring nulls would
+        -- search back from each row: a scan per row when a long history rarely sets it)
+        arg_max(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$'), ord_key)
+            over upto as '\1',
         -- the state at the end of the customer's previous day with events: over the
         -- earlier days (peer groups of day_key), the value of the latest row that set it
         arg_max(columns('^set__(paused|in_recovery|v[cnr]__[A-Za-z].*)$'), ord_key)
