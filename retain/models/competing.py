@@ -32,6 +32,7 @@ from retain.data.table import CAUSES, StartStop
 from retain.errors import DataError, ModelError
 from retain.kernels.incidence import aalen_johansen, risk_and_events
 from retain.models._segments import by_names, segment_codes
+from retain.estimates import DEFAULT_LEVEL, Estimates
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
 
@@ -233,6 +234,35 @@ class CauseSpecificCox(Result):
     method: str = "cause-specific hazards: Cox PH per cause, other causes treated as censored"
     warnings: tuple[str, ...] = field(default_factory=tuple)
     missing: Any = None  # MissingCovariates: rows left out (or recoded) for missing values
+
+    @property
+    def level(self) -> float:
+        """The confidence level of the causes' intervals."""
+        return float(self.fits[self.causes[0]].conf) if self.causes else DEFAULT_LEVEL
+
+    def estimates(self) -> Estimates:
+        """Every cause's coefficients (log hazard ratios), named "cause: term".
+
+        The covariance is block-diagonal, one block per cause: the partial
+        likelihood factors over causes, so the model-based information has no
+        cross-cause terms; robust cross-cause covariances are not estimated.
+        """
+        parts = [self.fits[c].estimates() for c in self.causes]
+        names = tuple(f"{c}: {n}" for c, e in zip(self.causes, parts, strict=True)
+                      for n in e.names)
+        k = len(names)
+        cov = np.zeros((k, k))
+        at = 0
+        for e in parts:
+            m = len(e.names)
+            cov[at:at + m, at:at + m] = e.cov
+            at += m
+        return Estimates(
+            model="cause-specific Cox", names=names,
+            estimate=np.concatenate([e.estimate for e in parts]) if parts else np.zeros(0),
+            cov=cov, scale=("log hazard ratio",) * k, level=self.level,
+            covariance=(parts[0].covariance if parts else "none")
+            + " within each cause; none across causes")
 
     def to_frame(self) -> pd.DataFrame:
         return self.frame.copy()

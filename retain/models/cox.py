@@ -35,6 +35,7 @@ from scipy import stats
 
 from retain.data.table import Categorical, StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
+from retain.estimates import Estimates, RetentionPrediction
 from retain.kernels import cox as K
 from retain.kernels.threads import one_blas_thread
 from retain.models._segments import column_codes
@@ -137,6 +138,17 @@ class RemainingLifetime(Result):
                 f"days: {self.days:.1f} days ({self.months:.2f} months). {self.note}").strip()
 
 
+def _retention_limits(H: np.ndarray, se: np.ndarray, level: float, transform: str
+                      ) -> tuple[np.ndarray, np.ndarray]:
+    """Pointwise limits of S = exp(-H) from se(H): symmetric on log H ("log-log") or on H."""
+    zq = float(stats.norm.ppf(0.5 + level / 2))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if transform == "log-log":
+            spread = np.where(H > 0, np.exp(zq * se / H), 1.0)
+            return np.exp(-H * spread), np.exp(-H / spread)
+        return np.exp(-H - zq * se), np.minimum(1.0, np.exp(-H + zq * se))
+
+
 _PRIVATE = ("design", "_index", "_Xc", "_weight", "_churned", "_offset", "_stratum", "_dH0",
             "_xbar",
             "_table", "_cluster")
@@ -209,6 +221,21 @@ class CoxFit(Result):
     def fitted_table(self) -> StartStop:
         """The rows the model was fitted on (after the missing-value rule)."""
         return self._table
+
+    @property
+    def level(self) -> float:
+        """The confidence level of the intervals (the ``conf`` the fit was asked for)."""
+        return self.conf
+
+    def estimates(self) -> Estimates:
+        """Coefficients on the log hazard ratio scale with the covariance z, p and the
+        intervals use (robust when ``robust``), read as hazard ratios."""
+        kind = ("robust, clustered by " + self.robust_clusters) if self.robust \
+            else "inverse observed information"
+        return Estimates(model="Cox", names=tuple(self.labels), estimate=self.coef,
+                         cov=self.cov_robust if self.robust else self.cov_model,
+                         scale=("log hazard ratio",) * len(self.labels), level=self.conf,
+                         covariance=kind)
 
     @property
     def hazard_ratio(self) -> np.ndarray:
@@ -300,12 +327,13 @@ class CoxFit(Result):
         return (self.design.rows_for(profile) - self.design.means) @ self.coef
 
     def predict_retention(self, profile: Mapping[str, object], times: Sequence[float],
-                          stratum: str | None = None) -> pd.DataFrame:
+                          stratum: str | None = None) -> RetentionPrediction:
         """Retention curve :math:`S(t\\mid x)` from tenure 0 for a covariate profile.
 
-        The profile is held fixed over time. ``times`` in days of tenure. The
-        column ``extrapolated`` marks times after the stratum's last churn
-        (the baseline is flat there).
+        The profile is held fixed over time. ``times`` in days of tenure.
+        ``extrapolated`` marks times after the stratum's last churn (the
+        baseline is flat there). ``lower`` / ``upper`` are the pointwise
+        log-log limits of :meth:`retention_interval` at the fit's level.
         """
         s = self._stratum_code(stratum)
         lp = self.linear_predictor(profile)
@@ -314,8 +342,39 @@ class CoxFit(Result):
                             "use segment_retention for several members")
         t = np.asarray(times, dtype=float)
         H = self._cumhaz_at(s, t) * np.exp(lp[0])
-        return pd.DataFrame({"time": t, "cumulative_hazard": H, "retention": np.exp(-H),
-                             "extrapolated": t > self._last_time(s)})
+        _, H_iv, se = self._cumhaz_se(profile, t, s)
+        low, high = _retention_limits(H_iv, se, self.conf, "log-log")
+        last = self._last_time(s)
+        return RetentionPrediction(
+            model="Cox", times=t, survival=np.exp(-H), lower=low, upper=high,
+            level=self.conf, extrapolated=t > last, cumulative_hazard=H, follow_up=last,
+            profile={k: to_jsonable(v) for k, v in dict(profile).items()},
+            filled={} if stratum is None else {"stratum": self.stratum_labels[s]})
+
+    def _cumhaz_se(self, profile: Mapping[str, object], t: np.ndarray, s: int
+                   ) -> tuple[float, np.ndarray, np.ndarray]:
+        """Last churn time, :math:`\\hat H(t\\mid x)` and its standard error (see
+        :meth:`retention_interval`)."""
+        rows = self.design.rows_for(profile)
+        if rows.shape[0] != 1:
+            raise DataError("covariate profile", "give one value per covariate",
+                            "use segment_retention for several members")
+        z = rows[0] - self.design.means  # the profile on the centred scale of the fit
+        a, b = self._index.bounds[s], self._index.bounds[s + 1]
+        dH = self._dH0[a:b] * np.exp(float(z @ self.coef))
+        pos = np.searchsorted(self._index.times[a:b], t, side="right")
+
+        def upto(per_time: np.ndarray) -> np.ndarray:
+            c = np.zeros((per_time.shape[0] + 1,) + per_time.shape[1:])
+            np.cumsum(per_time, axis=0, out=c[1:])
+            return c[pos]
+
+        H = upto(dH)
+        given_beta = upto(dH * dH / self._index.deaths[a:b])  # D_k / S0(t_k; x)^2
+        q = upto((self._xbar[a:b] - z) * dH[:, None])
+        V = self.cov_robust if self.robust else self.cov_model
+        se = np.sqrt(given_beta + np.einsum("ij,jk,ik->i", q, V, q))
+        return self._last_time(s), H, se
 
     def retention_interval(self, profile: Mapping[str, object], times: Sequence[float],
                            stratum: str | None = None, conf: float | None = None,
@@ -360,36 +419,12 @@ class CoxFit(Result):
             raise DataError("retention_interval", f"conf must be between 0 and 1, got {level!r}",
                             "use e.g. 0.95")
         s = self._stratum_code(stratum)
-        rows = self.design.rows_for(profile)
-        if rows.shape[0] != 1:
-            raise DataError("covariate profile", "give one value per covariate",
-                            "use segment_retention for several members")
-        z = rows[0] - self.design.means  # the profile on the centred scale of the fit
-        a, b = self._index.bounds[s], self._index.bounds[s + 1]
-        dH = self._dH0[a:b] * np.exp(float(z @ self.coef))
         t = np.asarray(times, dtype=float)
-        pos = np.searchsorted(self._index.times[a:b], t, side="right")
-
-        def upto(per_time: np.ndarray) -> np.ndarray:
-            c = np.zeros((per_time.shape[0] + 1,) + per_time.shape[1:])
-            np.cumsum(per_time, axis=0, out=c[1:])
-            return c[pos]
-
-        H = upto(dH)
-        given_beta = upto(dH * dH / self._index.deaths[a:b])  # D_k / S0(t_k; x)^2
-        q = upto((self._xbar[a:b] - z) * dH[:, None])
-        V = self.cov_robust if self.robust else self.cov_model
-        se = np.sqrt(given_beta + np.einsum("ij,jk,ik->i", q, V, q))
-        zq = float(stats.norm.ppf(0.5 + level / 2))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            if transform == "log-log":
-                spread = np.where(H > 0, np.exp(zq * se / H), 1.0)
-                low, high = np.exp(-H * spread), np.exp(-H / spread)
-            else:
-                low, high = np.exp(-H - zq * se), np.minimum(1.0, np.exp(-H + zq * se))
+        last, H, se = self._cumhaz_se(profile, t, s)
+        low, high = _retention_limits(H, se, level, transform)
         return pd.DataFrame({"time": t, "cumulative_hazard": H, "se_cumulative_hazard": se,
                              "retention": np.exp(-H), "retention_low": low,
-                             "retention_high": high, "extrapolated": t > self._last_time(s)})
+                             "retention_high": high, "extrapolated": t > last})
 
     def _strata_of(self, table: StartStop) -> np.ndarray:
         if not self.strata:

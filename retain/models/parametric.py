@@ -51,6 +51,7 @@ from scipy import stats
 
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
+from retain.estimates import Estimates, RetentionPrediction
 from retain.kernels import parametric as K
 from retain.kernels.exposure import exposure_by_row
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
@@ -129,50 +130,8 @@ def _strip(design: Design) -> Design:
 
 
 # --------------------------------------------------------------------------- results
-@dataclass(frozen=True, eq=False)
-class RetentionForecast(Result):
-    """Fitted retention S(t), hazard h(t) and cumulative hazard for one profile.
-
-    Intervals: S on the log(-log S) scale, h on the log scale (delta method).
-    ``times`` are tenures in days.
-    """
-
-    model: str
-    profile: dict[str, Any]
-    filled: dict[str, str]
-    times: np.ndarray
-    retention: np.ndarray
-    lower: np.ndarray
-    upper: np.ndarray
-    hazard: np.ndarray
-    hazard_lower: np.ndarray
-    hazard_upper: np.ndarray
-    cumulative_hazard: np.ndarray
-    conf: float
-    follow_up: float
-    warnings: tuple[str, ...] = ()
-
-    @property
-    def extrapolated(self) -> np.ndarray:
-        """True where the tenure lies past the longest observed tenure."""
-        return self.times > self.follow_up
-
-    def to_frame(self) -> pd.DataFrame:
-        return pd.DataFrame({
-            "days": self.times, "months": self.times / DAYS_PER_MONTH,
-            "retention": self.retention, "lower": self.lower, "upper": self.upper,
-            "hazard_per_month": self.hazard * DAYS_PER_MONTH,
-            "hazard_lower_per_month": self.hazard_lower * DAYS_PER_MONTH,
-            "hazard_upper_per_month": self.hazard_upper * DAYS_PER_MONTH,
-            "cumulative_hazard": self.cumulative_hazard, "extrapolated": self.extrapolated,
-        })
-
-    def summary(self) -> str:
-        last = len(self.times) - 1
-        text = (f"{self.model} retention at {_months(self.times[last]):.0f} months: "
-                f"{self.retention[last]:.1%} ({self.conf:.0%} CI {self.lower[last]:.1%} to "
-                f"{self.upper[last]:.1%})")
-        return text + ("; " + "; ".join(self.warnings) if self.warnings else "")
+#: the retention prediction of a parametric fit: the one type every model returns
+RetentionForecast = RetentionPrediction
 
 
 @dataclass(frozen=True, eq=False)
@@ -304,6 +263,31 @@ class ParametricFit(Result):
         out["aic"] = self.aic
         out["bic"] = self.bic
         return out
+
+    @property
+    def level(self) -> float:
+        """The confidence level of the intervals (the ``conf`` the fit was asked for)."""
+        return self.conf
+
+    def estimates(self) -> Estimates:
+        """``params`` on their working scale with ``cov``, read through exp.
+
+        Baseline terms: log rate (exponential, Weibull: ``exp(b0)`` multiplies
+        ``t**shape`` in the cumulative hazard, per day), log shape (Weibull),
+        log hazard per day of each band (piecewise); covariates: log hazard ratio.
+        """
+        k = self.params.shape[0]
+        sl = self._beta_index
+        scale = ["log hazard ratio"] * k
+        if self.model == "piecewise":
+            scale[:sl.start] = ["log hazard"] * sl.start
+        else:
+            scale[0] = "log rate"
+            if self.model == "weibull" and sl.start == 2:
+                scale[1] = "log shape"
+        names = tuple(self.param_names[:sl.start]) + tuple(self.labels)
+        return Estimates(model=self.model, names=names, estimate=self.params,
+                         cov=self.cov, scale=tuple(scale), level=self.conf)
 
     @property
     def se(self) -> np.ndarray:
@@ -503,7 +487,7 @@ class ParametricFit(Result):
         return self.predict_retention(profile, times).hazard
 
     def predict_retention(self, profile: Mapping[str, Any] | None = None,
-                          times: Sequence[float] | np.ndarray | None = None) -> RetentionForecast:
+                          times: Sequence[float] | np.ndarray | None = None) -> RetentionPrediction:
         """Retention S(t|x), hazard and cumulative hazard at tenures ``times`` (days).
 
         ``times`` default: every month up to twice the longest observed tenure.
@@ -532,11 +516,11 @@ class ParametricFit(Result):
             if lim is not None:
                 hz[at0] = hz_lo[at0] = hz_hi[at0] = lim
         warnings = list(self.warnings_for(float(t.max()), "the retention curve"))
-        return RetentionForecast(
-            model=self.model, profile=prof, filled=filled, times=t, retention=surv,
+        return RetentionPrediction(
+            model=self.model, profile=prof, filled=filled, times=t, survival=surv,
             lower=lower, upper=upper, hazard=hz, hazard_lower=hz_lo, hazard_upper=hz_hi,
-            cumulative_hazard=H, conf=self.conf, follow_up=self.follow_up,
-            warnings=tuple(warnings))
+            cumulative_hazard=H, level=self.conf, follow_up=self.follow_up,
+            extrapolated=t > self.follow_up, warnings=tuple(warnings))
 
     def warnings_for(self, reach_days: float, what: str) -> tuple[str, ...]:
         note = _extrapolation_note(what, reach_days, self.follow_up)
@@ -602,7 +586,7 @@ class ParametricFit(Result):
 
     def segment_retention(self, table: StartStop,
                           times: Sequence[float] | np.ndarray | None = None,
-                          label: str = "segment") -> RetentionForecast:
+                          label: str = "segment") -> RetentionPrediction:
         """Average fitted retention of the spells in ``table`` (a segment), with intervals.
 
         S_seg(t) = sum_i w_i S(t | x_i) / sum_i w_i over each spell's first row,
@@ -666,11 +650,12 @@ class ParametricFit(Result):
         se_h = np.sqrt(np.einsum("ij,jk,ik->i", dlog_h, self.cov, dlog_h))
         if self.model == "weibull" and not pos.all() and self.shape_value != 1.0:
             hbar[~pos] = 0.0 if self.shape_value > 1 else np.inf   # h(0) of a Weibull
-        return RetentionForecast(
+        return RetentionPrediction(
             model=self.model, profile={"segment": label, "spells": int(sub.n_rows)}, filled={},
-            times=t, retention=surv, lower=lower, upper=upper, hazard=hbar,
+            times=t, survival=surv, lower=lower, upper=upper, hazard=hbar,
             hazard_lower=hbar * np.exp(-z * se_h), hazard_upper=hbar * np.exp(z * se_h),
-            cumulative_hazard=-np.log(surv), conf=self.conf, follow_up=self.follow_up,
+            cumulative_hazard=-np.log(surv), level=self.conf, follow_up=self.follow_up,
+            extrapolated=t > self.follow_up,
             warnings=self.warnings_for(float(t.max()), f"the retention curve of {label}"))
 
     def expected_events(self, table: StartStop) -> np.ndarray:

@@ -42,6 +42,7 @@ from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
 from retain.kernels import renewal as R
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
+from retain.estimates import Estimates
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
 
@@ -216,6 +217,11 @@ class RenewalProjection(Result):
     conf: float
     warnings: tuple[str, ...] = ()
 
+    @property
+    def level(self) -> float:
+        """The confidence level of ``lower`` / ``upper``."""
+        return self.conf
+
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame({"period": self.periods, "survival": self.survival,
                              "lower": self.lower, "upper": self.upper,
@@ -266,6 +272,17 @@ class RenewalFit(Result):
         return pd.DataFrame({"parameter": ["alpha", "beta"], "estimate": est,
                              "lower": est * np.exp(-z * se), "upper": est * np.exp(z * se),
                              "se_log": se})
+
+    @property
+    def level(self) -> float:
+        """The confidence level of the intervals (the ``conf`` the fit was asked for)."""
+        return self.conf
+
+    def estimates(self) -> Estimates:
+        """(log alpha, log beta) with their covariance, read as alpha and beta."""
+        return Estimates(model="shifted-beta-geometric", names=("alpha", "beta"),
+                         estimate=np.log([self.alpha, self.beta]), cov=self.cov,
+                         scale=("log alpha", "log beta"), level=self.conf)
 
     @property
     def mean_churn_probability(self) -> float:
