@@ -155,3 +155,18 @@ class Result:
 
     def summary(self) -> str:
         return type(self).__name__
+
+
+class LevelFromConf:
+    """Mixin for results whose confidence level is stored as the field ``conf``.
+
+    ``level`` reads it, so every result offers the one name ``level`` (the
+    pages print the level the result carries).
+    """
+
+    conf: float
+
+    @property
+    def level(self) -> float:
+        """The confidence level of the result's intervals (e.g. 0.95)."""
+        return float(self.conf)

@@ -30,9 +30,9 @@ from scipy import stats
 
 from retain.data.table import CAUSES, StartStop
 from retain.errors import DataError, ModelError
+from retain.estimates import DEFAULT_LEVEL, Estimates
 from retain.kernels.incidence import aalen_johansen, risk_and_events
 from retain.models._segments import by_names, segment_codes
-from retain.estimates import DEFAULT_LEVEL, Estimates
 from retain.results import Result
 from retain.units import DAYS_PER_MONTH
 

@@ -41,7 +41,7 @@ from retain.kernels.threads import one_blas_thread
 from retain.models._segments import column_codes
 from retain.models.design import Design, check_collinear_matrix, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
-from retain.results import Result, to_jsonable
+from retain.results import LevelFromConf, Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 TIES = ("efron", "breslow")
@@ -155,7 +155,7 @@ _PRIVATE = ("design", "_index", "_Xc", "_weight", "_churned", "_offset", "_strat
 
 
 @dataclass(frozen=True, eq=False)
-class CoxFit(Result):
+class CoxFit(Result, LevelFromConf):
     """A fitted Cox model: estimates with their context, prediction and diagnostics.
 
     ``se`` is the standard error the z, p and intervals use: robust (clustered
@@ -221,11 +221,6 @@ class CoxFit(Result):
     def fitted_table(self) -> StartStop:
         """The rows the model was fitted on (after the missing-value rule)."""
         return self._table
-
-    @property
-    def level(self) -> float:
-        """The confidence level of the intervals (the ``conf`` the fit was asked for)."""
-        return self.conf
 
     def estimates(self) -> Estimates:
         """Coefficients on the log hazard ratio scale with the covariance z, p and the

@@ -44,7 +44,7 @@ from retain.kernels.risksets import (
     risk_table,
 )
 from retain.models._segments import column_codes
-from retain.results import Result
+from retain.results import LevelFromConf, Result
 from retain.units import DAYS_PER_MONTH
 
 INTERVALS = ("log-log", "log", "linear")
@@ -109,7 +109,7 @@ def _fmt_days(d: float | None) -> str:
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True, eq=False)
-class LifetimeQuantile(Result):
+class LifetimeQuantile(Result, LevelFromConf):
     """A quantile of tenure: the time by which a fraction ``p`` of customers has churned.
 
     ``days`` is None when the curve never falls to ``1 - p`` ("not reached");
@@ -143,7 +143,7 @@ class LifetimeQuantile(Result):
 
 
 @dataclass(frozen=True, eq=False)
-class RestrictedMean(Result):
+class RestrictedMean(Result, LevelFromConf):
     """Restricted mean tenure: expected days retained within the first ``horizon`` days.
 
     The area under the Kaplan–Meier curve from 0 to ``horizon`` (Irwin 1949),
@@ -170,7 +170,7 @@ class RestrictedMean(Result):
 
 
 @dataclass(frozen=True, eq=False)
-class RetentionCurve(Result):
+class RetentionCurve(Result, LevelFromConf):
     """Kaplan–Meier retention (survival) curve on start-stop data.
 
     Arrays are indexed by the distinct times at which a customer churned or left
@@ -329,7 +329,7 @@ class RetentionCurve(Result):
 
 
 @dataclass(frozen=True, eq=False)
-class CumulativeHazard(Result):
+class CumulativeHazard(Result, LevelFromConf):
     """Nelson–Aalen cumulative hazard with Aalen's variance and log-scale interval."""
 
     label: str
@@ -535,7 +535,7 @@ def curves_by(table: StartStop, by: str, *, conf: float = 0.95,
 
 # --------------------------------------------------------------------------- cohort table
 @dataclass(frozen=True, eq=False)
-class CohortTable(Result):
+class CohortTable(Result, LevelFromConf):
     """Cohort × month retention: Kaplan–Meier per signup cohort, read at whole months.
 
     Matrices have one row per cohort (``cohorts``, 'YYYY-MM') and one column per
@@ -747,7 +747,7 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
 
 # --------------------------------------------------------------------------- time grid
 @dataclass(frozen=True, eq=False)
-class RetentionGrid(Result):
+class RetentionGrid(Result, LevelFromConf):
     """Retention read off a curve at chosen tenures, with intervals and numbers at risk.
 
     Points past the curve's last observed tenure are NaN and listed in
@@ -961,7 +961,7 @@ def compare_groups(table: StartStop, by: str, *, strata: str | None = None,
 
 
 @dataclass(frozen=True, eq=False)
-class RestrictedMeanDifference(Result):
+class RestrictedMeanDifference(Result, LevelFromConf):
     """Difference in restricted mean tenure between two groups (``other`` − ``reference``).
 
     Independent groups: ``se = sqrt(se_ref^2 + se_other^2)``, normal interval

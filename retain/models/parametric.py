@@ -58,7 +58,7 @@ from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximi
 from retain.kernels.threads import one_blas_thread
 from retain.models.design import Design, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
-from retain.results import Result, to_jsonable
+from retain.results import LevelFromConf, Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 __all__ = [
@@ -135,7 +135,7 @@ RetentionForecast = RetentionPrediction
 
 
 @dataclass(frozen=True, eq=False)
-class LifetimeEstimate(Result):
+class LifetimeEstimate(Result, LevelFromConf):
     """A median or mean lifetime (days) with a delta-method interval (log scale)."""
 
     model: str
@@ -169,7 +169,7 @@ class LifetimeEstimate(Result):
 
 
 @dataclass(frozen=True, eq=False)
-class ShapeTest(Result):
+class ShapeTest(Result, LevelFromConf):
     """Weibull shape alpha, its interval, and the likelihood-ratio test of alpha = 1."""
 
     shape: float
@@ -212,7 +212,7 @@ def _fmt_p(p: float) -> str:
 
 
 @dataclass(frozen=True, eq=False)
-class ParametricFit(Result):
+class ParametricFit(Result, LevelFromConf):
     """A fitted exponential, Weibull or piecewise-constant hazard model.
 
     ``params`` are in days and uncentred covariates:
@@ -263,11 +263,6 @@ class ParametricFit(Result):
         out["aic"] = self.aic
         out["bic"] = self.bic
         return out
-
-    @property
-    def level(self) -> float:
-        """The confidence level of the intervals (the ``conf`` the fit was asked for)."""
-        return self.conf
 
     def estimates(self) -> Estimates:
         """``params`` on their working scale with ``cov``, read through exp.

@@ -40,10 +40,10 @@ from scipy import stats
 
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
+from retain.estimates import Estimates
 from retain.kernels import renewal as R
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
-from retain.estimates import Estimates
-from retain.results import Result
+from retain.results import LevelFromConf, Result
 from retain.units import DAYS_PER_MONTH
 
 __all__ = [
@@ -196,7 +196,7 @@ def renewal_counts(table: StartStop, *, period_days: float = DAYS_PER_MONTH,
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True, eq=False)
-class RenewalProjection(Result):
+class RenewalProjection(Result, LevelFromConf):
     """Projected survival S(t), retention rates r_t and survivors per ``cohort_size``.
 
     ``observed`` marks periods the fit saw; the rest are projections.
@@ -217,11 +217,6 @@ class RenewalProjection(Result):
     conf: float
     warnings: tuple[str, ...] = ()
 
-    @property
-    def level(self) -> float:
-        """The confidence level of ``lower`` / ``upper``."""
-        return self.conf
-
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame({"period": self.periods, "survival": self.survival,
                              "lower": self.lower, "upper": self.upper,
@@ -239,7 +234,7 @@ class RenewalProjection(Result):
 
 
 @dataclass(frozen=True, eq=False)
-class RenewalFit(Result):
+class RenewalFit(Result, LevelFromConf):
     """A fitted shifted-beta-geometric model.
 
     ``alpha`` and ``beta`` are the Beta mixing distribution's parameters;
@@ -272,11 +267,6 @@ class RenewalFit(Result):
         return pd.DataFrame({"parameter": ["alpha", "beta"], "estimate": est,
                              "lower": est * np.exp(-z * se), "upper": est * np.exp(z * se),
                              "se_log": se})
-
-    @property
-    def level(self) -> float:
-        """The confidence level of the intervals (the ``conf`` the fit was asked for)."""
-        return self.conf
 
     def estimates(self) -> Estimates:
         """(log alpha, log beta) with their covariance, read as alpha and beta."""

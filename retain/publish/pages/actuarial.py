@@ -112,7 +112,7 @@ def ae_page(run: Any, ae: Any) -> Page:
                   float(book["expected"])),
              Fact("A/E, whole book", f"{float(book['ratio']):.3f}",
                   interval_text(float(book["lower"]), float(book["upper"]),
-                                lambda v: f"{v:.3f}"), "ae-ratio", float(book["ratio"])))
+                                lambda v: f"{v:.3f}", ae.level), "ae-ratio", float(book["ratio"])))
     sections = [Section("The basis", intro=prose.AE_BASIS_INTRO.format(basis=ae.basis,
                                                                       interval=ae.interval),
                         facts=facts, bullets=tuple(ae.warnings))]

@@ -8,7 +8,21 @@ from typing import Any
 from retain import step_names as step
 from retain.publish.content import Fact, Figure, Page, Section, slug
 from retain.publish.pages import prose
-from retain.publish.pages.shared import curves_figure, failure_section, num, p_text
+from retain.publish.pages.shared import (
+    curves_figure,
+    failure_section,
+    interval_text,
+    num,
+    p_text,
+)
+
+
+def _two(x: float | None) -> str:
+    return f"{x:.2f}"
+
+
+def _money(x: float | None) -> str:
+    return num(x, 2)
 
 
 def experiments_page(run: Any) -> Page:
@@ -37,8 +51,8 @@ def experiment_verdict_text(v: Any) -> str:
         if adj is None:
             parts.append(f"{t}: no adjusted hazard ratio could be computed")
             continue
-        ratio = (f"(hazard ratio {adj.hazard_ratio:.2f}, 95 % interval {adj.lower:.2f} to "
-                 f"{adj.upper:.2f})")
+        ratio = (f"(hazard ratio {adj.hazard_ratio:.2f}, "
+                 f"{interval_text(adj.lower, adj.upper, _two, v.conf)})")
         if adj.lower > 1:
             what = f"customers on {t} churned faster than on {v.control} {ratio}"
         elif adj.upper < 1:
@@ -50,8 +64,8 @@ def experiment_verdict_text(v: Any) -> str:
             sign = "more" if rv.difference > 0 else "less"
             clear = "" if (rv.lower > 0 or rv.upper < 0) else ", not a clear difference"
             what += (f"; revenue per assigned customer over {rv.horizon_days:g} days was "
-                     f"{num(abs(rv.difference), 2)} {sign} (95 % interval {num(rv.lower, 2)} to "
-                     f"{num(rv.upper, 2)}{clear})")
+                     f"{num(abs(rv.difference), 2)} {sign} "
+                     f"({interval_text(rv.lower, rv.upper, _money, rv.conf)}{clear})")
         parts.append(what)
     return f"{status} at {v.analysis_horizon_days:g} days: " + "; ".join(parts) + "."
 
@@ -60,13 +74,13 @@ def _experiment_facts(key: str, v: Any) -> list[Fact]:
     facts = []
     for a in v.adjusted:
         facts.append(Fact(f"Hazard ratio, {a.treatment} vs {v.control}", f"{a.hazard_ratio:.2f}",
-                          f"95 % interval {a.lower:.2f} to {a.upper:.2f}; adjusted for "
+                          f"{interval_text(a.lower, a.upper, _two, v.conf)}; adjusted for "
                           f"{', '.join(a.covariates) or 'nothing'}",
                           f"experiment-{key}-hr-{slug(a.treatment)}", a.hazard_ratio))
     for r in v.revenue:
         facts.append(Fact(f"Revenue per customer, {r.treatment} − {r.control}",
-                          num(r.difference, 2), f"95 % interval {num(r.lower, 2)} to "
-                          f"{num(r.upper, 2)} over {r.horizon_days:g} days",
+                          num(r.difference, 2), f"{interval_text(r.lower, r.upper, _money, r.conf)}"
+                          f" over {r.horizon_days:g} days",
                           f"experiment-{key}-revenue-{slug(r.treatment)}", r.difference))
     facts.append(Fact("Log-rank test", p_text(v.logrank.p_value), f"χ² {v.logrank.statistic:.1f} "
                       f"on {v.logrank.df} df", f"experiment-{key}-logrank", v.logrank.p_value))

@@ -16,6 +16,7 @@ from retain.publish.pages.shared import (
     curve_points,
     failure_section,
     hazard_frame,
+    interval_text,
     num,
     p_text,
     term_frame,
@@ -37,7 +38,8 @@ def hazards_page(run: Any) -> Page:
         fit = w.value
         shape = fit.shape_test
         facts = (Fact("Weibull shape", f"{shape.shape:.3f}",
-                      f"95 % interval {shape.lower:.3f} to {shape.upper:.3f}", "weibull-shape",
+                      interval_text(shape.lower, shape.upper, lambda v: f"{v:.3f}",
+                                    shape.level), "weibull-shape",
                       shape.shape),
                  Fact("Test of constant risk", f"χ² {shape.statistic:.1f}",
                       p_text(shape.p_value), "weibull-lr", shape.statistic))

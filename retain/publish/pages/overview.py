@@ -43,12 +43,12 @@ def overview_page(run: Any) -> Page:
         c = km.value
         med = c.median()
         facts.append(Fact("Median lifetime", months_text(med.days),
-                          f"95 % interval {months_text(med.lower)} to {months_text(med.upper)}",
+                          interval_text(med.lower, med.upper, months_text, med.level),
                           "median-days", med.days))
         s12 = float(c.at(DAYS_PER_YEAR)[0])
         lo, hi = (float(x[0]) for x in c.interval_at(DAYS_PER_YEAR))
         facts.append(Fact("Retained at 12 months", pct(s12),
-                          interval_text(lo, hi, pct) if math.isfinite(s12) else
+                          interval_text(lo, hi, pct, c.level) if math.isfinite(s12) else
                           "not yet observed", "retention-12m", s12))
     sections.append(Section(
         "The book at a glance", facts=tuple(facts),
@@ -88,6 +88,6 @@ def hazard_sentences(cox: Any, k: int) -> list[str]:
             what = f"a churn risk {100 * (hr - 1):.0f} % higher"
         else:
             what = f"a churn risk {100 * (1 - hr):.0f} % lower"
-        out.append(f"{r['term']}: {what} at any tenure (hazard ratio {hr:.2f}, 95 % interval "
-                   f"{float(r['lower']):.2f} to {float(r['upper']):.2f}).")
+        ci = interval_text(float(r["lower"]), float(r["upper"]), lambda v: f"{v:.2f}", cox.level)
+        out.append(f"{r['term']}: {what} at any tenure (hazard ratio {hr:.2f}, {ci}).")
     return out

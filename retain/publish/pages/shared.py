@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from retain.estimates import DEFAULT_LEVEL
 from retain.publish import charts
 from retain.publish.content import Figure, Section
 from retain.units import DAYS_PER_MONTH
@@ -37,8 +38,15 @@ def months_text(days: float | None) -> str:
     return f"{days / DAYS_PER_MONTH:.1f} months"
 
 
-def interval_text(lo: float | None, hi: float | None, fmt: Callable[[float | None], str]) -> str:
-    return f"95 % interval {fmt(lo)} to {fmt(hi)}"
+def level_text(level: float) -> str:
+    """A confidence level as the pages print it: 0.95 -> "95 %", 0.9 -> "90 %"."""
+    return f"{100.0 * float(level):g} %"
+
+
+def interval_text(lo: float | None, hi: float | None, fmt: Callable[[float | None], str],
+                  level: float = DEFAULT_LEVEL) -> str:
+    """"95 % interval lo to hi", at the level the result carries."""
+    return f"{level_text(level)} interval {fmt(lo)} to {fmt(hi)}"
 
 
 def p_text(p: float) -> str:

@@ -29,7 +29,8 @@ def value_page(run: Any) -> Page:
         v = allv.value.values[0]
         assumptions += [v.timing, f"interval: {v.interval_method}"]
         facts = (Fact("Value of a new customer", num(v.value, 2),
-                      interval_text(v.lower, v.upper, lambda x: num(x, 2)), "ltv-all", v.value),
+                      interval_text(v.lower, v.upper, lambda x: num(x, 2), v.level), "ltv-all",
+                      v.value),
                  Fact("Expected months kept", num(v.expected_months, 1),
                       f"within {v.horizon_months} months", "ltv-months", v.expected_months))
         sections.append(Section("A new customer", facts=facts, bullets=tuple(v.warnings)))
