@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from retain.data.table import CAUSES
+from retain.data.contract import CAUSES, DERIVED, PREPARED_COLUMNS, group_prefix, ratio_column
 from retain.errors import ConfigError
 
 if sys.version_info >= (3, 11):
@@ -39,9 +39,7 @@ CSV_KEYS = ("delimiter", "quote", "escape", "header", "encoding")
 #: [columns] time_format values that are not a strptime pattern
 EPOCHS = ("epoch_seconds", "epoch_milliseconds")
 #: Columns the start-stop table always has (an attribute may not take these names).
-CORE_OUTPUT = ("customer_id", "spell", "start", "stop", "churned", "cause", "weight",
-               "start_date", "cohort")
-DERIVED = ("in_recovery", "paused", "prior_spells")
+CORE_OUTPUT = PREPARED_COLUMNS
 
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 _MEMORY = re.compile(r"^\s*\d+(\.\d+)?\s*(B|KB|MB|GB|TB|KIB|MIB|GIB|TIB)\s*$", re.IGNORECASE)
@@ -148,12 +146,9 @@ class AttributeSpec:
 
     @property
     def prefix(self) -> str:
-        """Column prefix the SQL steps use to find this attribute's group."""
-        if not self.varies:
-            return "sn__" if self.kind == "numeric" else "sc__"
-        if self.kind == "categorical":
-            return "vc__"
-        return "vr__" if self.ratio else "vn__"
+        """Column prefix the SQL steps use to find this attribute's group
+        (:func:`retain.data.contract.group_prefix`)."""
+        return group_prefix(self.kind, self.varies, self.ratio)
 
 
 @dataclass(frozen=True)
@@ -260,7 +255,7 @@ class Config:
 def output_columns(attributes: tuple[AttributeSpec, ...]) -> tuple[str, ...]:
     static = [a.name for a in attributes if not a.varies]
     varying = [a.name for a in attributes if a.varies]
-    ratios = [f"{a.name}_ratio" for a in attributes if a.ratio]
+    ratios = [ratio_column(a.name) for a in attributes if a.ratio]
     return (*CORE_OUTPUT, *static, *varying, *ratios, *DERIVED)
 
 

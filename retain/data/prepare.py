@@ -41,6 +41,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
 from retain.data.config import Config
+from retain.data.contract import KEYS, placeholders, public_name
 from retain.data.reasons import reason_parameters
 from retain.data.source import MALFORMED, import_csv
 from retain.data.sqlsteps import run_step
@@ -51,10 +52,6 @@ from retain.results import Result
 
 #: progress(step, rows, seconds): called after each step.
 Progress = Callable[[str, int, float], None]
-
-_GROUPS = ("sc__", "sn__", "vc__", "vn__", "vr__")
-#: the start-stop table's row order
-_KEYS = ("customer_id", "spell", "start")
 
 
 # ---------------------------------------------------------------------- results
@@ -253,7 +250,7 @@ def _source_view(con: duckdb.DuckDBPyConnection, config: Config) -> None:
                   else "false as malformed")
     if cols.reason is None:
         select.append("cast(null as varchar) as reason")
-    select += [f"cast(null as varchar) as {g}0" for g in _GROUPS]
+    select += [f"cast(null as varchar) as {p}" for p in placeholders()]
     con.execute("create or replace view source_events as select " + ", ".join(select)
                 + " from raw")
 
@@ -275,23 +272,13 @@ def _params(config: Config) -> dict[str, Any]:
 
 
 def _public_names(table: pa.Table) -> pa.Table:
-    """Strip the SQL steps' group prefixes; drop the placeholders."""
+    """Strip the SQL steps' group prefixes; drop the placeholders (retain/data/contract.py)."""
     keep, names = [], []
     for i, name in enumerate(table.column_names):
-        base = name
-        if base.startswith("ratio__"):
-            base = base[len("ratio__"):]
-            if base[4:] == "0":
-                continue
-            names.append(base[4:] + "_ratio")
+        public = public_name(name)
+        if public is not None:
+            names.append(public)
             keep.append(i)
-            continue
-        if base[:4] in _GROUPS:
-            if base[4:] == "0":
-                continue
-            base = base[4:]
-        names.append(base)
-        keep.append(i)
     return table.select(keep).rename_columns(names)
 
 
@@ -310,7 +297,7 @@ def _ordered_and_counted(table: pa.Table) -> tuple[pa.Table, int, int]:
     """
     ordered, customers, spells = _key_runs(table)
     if not ordered:
-        position = pc.sort_indices(table, sort_keys=[(k, "ascending") for k in _KEYS])
+        position = pc.sort_indices(table, sort_keys=[(k, "ascending") for k in KEYS])
         table = table.take(position)
         _, customers, spells = _key_runs(table)
     return _public_names(table), customers, spells
@@ -322,7 +309,7 @@ def _key_runs(table: pa.Table) -> tuple[bool, int, int]:
     n = table.num_rows
     if n < 2:
         return True, n, n
-    cid, spell, start = (table.column(c) for c in _KEYS)
+    cid, spell, start = (table.column(c) for c in KEYS)
     head, tail = (lambda c: c.slice(0, n - 1)), (lambda c: c.slice(1))
     new_customer = pc.not_equal(tail(cid), head(cid))
     new_spell = pc.or_(new_customer, pc.not_equal(tail(spell), head(spell)))

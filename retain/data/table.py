@@ -28,10 +28,10 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
+from retain.data.contract import CAUSES, CORE_COLUMNS, REQUIRED
 from retain.errors import DataError
 
-CORE_COLUMNS = ("customer_id", "spell", "start", "stop", "churned", "cause", "weight", "start_date")
-CAUSES = ("voluntary", "involuntary")
+__all__ = ["CAUSES", "CORE_COLUMNS", "Categorical", "StartStop"]
 
 
 @dataclass(frozen=True)
@@ -557,7 +557,7 @@ class StartStop:
     @classmethod
     def from_arrow(cls, table: pa.Table, source: str = "start-stop table") -> StartStop:
         names = table.column_names
-        for req in ("start", "stop", "churned"):
+        for req in REQUIRED:
             if req not in names:
                 raise DataError(source, f"required column {req!r} is missing",
                                 "a start-stop table needs start, stop and churned "
@@ -618,7 +618,7 @@ class StartStop:
             dup = sorted({n for n in names if names.count(n) > 1})
             raise DataError(source, f"column names repeat: {', '.join(dup)}",
                             "give every column its own name")
-        for req in ("start", "stop", "churned"):
+        for req in REQUIRED:
             if req not in names:
                 raise DataError(source, f"required column {req!r} is missing",
                                 "a start-stop table needs start, stop and churned "
