@@ -40,7 +40,7 @@ from scipy import stats
 
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
-from retain.estimates import Estimates
+from retain.estimates import Estimates, RetentionPrediction
 from retain.kernels import renewal as R
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
 from retain.results import LevelFromConf, Result
@@ -332,6 +332,23 @@ class RenewalFit(Result, LevelFromConf):
         return RenewalProjection(self.label, t.astype(np.float64), surv, lo, hi, rates,
                                  surv * cohort_size, float(cohort_size), observed, obs_at,
                                  self.period_days, self.conf, tuple(warnings))
+
+    def predict_retention(self, times: Sequence[float] | np.ndarray) -> RetentionPrediction:
+        """Retention at tenures ``times`` (days; renewal periods when the fit has no
+        ``period_days``): S of the renewals completed by then, with the log(-log)
+        limits of :meth:`project`. Times past the observed periods are flagged."""
+        t = np.atleast_1d(np.asarray(times, dtype=np.float64))
+        if t.size == 0 or np.any(~np.isfinite(t)) or np.any(t < 0):
+            raise DataError("renewal prediction", "times must be finite tenures >= 0",
+                            "pass e.g. numpy.arange(0, 731, 30.4375)")
+        unit = self.period_days or 1.0
+        periods = np.floor(t / unit + 1e-9).astype(np.int64)
+        pr = self.project(periods.tolist())
+        return RetentionPrediction(
+            model="shifted-beta-geometric", times=t, survival=pr.survival, lower=pr.lower,
+            upper=pr.upper, level=self.conf, extrapolated=periods > self.n_periods,
+            cumulative_hazard=-np.log(pr.survival), follow_up=self.n_periods * unit,
+            profile={"segment": self.label}, warnings=pr.warnings)
 
     def derl(self, discount: float, renewals_made: int | Sequence[int] | np.ndarray = 0
              ) -> np.ndarray | float:

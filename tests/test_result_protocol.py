@@ -1,0 +1,209 @@
+"""Conformance: every fitted model family keeps the same result protocol.
+
+Each family (Cox, cause-specific Cox, exponential, Weibull, piecewise, renewal /
+shifted-beta-geometric) is fitted on scikit-survival's bundled whas500 data
+(Worcester Heart Attack Study; Hosmer, Lemeshow & May 2008, *Applied Survival
+Analysis*, 2nd ed.) through ``StartStop`` and run through the same checks:
+
+- ``estimates()`` is an :class:`Estimates` whose names match the covariance's shape;
+- its intervals at 90 % and 99 % nest around the 95 % one and are, on the working
+  scale, estimate +- z se with z from ``scipy.stats.norm`` and se from the covariance;
+- at the fit's own level they equal the intervals the fit already reports
+  (hazard-ratio table, renewal parameter table), so the one protocol and the old
+  readers agree;
+- ``predict_retention`` returns the one :class:`RetentionPrediction`, with
+  non-increasing survival and lower <= survival <= upper, at the fit's level;
+- ``to_dict()`` survives a JSON round trip, and the fit survives pickling with the
+  same estimates and predictions.
+
+An outside reference for the interval arithmetic: lifelines' CoxPHFitter with
+``alpha=0.10`` (Efron ties, model-based errors) gives the same 90 % hazard-ratio
+limits as ``estimates().interval(0.90)`` of the model-based Cox fit.
+"""
+
+from __future__ import annotations
+
+import json
+import pickle
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+from sksurv.datasets import load_whas500
+
+from retain import StartStop
+from retain.estimates import Estimates, RetentionPrediction
+from retain.models.competing import cause_specific_cox
+from retain.models.cox import fit_cox
+from retain.models.parametric import fit_exponential, fit_piecewise, fit_weibull
+from retain.models.renewal import fit_renewal
+
+COV = ["age", "hr", "gender"]
+PROFILE = {"age": 70.0, "hr": 90.0, "gender": "1"}
+TIMES = np.array([0.0, 1.0, 30.0, 100.0, 365.0, 700.0, 1500.0, 2500.0, 4000.0])
+LEVELS = (0.90, 0.95, 0.99)
+
+
+@pytest.fixture(scope="module")
+def whas() -> StartStop:
+    X, y = load_whas500()
+    time = y["lenfol"].astype(float)
+    event = y["fstat"].astype(int)
+    gender = X["gender"].astype(str).to_numpy()
+    # two cause labels made from a data column, only to give the cause-specific model two
+    # causes to fit (a protocol check, not a reference value)
+    chf = X["chf"].astype(str).to_numpy()  # congestive heart complications: a column not fitted
+    cause = np.where(event == 1, np.where(chf == "1", "involuntary", "voluntary"), "")
+    covs = {"age": X["age"].astype(float).to_numpy(), "hr": X["hr"].astype(float).to_numpy(),
+            "gender": gender}
+    ids = np.array([f"p{i:03d}" for i in range(len(time))])
+    return StartStop(np.zeros(len(time)), time, event, customer_id=ids, cause=cause,
+                     covariates=covs, source="whas500")
+
+
+FAMILIES = {
+    "cox": lambda t: fit_cox(t, COV),
+    "cause-specific cox": lambda t: cause_specific_cox(t, COV),
+    "exponential": lambda t: fit_exponential(t, COV),
+    "weibull": lambda t: fit_weibull(t, COV),
+    "piecewise": lambda t: fit_piecewise(t, [180.0, 730.0], COV),
+    "renewal": lambda t: fit_renewal(t, period_days=91.3125),
+}
+#: families with a retention prediction (cause-specific models predict per cause)
+PREDICTS = ("cox", "exponential", "weibull", "piecewise", "renewal")
+
+
+@pytest.fixture(scope="module")
+def fits(whas):
+    return {name: make(whas) for name, make in FAMILIES.items()}
+
+
+def _predict(name, fit):
+    if name == "renewal":
+        return fit.predict_retention(TIMES)
+    return fit.predict_retention(PROFILE, TIMES)
+
+
+@pytest.mark.parametrize("name", list(FAMILIES))
+def test_estimates_names_match_the_covariance(fits, name):
+    est = fits[name].estimates()
+    assert isinstance(est, Estimates)
+    k = len(est.names)
+    assert k >= 2 and len(set(est.names)) == k
+    assert est.estimate.shape == (k,) and est.cov.shape == (k, k) and len(est.scale) == k
+    np.testing.assert_allclose(est.cov, est.cov.T, rtol=1e-10, atol=1e-14)
+    assert np.all(np.diag(est.cov) > 0)
+    assert est.level == fits[name].level == 0.95
+
+
+@pytest.mark.parametrize("name", list(FAMILIES))
+def test_intervals_nest_and_are_wald_on_the_working_scale(fits, name):
+    est = fits[name].estimates()
+    se = np.sqrt(np.diag(est.cov))
+    logs = np.array([s.startswith("log ") for s in est.scale])
+    assert logs.all()  # every family here works on log scales
+    frames = {lv: est.interval(lv) for lv in LEVELS}
+    for lv, fr in frames.items():
+        z = stats.norm.ppf(0.5 + lv / 2)  # two-sided normal quantile
+        np.testing.assert_allclose(np.log(fr["lower"]), est.estimate - z * se, rtol=1e-10,
+                                   atol=1e-12)
+        np.testing.assert_allclose(np.log(fr["upper"]), est.estimate + z * se, rtol=1e-10,
+                                   atol=1e-12)
+        np.testing.assert_allclose(np.log(fr["estimate"]), est.estimate, rtol=1e-12)
+        assert (fr["level"] == lv).all()
+        assert list(fr["name"]) == list(est.names)
+    lo = [frames[lv]["lower"].to_numpy() for lv in LEVELS]
+    hi = [frames[lv]["upper"].to_numpy() for lv in LEVELS]
+    mid = frames[0.95]["estimate"].to_numpy()
+    assert np.all(lo[2] < lo[1]) and np.all(lo[1] < lo[0]) and np.all(lo[0] < mid)
+    assert np.all(mid < hi[0]) and np.all(hi[0] < hi[1]) and np.all(hi[1] < hi[2])
+
+
+def test_estimates_agree_with_the_tables_each_fit_reports(fits):
+    """At the fit's level the protocol gives the limits the old readers print."""
+    cox = fits["cox"]
+    iv = cox.estimates().interval()
+    np.testing.assert_allclose(iv["lower"], cox.hazard_ratios["hr_low"], rtol=1e-12)
+    np.testing.assert_allclose(iv["upper"], cox.hazard_ratios["hr_high"], rtol=1e-12)
+    for name in ("exponential", "weibull", "piecewise"):
+        fit = fits[name]
+        iv = fit.estimates().interval()
+        hr = fit.hazard_ratios
+        tail = iv.iloc[-len(hr):]
+        assert list(tail["name"]) == list(hr["label"])
+        np.testing.assert_allclose(tail["lower"], hr["lower"], rtol=1e-12)
+        np.testing.assert_allclose(tail["upper"], hr["upper"], rtol=1e-12)
+    shape = fits["weibull"].shape_test
+    row = fits["weibull"].estimates().interval().iloc[1]
+    assert row["reading"] == "shape"
+    assert (row["lower"], row["upper"]) == pytest.approx((shape.lower, shape.upper), rel=1e-12)
+    ren = fits["renewal"]
+    np.testing.assert_allclose(ren.estimates().interval()[["lower", "upper"]],
+                               ren.intervals[["lower", "upper"]], rtol=1e-12)
+    cs = fits["cause-specific cox"]
+    iv = cs.estimates().interval()
+    np.testing.assert_allclose(iv["lower"], cs.frame["hr_low"], rtol=1e-12)
+    np.testing.assert_allclose(iv["upper"], cs.frame["hr_high"], rtol=1e-12)
+
+
+def test_interval_matches_lifelines_at_90_percent(whas):
+    """lifelines CoxPHFitter(alpha=0.10): Efron ties, model-based covariance."""
+    lifelines = pytest.importorskip("lifelines")
+    fit = fit_cox(whas, COV, robust=False, reference={"gender": "0"})
+    X, y = load_whas500()
+    df = pd.DataFrame({"T": y["lenfol"].astype(float), "E": y["fstat"].astype(int),
+                       "age": X["age"].astype(float), "hr": X["hr"].astype(float),
+                       "gender": (X["gender"].astype(str) == "1").astype(float)})
+    ref = lifelines.CoxPHFitter(alpha=0.10).fit(df, "T", "E")
+    iv = fit.estimates().interval(0.90)
+    ci = np.exp(ref.confidence_intervals_.loc[["age", "hr", "gender"]].to_numpy())
+    np.testing.assert_allclose(iv[["lower", "upper"]].to_numpy(), ci, rtol=1e-5)
+
+
+@pytest.mark.parametrize("name", PREDICTS)
+def test_prediction_is_the_one_type(fits, name):
+    fit = fits[name]
+    pred = _predict(name, fit)
+    assert type(pred) is RetentionPrediction
+    s, lo, hi = pred.survival, pred.lower, pred.upper
+    assert s.shape == lo.shape == hi.shape == pred.times.shape == pred.extrapolated.shape
+    assert s[0] == 1.0 and np.all(np.diff(s) <= 1e-15)
+    assert np.all(lo <= s + 1e-15) and np.all(s <= hi + 1e-15)
+    assert np.all((lo >= 0) & (hi <= 1))
+    assert pred.level == fit.level
+    assert pred.extrapolated.dtype == bool
+    assert pred.extrapolated[-1] and not pred.extrapolated[1]  # 4000 days is past whas500's
+    frame = pred.to_frame()
+    assert {"time", "retention", "lower", "upper", "level", "extrapolated"} <= set(frame)
+    np.testing.assert_array_equal(pred["retention"].to_numpy(), s)
+
+
+@pytest.mark.parametrize("name", list(FAMILIES))
+def test_to_dict_json_round_trip(fits, name):
+    fit = fits[name]
+    est = fit.estimates()
+    d = est.to_dict()
+    back = json.loads(json.dumps(d, allow_nan=False))
+    assert back == d
+    again = Estimates(model=back["model"], names=tuple(back["names"]),
+                      estimate=np.array(back["estimate"]), cov=np.array(back["cov"]),
+                      scale=tuple(back["scale"]), level=back["level"])
+    pd.testing.assert_frame_equal(again.interval(0.99), est.interval(0.99))
+    assert json.loads(fit.to_json()) == json.loads(json.dumps(fit.to_dict(), allow_nan=False))
+    if name in PREDICTS:
+        p = _predict(name, fit).to_dict()
+        assert json.loads(json.dumps(p, allow_nan=False)) == p
+        assert p["level"] == p["conf"] == 0.95 and p["survival"] == p["retention"]
+
+
+@pytest.mark.parametrize("name", list(FAMILIES))
+def test_pickle_round_trip(fits, name):
+    fit = fits[name]
+    back = pickle.loads(pickle.dumps(fit))
+    pd.testing.assert_frame_equal(back.estimates().interval(0.9), fit.estimates().interval(0.9))
+    if name in PREDICTS:
+        a, b = _predict(name, fit), _predict(name, back)
+        np.testing.assert_array_equal(a.survival, b.survival)
+        np.testing.assert_array_equal(a.lower, b.lower)
+        np.testing.assert_array_equal(a.upper, b.upper)
