@@ -19,7 +19,16 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from retain.data.contract import CAUSES, DERIVED, PREPARED_COLUMNS, group_prefix, ratio_column
+from retain.data.contract import (
+    CAUSES,
+    COHORT,
+    CORE_COLUMNS,
+    DERIVED,
+    KINDS,
+    PREPARED_COLUMNS,
+    group_prefix,
+    ratio_column,
+)
 from retain.errors import ConfigError
 
 if sys.version_info >= (3, 11):
@@ -29,7 +38,6 @@ else:  # pragma: no cover - Python 3.10 only
 
 #: Our event vocabulary, in the fixed order same-day events are applied.
 EVENTS = ("start", "update", "pause", "resume", "payment_failed", "payment_recovered", "end")
-KINDS = ("categorical", "numeric")
 CURVES = ("weibull", "exponential", "cox", "km_weibull_tail", "renewal")
 FORMATS = ("csv", "parquet")
 #: text encodings DuckDB's CSV reader knows without an extension
@@ -508,7 +516,7 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
     window = _window(_Section(file, "window", data["window"], ("as_of", "start", "timezone")))
     attributes = _attributes(file, data.get("attributes", {}), columns)
     names = set(output_columns(attributes))
-    categorical = {a.name for a in attributes if a.kind == "categorical"} | {"cohort"}
+    categorical = {a.name for a in attributes if a.kind == "categorical"} | {COHORT}
     segments = _segments(_Section(file, "segments", data.get("segments", {}), ("by",)), names)
     model = _model(_Section(file, "model", data.get("model", {}),
                             ("covariates", "strata", "reference", "missing", "piecewise_cuts",
@@ -821,8 +829,7 @@ def _segments(s: _Section, names: set[str]) -> SegmentsConfig:
 def _model(s: _Section, names: set[str], categorical: set[str]) -> ModelConfig:
     covs = s.texts("covariates")
     strata = s.texts("strata")
-    allowed = names - {"customer_id", "spell", "start", "stop", "churned", "cause", "weight",
-                       "start_date"}
+    allowed = names - set(CORE_COLUMNS)
     _known(s, "covariates", covs, allowed)
     _known(s, "strata", strata, allowed)
     ref = s.mapping("reference")

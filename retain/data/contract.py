@@ -36,9 +36,21 @@ vr__    time-varying numeric with a ratio to its value on the spell's first day
 ``ratio__vr__<name>`` holds that ratio (``<name>_ratio`` in the table), and
 ``<prefix>0`` is a placeholder so that each pattern matches at least one column
 (dropped from the table; real names start with a letter).
+
+The table's context (:class:`TableContext`: as-of date, window, time zone and
+the schema of its covariates) travels in the Parquet file's schema metadata
+under :data:`CONTEXT_KEY`, as JSON.
 """
 
 from __future__ import annotations
+
+import datetime as dt
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from retain.errors import DataError
 
 #: the table's row order
 KEYS = ("customer_id", "spell", "start")
@@ -111,3 +123,140 @@ def public_name(sql_name: str) -> str | None:
         base = _strip_group(sql_name[len(RATIO_PREFIX):])
         return None if base is None else ratio_column(base)
     return _strip_group(sql_name)
+
+
+# ---------------------------------------------------------------------- the table's context
+#: the key of the context in an Arrow / Parquet schema's metadata
+CONTEXT_KEY = b"retain.context"
+#: the version of the context's JSON layout
+CONTEXT_VERSION = 1
+KINDS = ("categorical", "numeric")
+
+
+@dataclass(frozen=True)
+class ColumnSchema:
+    """What a covariate column means.
+
+    ``kind`` is "categorical" or "numeric"; ``varies`` says whether it is
+    time-varying (set on start and update events) or static; ``ratio`` that a
+    ``<name>_ratio`` column holds its ratio to the spell's first day;
+    ``reference`` the reference level the models compare with, if one was set;
+    ``derived`` that prepare made the column (cohort, ratios, states) rather
+    than the log holding it.
+    """
+
+    name: str
+    kind: str
+    varies: bool
+    ratio: bool = False
+    reference: str | None = None
+    derived: bool = False
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "kind": self.kind, "varies": self.varies,
+                "ratio": self.ratio, "reference": self.reference, "derived": self.derived}
+
+
+@dataclass(frozen=True)
+class TableContext:
+    """What a start-stop table cannot say by its rows: the as-of date, the window,
+    the time zone and the schema of its covariates.
+
+    Every field is optional; a table a user prepared elsewhere may carry none.
+    """
+
+    as_of: dt.date | None = None
+    window_start: dt.date | None = None
+    timezone: str | None = None
+    columns: tuple[ColumnSchema, ...] = ()
+
+    def column(self, name: str) -> ColumnSchema | None:
+        """The schema of covariate ``name`` (None when the context does not list it)."""
+        for c in self.columns:
+            if c.name == name:
+                return c
+        return None
+
+    @property
+    def as_of_day(self) -> float | None:
+        """The as-of date as a day number (days since 1970-01-01), None when unknown:
+        the calendar position at which open spells are censored."""
+        if self.as_of is None:
+            return None
+        return float((self.as_of - dt.date(1970, 1, 1)).days)
+
+    def to_json(self) -> str:
+        doc = {"version": CONTEXT_VERSION,
+               "as_of": None if self.as_of is None else self.as_of.isoformat(),
+               "window_start": (None if self.window_start is None
+                                else self.window_start.isoformat()),
+               "timezone": self.timezone,
+               "columns": [c.to_dict() for c in self.columns]}
+        return json.dumps(doc, sort_keys=True)
+
+    @classmethod
+    def from_json(cls, text: str | bytes, source: str = "start-stop table") -> TableContext:
+        """Read :meth:`to_json`'s text; a malformed context raises :class:`DataError`."""
+        try:
+            doc = json.loads(text)
+            if not isinstance(doc, Mapping):
+                raise ValueError("not an object")
+            columns = tuple(_column_schema(c) for c in doc.get("columns") or ())
+            return cls(as_of=_date(doc.get("as_of")), window_start=_date(doc.get("window_start")),
+                       timezone=_text(doc.get("timezone")), columns=columns)
+        except (ValueError, TypeError, KeyError) as exc:
+            raise DataError(f"{source}: metadata {CONTEXT_KEY.decode()}",
+                            f"cannot be read ({exc})",
+                            "write the table again with retain, or drop that metadata key"
+                            ) from exc
+
+    def metadata(self) -> dict[bytes, bytes]:
+        """The schema metadata entry that carries this context."""
+        return {CONTEXT_KEY: self.to_json().encode("utf-8")}
+
+    @classmethod
+    def from_metadata(cls, metadata: Mapping[bytes, bytes] | None,
+                      source: str = "start-stop table") -> TableContext | None:
+        """The context in an Arrow schema's metadata; None when there is none."""
+        if not metadata or CONTEXT_KEY not in metadata:
+            return None
+        return cls.from_json(metadata[CONTEXT_KEY], source)
+
+
+def _date(value: Any) -> dt.date | None:
+    if value is None:
+        return None
+    if not isinstance(value, str):
+        raise ValueError(f"a date must be 'YYYY-MM-DD' text, got {value!r}")
+    return dt.date.fromisoformat(value)
+
+
+def _text(value: Any) -> str | None:
+    if value is not None and not isinstance(value, str):
+        raise ValueError(f"expected text, got {value!r}")
+    return value
+
+
+def _column_schema(doc: Any) -> ColumnSchema:
+    if not isinstance(doc, Mapping):
+        raise ValueError(f"a column's schema must be an object, got {doc!r}")
+    kind = doc["kind"]
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {', '.join(KINDS)}, got {kind!r}")
+    flags = {k: doc.get(k, False) for k in ("varies", "ratio", "derived")}
+    for k, v in flags.items():
+        if not isinstance(v, bool):
+            raise ValueError(f"{k} must be true or false, got {v!r}")
+    return ColumnSchema(name=str(doc["name"]), kind=kind, varies=flags["varies"],
+                        ratio=flags["ratio"], reference=_text(doc.get("reference")),
+                        derived=flags["derived"])
+
+
+def with_context(table: Any, context: TableContext | None) -> Any:
+    """An Arrow table with ``context`` in its schema metadata (other keys kept);
+    ``table`` unchanged when ``context`` is None."""
+    if context is None:
+        return table
+    metadata = dict(table.schema.metadata or {})
+    metadata.update(context.metadata())
+    return table.replace_schema_metadata(metadata)

@@ -41,7 +41,17 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
 from retain.data.config import Config
-from retain.data.contract import KEYS, placeholders, public_name
+from retain.data.contract import (
+    COHORT,
+    DERIVED,
+    KEYS,
+    ColumnSchema,
+    TableContext,
+    placeholders,
+    public_name,
+    ratio_column,
+    with_context,
+)
 from retain.data.reasons import reason_parameters
 from retain.data.source import MALFORMED, import_csv
 from retain.data.sqlsteps import run_step
@@ -99,9 +109,10 @@ class Reconciliation(Result):
 class Prepared:
     """Everything :func:`prepare` produces.
 
-    ``arrow`` is the start-stop table as written to Parquet; ``table`` is the same
-    table as :class:`StartStop` arrays for the models, built on first use (the
-    commands that only write files never pay for it).
+    ``arrow`` is the start-stop table as written to Parquet (its context in the
+    schema metadata); ``table`` is the same table as :class:`StartStop` arrays for
+    the models, built on first use (the commands that only write files never pay
+    for it).
     """
 
     arrow: pa.Table
@@ -114,7 +125,35 @@ class Prepared:
     @cached_property
     def table(self) -> StartStop:
         return StartStop.from_arrow(self.arrow,
-                                    source=f"start-stop table of {_shown_source(self.config)}")
+                                    source=f"start-stop table of {_shown_source(self.config)}",
+                                    context=self.context)
+
+    @property
+    def context(self) -> TableContext:
+        """The table's context, from the project's settings (:func:`table_context`)."""
+        return table_context(self.config)
+
+
+def table_context(config: Config) -> TableContext:
+    """The start-stop table's context: the as-of date, the window, the time zone and
+    the schema of every covariate prepare writes, in the table's column order
+    (cohort, static and time-varying attributes, ratios, derived states), with the
+    reference level ``[model] reference`` sets."""
+    ref = config.model.reference
+
+    def level(name: str) -> str | None:
+        return None if ref.get(name) is None else str(ref[name])
+
+    attrs = sorted(config.attributes, key=lambda a: a.varies)  # stable: static first
+    columns = [ColumnSchema(COHORT, "categorical", False, reference=level(COHORT), derived=True)]
+    columns += [ColumnSchema(a.name, a.kind, a.varies, ratio=a.ratio, reference=level(a.name))
+                for a in attrs]
+    columns += [ColumnSchema(ratio_column(a.name), "numeric", True, derived=True)
+                for a in config.attributes if a.ratio]
+    columns += [ColumnSchema(d, "numeric", True, derived=True) for d in DERIVED]
+    w = config.window
+    return TableContext(as_of=w.as_of, window_start=w.start, timezone=w.timezone,
+                        columns=tuple(columns))
 
 
 # ---------------------------------------------------------------------- helpers
@@ -538,9 +577,11 @@ def prepare(config: Config, *, progress: Progress | None = None,
         raise _engine_error(exc, timer.step, config) from exc
     finally:
         con.close()
-    prepared = Prepared(arrow=arrow, quarantine=quarantine,
+    context = table_context(config)
+    prepared = Prepared(arrow=with_context(arrow, context), quarantine=quarantine,
                         reconciliation=reconciliation, unknown_events=unknown, config=config,
-                        compressed=compressed)
+                        compressed=None if compressed is None else with_context(compressed,
+                                                                               context))
     if arrow.num_rows == 0:
         # times in another format or unmapped events are the likely cause: say so first
         check_thresholds(prepared)
@@ -559,14 +600,17 @@ def compress_table(arrow: pa.Table) -> pa.Table:
     """Collapse identical rows of a start-stop Arrow table into one with a weight.
 
     ``customer_id``, ``spell`` and ``start_date`` are dropped first. Runs the
-    ``compress`` SQL step on an in-memory DuckDB connection.
+    ``compress`` SQL step on an in-memory DuckDB connection. The table's context
+    (schema metadata) is kept.
     """
     con = duckdb.connect()
     try:
         con.register("start_stop", arrow)
-        return run_step(con, "compress").to_arrow_table()
+        out = run_step(con, "compress").to_arrow_table()
     finally:
         con.close()
+    context = TableContext.from_metadata(arrow.schema.metadata)
+    return with_context(out, context)
 
 
 def write_outputs(prepared: Prepared, out_dir: str | Path) -> dict[str, Path]:
@@ -585,10 +629,13 @@ def write_outputs(prepared: Prepared, out_dir: str | Path) -> dict[str, Path]:
         "reconciliation_csv": out / "reconciliation.csv",
         "reconciliation_json": out / "reconciliation.json",
     }
-    pq.write_table(prepared.arrow, paths["start_stop"])
+    # the table's context goes into the file's schema metadata (retain/data/contract.py)
+    context = prepared.context
+    pq.write_table(with_context(prepared.arrow, context), paths["start_stop"])
     if prepared.compressed is not None:
         paths["start_stop_compressed"] = out / "start_stop_compressed.parquet"
-        pq.write_table(prepared.compressed, paths["start_stop_compressed"])
+        pq.write_table(with_context(prepared.compressed, context),
+                       paths["start_stop_compressed"])
     pq.write_table(prepared.quarantine, paths["quarantine"])
     pacsv.write_csv(prepared.quarantine, paths["quarantine_csv"])
     prepared.reconciliation.to_csv(paths["reconciliation_csv"])

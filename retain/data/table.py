@@ -28,10 +28,10 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from retain.data.contract import CAUSES, CORE_COLUMNS, REQUIRED
+from retain.data.contract import CAUSES, CORE_COLUMNS, REQUIRED, TableContext, with_context
 from retain.errors import DataError
 
-__all__ = ["CAUSES", "CORE_COLUMNS", "Categorical", "StartStop"]
+__all__ = ["CAUSES", "CORE_COLUMNS", "Categorical", "StartStop", "TableContext"]
 
 
 @dataclass(frozen=True)
@@ -232,6 +232,10 @@ class StartStop:
         Numeric arrays are stored as float64, text arrays as :class:`Categorical`.
     source : str
         Where the table came from, for messages.
+    context : TableContext, optional
+        The as-of date, window, time zone and covariate schema the table was
+        prepared with (:mod:`retain.data.contract`); None for a table that
+        carries none. Kept by slicing, stored in the Parquet file's metadata.
     validate : bool
         Check the contract (default True). Only internal callers that slice an
         already-valid table pass False.
@@ -250,9 +254,11 @@ class StartStop:
         start_date: Any = None,
         covariates: Mapping[str, Any] | None = None,
         source: str = "start-stop table",
+        context: TableContext | None = None,
         validate: bool = True,
     ) -> None:
         self.source = source
+        self._context = context
         self.start = _as_float("start", start)
         self.stop = _as_float("stop", stop)
         n = self.start.shape[0]
@@ -374,6 +380,12 @@ class StartStop:
 
     # ------------------------------------------------------------------ facts
     @property
+    def context(self) -> TableContext | None:
+        """The as-of date, window, time zone and covariate schema the table was
+        prepared with; None when it carries none (a table made elsewhere)."""
+        return self._context
+
+    @property
     def n_rows(self) -> int:
         return int(self.start.shape[0])
 
@@ -451,6 +463,7 @@ class StartStop:
             index = np.flatnonzero(index)
         new = object.__new__(StartStop)
         new.source = self.source
+        new._context = self._context
         new.has_customers = self.has_customers
         new.start = self.start[index]
         new.stop = self.stop[index]
@@ -479,6 +492,12 @@ class StartStop:
         else:
             for value in np.unique(col[np.isfinite(col)]):
                 yield f"{value:g}", self.take(col == value)
+
+    def with_context(self, context: TableContext | None) -> StartStop:
+        """A copy that carries ``context`` (None: no context)."""
+        new = self.take(np.arange(self.n_rows))
+        new._context = context
+        return new
 
     def with_columns(self, **columns: Any) -> StartStop:
         """A copy with covariates added or replaced."""
@@ -544,7 +563,7 @@ class StartStop:
                 cols[name] = pa.array(col.values(), type=pa.string())
             else:
                 cols[name] = pa.array(col, type=pa.float64())
-        return pa.table(cols)
+        return with_context(pa.table(cols), self._context)
 
     def to_frame(self) -> pd.DataFrame:
         return self.to_arrow().to_pandas()
@@ -555,8 +574,13 @@ class StartStop:
         return path
 
     @classmethod
-    def from_arrow(cls, table: pa.Table, source: str = "start-stop table") -> StartStop:
+    def from_arrow(cls, table: pa.Table, source: str = "start-stop table",
+                   context: TableContext | None = None) -> StartStop:
+        """From an Arrow table; the context is ``context`` if given, else the one in
+        the schema's metadata (:data:`retain.data.contract.CONTEXT_KEY`), else None."""
         names = table.column_names
+        if context is None:
+            context = TableContext.from_metadata(table.schema.metadata, source)
         for req in REQUIRED:
             if req not in names:
                 raise DataError(source, f"required column {req!r} is missing",
@@ -603,10 +627,11 @@ class StartStop:
                     pc.cast(col, pa.float64()).fill_null(np.nan).to_numpy()
             else:
                 covs[name] = Categorical.from_values(col)
-        return cls(**kwargs, covariates=covs, source=source)
+        return cls(**kwargs, covariates=covs, source=source, context=context)
 
     @classmethod
-    def from_frame(cls, frame: pd.DataFrame, source: str = "start-stop table") -> StartStop:
+    def from_frame(cls, frame: pd.DataFrame, source: str = "start-stop table",
+                   context: TableContext | None = None) -> StartStop:
         """From a pandas DataFrame, column by column (no detour through an Arrow table).
 
         Numbers (numpy or nullable dtypes, booleans) are copied once as float64;
@@ -658,7 +683,7 @@ class StartStop:
             if name in CORE_COLUMNS:
                 continue
             covs[name] = _frame_column(columns[name], name, source)
-        return cls(**kwargs, covariates=covs, source=source)
+        return cls(**kwargs, covariates=covs, source=source, context=context)
 
     @classmethod
     def from_parquet(cls, path: str | Path) -> StartStop:
