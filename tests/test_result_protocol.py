@@ -207,3 +207,28 @@ def test_pickle_round_trip(fits, name):
         np.testing.assert_array_equal(a.survival, b.survival)
         np.testing.assert_array_equal(a.lower, b.lower)
         np.testing.assert_array_equal(a.upper, b.upper)
+
+
+def test_cox_without_rows_predicts_the_same_and_drops_the_table(fits, whas):
+    """The prediction-only copy keeps every prediction and drops the row-level state."""
+    from retain.errors import ModelError
+
+    fit = fits["cox"]
+    light = fit.without_rows()
+    assert fit.keeps_rows and not light.keeps_rows
+    a, b = fit.predict_retention(PROFILE, TIMES), light.predict_retention(PROFILE, TIMES)
+    for name in ("survival", "lower", "upper", "extrapolated"):
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name))
+    pd.testing.assert_frame_equal(fit.retention_interval(PROFILE, TIMES, conf=0.9),
+                                  light.retention_interval(PROFILE, TIMES, conf=0.9))
+    pd.testing.assert_frame_equal(fit.segment_retention(whas, TIMES),
+                                  light.segment_retention(whas, TIMES))
+    np.testing.assert_array_equal(fit.expected_events(whas), light.expected_events(whas))
+    assert light.to_dict() == fit.to_dict()
+    # the whas500 table (500 rows) and its design no longer travel with the result
+    assert len(pickle.dumps(light)) < len(pickle.dumps(fit)) / 2
+    for diagnose in (lambda f: f.concordance(), lambda f: f.martingale_residuals(),
+                     lambda f: f.proportional_hazards_test(), lambda f: f.fitted_table):
+        diagnose(fit)
+        with pytest.raises(ModelError, match="without its rows"):
+            diagnose(light)
