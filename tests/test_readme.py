@@ -68,3 +68,24 @@ def test_the_reconciliation_shown_is_the_demos(demo_folder):
     (shown,) = blocks("csv")
     actual = (demo_folder / "retain_demo" / "reconciliation.csv").read_text(encoding="utf-8")
     assert shown.strip() == actual.strip()
+
+
+def test_the_project_file_shown_is_valid_and_prepares(tmp_path):
+    """The README's project file, beside a small log written the way it says (semicolons,
+    day/month/year times), checks and prepares."""
+    from retain import load_config, prepare
+
+    (toml,) = blocks("toml")
+    (tmp_path / "retain.toml").write_text(toml, encoding="utf-8")
+    (tmp_path / "events.csv").write_text(
+        "account;at;what;seats\n"
+        "a1;03/01/2026 09:15;joined;5\n"
+        "a1;20/02/2026 17:40;seats;9\n"
+        "a1;01/03/2026 08:00;left;\n"
+        "a2;11/01/2026 08:00;joined;12\n", encoding="utf-8")
+    prepared = prepare(load_config(tmp_path / "retain.toml"))
+    rec = prepared.reconciliation
+    assert (rec.rows_in, rec.used, rec.quarantined) == (4, 4, 0)
+    # a1: joined 3 Jan, seats changed 20 Feb (tenure 48), left 1 Mar (tenure 57)
+    assert prepared.arrow.column("stop").to_pylist()[:2] == [48.0, 57.0]
+    assert prepared.arrow.column("seats").to_pylist()[:2] == [5.0, 9.0]
