@@ -226,7 +226,7 @@ def book_summary(table: StartStop, window_days: float = DAYS_PER_YEAR) -> BookSu
     if table.start_date is not None:
         day0 = table.start_date.astype("datetime64[D]").astype(np.int64).astype(np.float64)
         a, b = day0 + table.start, day0 + table.stop
-        end = float(b.max())
+        end = table.last_day  # the as-of date (context), else the data's last day
         lo = end - window_days
         overlap = np.clip(np.minimum(b, end) - np.maximum(a, lo), 0.0, None)
         w_exp = float(np.dot(w, overlap)) / DAYS_PER_MONTH

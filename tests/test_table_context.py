@@ -143,3 +143,41 @@ def test_prepare_fills_the_context_and_the_file_keeps_it(tmp_path) -> None:
     assert StartStop.from_parquet(paths["start_stop_compressed"]).context == ctx
     # compressing keeps it
     assert StartStop.from_arrow(compress_table(prepared.arrow)).context == ctx
+
+
+# ---------------------------------------------------------------------- the last day
+# Day numbers by hand (days since 1970-01-01; Python: date.toordinal() - 719163):
+# 2026-10-01 -> 20727, 2026-10-21 -> 20747, 2026-11-30 -> 20787, 2026-12-31 -> 20818.
+
+def test_last_day_from_the_context_else_from_the_data() -> None:
+    assert dt.date(2026, 10, 1).toordinal() - 719163 == 20727  # the working above
+    plain = StartStop.from_frame(_frame())
+    # customer b: 20747 + 40 = 20787; customer a: 20727 + 25 = 20752
+    assert plain.last_day == 20787.0
+    assert plain.last_day_basis == "last day in the data (start_date + stop)"
+    later = plain.with_context(TableContext(as_of=dt.date(2026, 12, 31)))
+    assert later.last_day == 20818.0
+    assert later.last_day_basis == "as-of date 2026-12-31 (the table's context)"
+    # a context without an as-of date says nothing about the day
+    assert plain.with_context(TableContext(timezone="UTC")).last_day == 20787.0
+    no_dates = StartStop.from_frame(_frame().drop(columns="start_date"))
+    assert no_dates.last_day is None
+
+
+def test_book_and_cohorts_read_the_last_day_from_the_table() -> None:
+    from retain.models.curves import cohort_retention
+    from retain.run import book_summary
+    from retain.units import DAYS_PER_MONTH
+
+    only_a = StartStop.from_frame(_frame()).take(np.array([0, 1]))
+    # without context the window is the 30 days before a's churn (20722, 20752]:
+    # a's rows (20727, 20737] and (20737, 20752] give 10 + 15 days and one churn
+    book = book_summary(only_a, window_days=30)
+    assert book.window_exposure_months * DAYS_PER_MONTH == pytest.approx(25.0)
+    assert book.window_churns == 1.0
+    # as of 2026-11-30 (20787) the window (20757, 20787] holds none of a's time
+    dated = only_a.with_context(TableContext(as_of=dt.date(2026, 11, 30)))
+    book = book_summary(dated, window_days=30)
+    assert book.window_exposure_months == 0.0 and book.window_churns == 0.0
+    assert cohort_retention(dated, months=2).as_of_basis.startswith("as-of date 2026-11-30")
+    assert cohort_retention(only_a, months=2).as_of_basis.startswith("last day in the data")

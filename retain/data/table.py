@@ -386,6 +386,31 @@ class StartStop:
         return self._context
 
     @property
+    def last_day(self) -> float | None:
+        """The as-of date as a calendar day number (days since 1970-01-01, the scale
+        of ``start_date``): the day open spells are censored on, where a censored
+        row's ``start_date + stop`` lies.
+
+        From the context when it holds the as-of date; else the last day in the
+        data, ``max(start_date + stop)``; None when the table has neither. A
+        spell's tenure on that day is ``last_day - start_day``.
+        """
+        if self._context is not None and self._context.as_of_day is not None:
+            return self._context.as_of_day
+        if self.start_date is None:
+            return None
+        return float(np.max(self.start_date.astype(np.int64) + self.stop))
+
+    @property
+    def last_day_basis(self) -> str:
+        """Where :attr:`last_day` comes from, in words (for results and pages)."""
+        if self._context is not None and self._context.as_of is not None:
+            return f"as-of date {self._context.as_of.isoformat()} (the table's context)"
+        if self.start_date is None:
+            return "none (no as-of date and no start_date)"
+        return "last day in the data (start_date + stop)"
+
+    @property
     def n_rows(self) -> int:
         return int(self.start.shape[0])
 

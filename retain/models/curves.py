@@ -639,8 +639,9 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
 
     Notes
     -----
-    The last observed day is taken as ``max(start_date + stop)`` when
-    ``start_date`` is present; a cohort's cell at month k is observable when
+    The last observed day is the table's as-of date (:attr:`StartStop.last_day`:
+    from its context, else ``max(start_date + stop)``) when ``start_date`` is
+    present; a cohort's cell at month k is observable when
     the cohort's earliest start plus k months is on or before that day.
     Without ``start_date`` the cohort's largest observed tenure is used.
     """
@@ -670,8 +671,8 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
     edges = np.concatenate(([0.0], grid))
     if table.start_date is not None:
         start_day = table.start_date.astype("datetime64[D]").astype(np.int64)
-        last_day = float(np.max(start_day + table.stop))
-        basis = "last day in the data (start_date + stop)"
+        last_day = table.last_day  # the as-of date (context), else the data's last day
+        basis = table.last_day_basis
     else:
         start_day = None
         last_day = math.nan
