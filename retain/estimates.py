@@ -148,6 +148,12 @@ class Estimates(Result):
         return f"{self.model}, {len(self.names)} estimates. " + "; ".join(parts)
 
 
+#: columns of :meth:`RetentionPrediction.to_frame` that are fields as they are
+_FIELD_OF_COLUMN = {"time": "times", "days": "times", "retention": "survival",
+                    "lower": "lower", "upper": "upper", "extrapolated": "extrapolated",
+                    "cumulative_hazard": "cumulative_hazard"}
+
+
 @dataclass(frozen=True, eq=False)
 class RetentionPrediction(Result):
     """Predicted retention S(t) at tenures ``times`` (days) with pointwise limits.
@@ -190,11 +196,12 @@ class RetentionPrediction(Result):
         """Alias of :attr:`level`."""
         return self.level
 
-    @property
-    def days(self) -> np.ndarray:
-        return self.times
-
     def __getitem__(self, column: str) -> pd.Series:
+        """One column of :meth:`to_frame` (``prediction["retention"]``), without building it
+        whole for the columns that are fields."""
+        name = _FIELD_OF_COLUMN.get(column)
+        if name is not None:
+            return pd.Series(getattr(self, name), name=column)
         return self.to_frame()[column]
 
     def to_frame(self) -> pd.DataFrame:

@@ -362,13 +362,10 @@ class CoxFit(Result, LevelFromConf):
         log-log limits of :meth:`retention_interval` at the fit's level.
         """
         s = self._stratum_code(stratum)
-        lp = self.linear_predictor(profile)
-        if lp.shape[0] != 1:
-            raise DataError("covariate profile", "give one value per covariate",
-                            "use segment_retention for several members")
+        x = self._profile_row(profile)
         t = np.asarray(times, dtype=float)
-        H = self._cumhaz_at(s, t) * np.exp(lp[0])
-        _, H_iv, se = self._cumhaz_se(profile, t, s)
+        H = self._cumhaz_at(s, t) * np.exp(x @ self.coef)
+        _, H_iv, se = self._cumhaz_se(x, t, s)
         low, high = _retention_limits(H_iv, se, self.conf, "log-log")
         last = self._last_time(s)
         return RetentionPrediction(
@@ -377,30 +374,34 @@ class CoxFit(Result, LevelFromConf):
             profile={k: to_jsonable(v) for k, v in dict(profile).items()},
             filled={} if stratum is None else {"stratum": self.stratum_labels[s]})
 
-    def _cumhaz_se(self, profile: Mapping[str, object], t: np.ndarray, s: int
-                   ) -> tuple[float, np.ndarray, np.ndarray]:
-        """Last churn time, :math:`\\hat H(t\\mid x)` and its standard error (see
-        :meth:`retention_interval`)."""
+    def _profile_row(self, profile: Mapping[str, object]) -> np.ndarray:
+        """One profile's coded row on the centred scale of the fit."""
         rows = self.design.rows_for(profile)
         if rows.shape[0] != 1:
             raise DataError("covariate profile", "give one value per covariate",
                             "use segment_retention for several members")
-        z = rows[0] - self.design.means  # the profile on the centred scale of the fit
+        return rows[0] - self.design.means
+
+    def _cumhaz_se(self, z: np.ndarray, t: np.ndarray, s: int
+                   ) -> tuple[float, np.ndarray, np.ndarray]:
+        """Last churn time, :math:`\\hat H(t\\mid x)` and its standard error (see
+        :meth:`retention_interval`) for the centred profile row ``z``."""
         a, b = self._index.bounds[s], self._index.bounds[s + 1]
         dH = self._dH0[a:b] * np.exp(float(z @ self.coef))
         pos = np.searchsorted(self._index.times[a:b], t, side="right")
 
         def upto(per_time: np.ndarray) -> np.ndarray:
+            """Sums over churn times up to each step: 0, then one row per churn time."""
             c = np.zeros((per_time.shape[0] + 1,) + per_time.shape[1:])
             np.cumsum(per_time, axis=0, out=c[1:])
-            return c[pos]
+            return c
 
-        H = upto(dH)
         given_beta = upto(dH * dH / self._index.deaths[a:b])  # D_k / S0(t_k; x)^2
         q = upto((self._xbar[a:b] - z) * dH[:, None])
         V = self.cov_robust if self.robust else self.cov_model
+        # the curve steps only at churn times: the variance once per step, then looked up
         se = np.sqrt(given_beta + np.einsum("ij,jk,ik->i", q, V, q))
-        return self._last_time(s), H, se
+        return self._last_time(s), upto(dH)[pos], se[pos]
 
     def retention_interval(self, profile: Mapping[str, object], times: Sequence[float],
                            stratum: str | None = None, conf: float | None = None,
@@ -446,7 +447,7 @@ class CoxFit(Result, LevelFromConf):
                             "use e.g. 0.95")
         s = self._stratum_code(stratum)
         t = np.asarray(times, dtype=float)
-        last, H, se = self._cumhaz_se(profile, t, s)
+        last, H, se = self._cumhaz_se(self._profile_row(profile), t, s)
         low, high = _retention_limits(H, se, level, transform)
         return pd.DataFrame({"time": t, "cumulative_hazard": H, "se_cumulative_hazard": se,
                              "retention": np.exp(-H), "retention_low": low,
