@@ -232,3 +232,30 @@ def test_cox_without_rows_predicts_the_same_and_drops_the_table(fits, whas):
         diagnose(fit)
         with pytest.raises(ModelError, match="without its rows"):
             diagnose(light)
+
+
+@pytest.mark.parametrize("name", ["exponential", "weibull"])
+def test_time_ratio_estimates_agree_with_the_time_ratio_table(fits, name):
+    """AFT reading: TR = exp(-b/shape) (Collett 2015, sec. 6.4); the protocol's Wald limits
+    on log TR equal the table's delta-method limits, and nest at 90/95/99 %."""
+    fit = fits[name]
+    est = fit.time_ratio_estimates()
+    assert set(est.scale) == {"log time ratio"} and est.reading[0] == "time ratio"
+    tr = fit.time_ratios
+    iv = est.interval()
+    np.testing.assert_allclose(iv["estimate"], tr["time_ratio"], rtol=1e-12)
+    np.testing.assert_allclose(iv["lower"], tr["lower"], rtol=1e-10)
+    np.testing.assert_allclose(iv["upper"], tr["upper"], rtol=1e-10)
+    if name == "exponential":  # shape 1: the time ratio is 1 / hazard ratio, limits swapped
+        hr = fit.hazard_ratios
+        np.testing.assert_allclose(iv["upper"], 1 / hr["lower"], rtol=1e-10)
+    lo90, lo99 = est.interval(0.9)["lower"], est.interval(0.99)["lower"]
+    assert np.all(lo99 < iv["lower"]) and np.all(iv["lower"] < lo90)
+
+
+def test_cause_specific_without_rows_keeps_the_estimates(fits):
+    cs = fits["cause-specific cox"]
+    light = cs.without_rows()
+    assert all(not f.keeps_rows for f in light.fits.values())
+    pd.testing.assert_frame_equal(light.estimates().interval(0.9), cs.estimates().interval(0.9))
+    assert len(pickle.dumps(light)) < len(pickle.dumps(cs)) / 2

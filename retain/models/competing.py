@@ -21,7 +21,7 @@ on ``StartStop.for_cause``.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -239,6 +239,11 @@ class CauseSpecificCox(Result):
     def level(self) -> float:
         """The confidence level of the causes' intervals."""
         return float(self.fits[self.causes[0]].conf) if self.causes else DEFAULT_LEVEL
+
+    def without_rows(self) -> CauseSpecificCox:
+        """A copy whose cause models keep only what prediction needs
+        (:meth:`retain.models.cox.CoxFit.without_rows`)."""
+        return replace(self, fits={c: f.without_rows() for c, f in self.fits.items()})
 
     def estimates(self) -> Estimates:
         """Every cause's coefficients (log hazard ratios), named "cause: term".

@@ -356,6 +356,26 @@ class ParametricFit(Result, LevelFromConf):
             "hr_to_the_minus_1_over_shape": hr ** (-1.0 / alpha),
         })
 
+    def time_ratio_estimates(self) -> Estimates:
+        """The accelerated-failure-time reading as :class:`Estimates`: log TR = -b/alpha.
+
+        Covariance by the delta method with the Jacobian of :attr:`time_ratios`
+        (d/db = -1/alpha; d/d log alpha = b/alpha for a free Weibull shape).
+        """
+        if self.model == "piecewise":
+            raise ModelError("time ratios", "the piecewise-constant model has no "
+                             "accelerated-failure-time reading", "fit a Weibull model")
+        sl = self._beta_index
+        b = self.params[sl]
+        alpha = self.shape_value
+        jac = np.zeros((b.shape[0], self.params.shape[0]))
+        jac[:, sl] = -np.eye(b.shape[0]) / alpha
+        if self.model == "weibull" and self.fixed_shape is None:
+            jac[:, 1] = b / alpha
+        return Estimates(model=self.model, names=tuple(self.labels), estimate=-b / alpha,
+                         cov=jac @ self.cov @ jac.T, scale=("log time ratio",) * b.shape[0],
+                         level=self.conf)
+
     @property
     def shape_value(self) -> float:
         if self.model == "weibull":
