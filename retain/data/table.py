@@ -12,6 +12,12 @@ compression), ``start_date`` (calendar day the spell began, tenure 0). Every
 other column is a covariate: numeric columns are kept as float64, text columns
 as :class:`Categorical` (integer codes and sorted levels).
 
+The column names and the context's layout live in :mod:`retain.data.contract`. A
+table may carry a :class:`~retain.data.contract.TableContext` (the as-of date,
+window, time zone and covariate schema it was prepared with), read from and
+written to the Parquet file's schema metadata; a table made elsewhere may have
+none.
+
 The contract is checked once, here; kernels receive plain numpy arrays.
 """
 
