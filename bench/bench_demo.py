@@ -77,7 +77,7 @@ def demo_runs(n: int = 2) -> list[dict[str, float]]:
 
 
 def growth() -> list[dict[str, float]]:
-    from retain.demo_business import write_log
+    from retain.demo import write_log
 
     rows = []
     DATA.mkdir(parents=True, exist_ok=True)

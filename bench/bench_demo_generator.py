@@ -1,4 +1,4 @@
-"""Speed and memory of the Quillfern demo generator (retain.demo_business).
+"""Speed and memory of the Quillfern demo generator (retain.demo).
 
 Each size runs in a fresh subprocess so its peak resident memory is its own:
 ``generate_log(n)`` (simulation + text columns) and ``write_log`` to Parquet under
@@ -23,7 +23,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 CHILD = r"""
 import json, resource, sys, time
-from retain.demo_business import generate_log, write_log
+from retain.demo import generate_log, write_log
 n = int(sys.argv[1]); out = sys.argv[2]
 t = time.perf_counter(); tb = generate_log(n); t_gen = time.perf_counter() - t
 rows = tb.num_rows; del tb
@@ -34,7 +34,7 @@ print(json.dumps({"customers": n, "rows": rows, "generate_s": t_gen,
 """
 TRUTH_CHILD = r"""
 import json, resource, sys, time
-from retain import demo_business as db
+from retain import demo as db
 fn = getattr(db, sys.argv[1])
 t = time.perf_counter(); fn(); s = time.perf_counter() - t
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024

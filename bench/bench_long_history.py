@@ -8,7 +8,7 @@ Run (from the repository root)::
 Two logs of about the same size, each prepared in its own fresh process with the
 demo's project file (memory_limit 12GB, 2 threads):
 
-- long: the Quillfern demo log of about ``--ordinary`` events (``retain.demo_business``,
+- long: the Quillfern demo log of about ``--ordinary`` events (``retain.demo``,
   seeded) plus one customer with ``--long`` events: a signup on the log's first day,
   then price changes, plan changes, pauses and resumes, payment failures and
   recoveries, one every ``(1278 days) / --long`` in order, open at the as-of date

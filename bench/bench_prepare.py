@@ -5,7 +5,7 @@ Run (from the repository root)::
     /work/venv/bin/python bench/bench_prepare.py                 # 1M, 3M, 10M events
     /work/venv/bin/python bench/bench_prepare.py --events 1e6 --no-write   # quick look
 
-Logs come from the Quillfern demo generator (retain.demo_business, seeded), written
+Logs come from the Quillfern demo generator (retain.demo, seeded), written
 once to bench/_data/ as Parquet with the demo's own project file pointed at them.
 Each side runs in its own fresh process, one after the other in one run, so peak
 memory (ru_maxrss) is its own and neither warms the other's caches:
@@ -70,7 +70,7 @@ print(json.dumps({"wall_s": wall, "cpu_s": cpu, "peak_mb": peak, "rows_out": row
 
 def _log(n_events: int, memory_limit: str = MEMORY_LIMIT) -> tuple[Path, int, int]:
     """The demo log of about ``n_events`` rows (Parquet) and its project file."""
-    from retain.demo_business import write_log
+    from retain.demo import write_log
 
     n_customers = int(round(n_events / EVENTS_PER_CUSTOMER, -3))
     DATA.mkdir(parents=True, exist_ok=True)
@@ -184,7 +184,7 @@ def write(out: list[dict], agreement: str, args: argparse.Namespace,
         + (" --events " + " ".join(f"{e:g}" for e in args.events)
            if args.events != [1e6, 3e6, 1e7] else "") + "`",
         "",
-        "Quillfern demo logs (Parquet, from `retain.demo_business`), the demo's retain.toml "
+        "Quillfern demo logs (Parquet, from `retain.demo`), the demo's retain.toml "
         f"with `memory_limit = \"{MEMORY_LIMIT}\"`, 2 DuckDB threads. retain = "
         "`prepare(config)`: read, validate, quarantine with reasons, reconcile, start-stop "
         "table as Arrow (the StartStop arrays for the models are timed apart, last column)."

@@ -33,7 +33,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from retain import demo_business as db
+from retain import demo as db
 from retain.paths import DEMO_DIR
 
 TOML = DEMO_DIR / "retain.toml"

@@ -23,7 +23,7 @@ import pyarrow.csv as pacsv
 import pytest
 from scipy import stats
 
-from retain import demo_business as db
+from retain import demo as db
 from retain.paths import DEMO_DIR
 
 SHIPPED = DEMO_DIR / "quillfern_events.csv.gz"

@@ -19,7 +19,7 @@ import pytest
 import statsmodels.api as sm
 from statsmodels.duration.hazard_regression import PHReg
 
-from retain import demo_business as db
+from retain import demo as db
 
 
 @pytest.fixture(scope="module")
