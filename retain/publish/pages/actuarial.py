@@ -12,7 +12,13 @@ from retain import step_names as step
 from retain.publish import charts
 from retain.publish.content import Fact, Figure, Page, Section, slug
 from retain.publish.pages import prose
-from retain.publish.pages.shared import failure_section, interval_text, num, pct
+from retain.publish.pages.shared import (
+    failure_section,
+    interval_text,
+    level_text,
+    num,
+    pct,
+)
 
 RATE_SERIES = ("calendar_month", "cohort", "tenure_month")  # A/E drawn as a series, not bars
 
@@ -54,7 +60,7 @@ def decrements_page(run: Any) -> Page:
                   overall))
     figs = [Figure(
         key="decrements-q", title="Monthly churn probability q by tenure month",
-        guide=prose.DECREMENTS_GUIDE,
+        guide=prose.DECREMENTS_GUIDE.format(level=level_text(dt.level)),
         chart=charts.lines_chart(chart_frame, "decrements_q", x="month", y="q", series="rate",
                                  x_title="Tenure month", y_title="q (monthly probability)",
                                  lower="lower", upper="upper",
@@ -119,13 +125,14 @@ def ae_page(run: Any, ae: Any) -> Page:
     dims = [d for d in dict.fromkeys(frame["dimension"]) if d != "all"]
     for dim in dims:
         part = frame[frame["dimension"] == dim].reset_index(drop=True)
-        sections.append(_ae_dimension_section(dim, part, ae.full_credibility))
+        sections.append(_ae_dimension_section(dim, part, ae.full_credibility, ae.level))
     return Page("expected", "Actual vs expected", prose.EXPECTED_LEAD, tuple(sections),
                 cautions=prose.ACTUARIAL_CAUTIONS + (ae.caution,),
                 nav_label="Actual vs expected", group="actuarial")
 
 
-def _ae_dimension_section(dim: str, part: pd.DataFrame, full_credibility: float) -> Section:
+def _ae_dimension_section(dim: str, part: pd.DataFrame, full_credibility: float,
+                          level: float) -> Section:
     """A/E by the levels of one dimension (a segment, the cohort or the calendar month)."""
     shown = part.drop(columns=["dimension"])
     flagged = int((part["flag"] != "").sum())
@@ -143,7 +150,8 @@ def _ae_dimension_section(dim: str, part: pd.DataFrame, full_credibility: float)
     return Section(f"By {label}", intro=f"{flagged} of {len(part)} levels have an interval "
                    "that excludes 1 (flagged above or below).", figures=(Figure(
                        key=f"expected-{slug(dim)}", title=f"A/E by {label}",
-                       guide=prose.AE_GUIDE.format(full_credibility=full_credibility),
+                       guide=prose.AE_GUIDE.format(full_credibility=full_credibility,
+                                                    level=level_text(level)),
                        chart=chart, table=shown, csv=part, show_rows=60),))
 
 
@@ -167,7 +175,7 @@ def _cause_cox_section(run: Any) -> Section:
     return Section(title, intro=prose.CAUSE_COX_INTRO, bullets=tuple(cs.warnings),
                    figures=(Figure(
                        key="causes-hazard-ratios", title="Hazard ratios by cause",
-                       guide=prose.CAUSE_COX_GUIDE,
+                       guide=prose.CAUSE_COX_GUIDE.format(level=level_text(cs.level)),
                        chart=charts.forest_chart(frame, "causes_hazard_ratios", group="cause"),
                        table=frame, csv=hr),))
 
@@ -194,7 +202,7 @@ def causes_page(run: Any) -> Page:
                               f"cif-12m-{slug(cause)}", float(r["cif"])))
     fig = Figure(
         key="causes-incidence", title="Share churned by each cause, by tenure",
-        guide=prose.INCIDENCE_GUIDE,
+        guide=prose.INCIDENCE_GUIDE.format(level=level_text(ci.level)),
         chart=charts.lines_chart(chart_frame, "causes_incidence", x="month", y="probability",
                                  series="curve", x_title="Months since start",
                                  y_title="Churned from this cause", dashed=dashed, step=True,

@@ -14,6 +14,8 @@ from retain.publish.pages.shared import (
     curves_figure,
     failure_section,
     heat_colours,
+    level_text,
+    levels_text,
     months_text,
     num,
 )
@@ -28,7 +30,8 @@ def curves_page(run: Any) -> Page:
             "All customers",
             intro=c.summary() + ".",
             figures=(curves_figure("curves-all", "Retention of all customers",
-                                   prose.CURVES_ALL_GUIDE, [("all customers", c)]),)))
+                                   prose.CURVES_ALL_GUIDE.format(level=level_text(c.level)),
+                                   [("all customers", c)]),)))
     else:
         sections.append(failure_section("All customers", km))
     for seg in run.options.segments:
@@ -45,7 +48,8 @@ def curves_page(run: Any) -> Page:
             bullets=tuple(sc.warnings),
             figures=(curves_figure(
                 f"curves-{slug(seg)}", f"Retention by {seg}",
-                prose.CURVES_SEGMENT_GUIDE.format(segment=seg), sc.items(),
+                prose.CURVES_SEGMENT_GUIDE.format(
+                    segment=seg, level=levels_text(c for _, c in sc.items())), sc.items(),
                 series_title=seg),)))
     return Page("curves", "Retention curves", prose.CURVES_LEAD, tuple(sections),
                 nav_label="Retention curves")

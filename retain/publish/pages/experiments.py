@@ -12,6 +12,7 @@ from retain.publish.pages.shared import (
     curves_figure,
     failure_section,
     interval_text,
+    level_text,
     num,
     p_text,
 )
@@ -100,9 +101,11 @@ def _experiment_section(name: str, v: Any) -> Section:
     bullets += list(v.warnings)
     figs = (
         curves_figure(f"experiment-{key}-curves", f"Retention by arm ({name})",
-                      prose.EXPERIMENT_CURVES_GUIDE, v.curves.items(), series_title=v.arm),
+                      prose.EXPERIMENT_CURVES_GUIDE.format(level=level_text(v.conf)),
+                      v.curves.items(), series_title=v.arm),
         Figure(key=f"experiment-{key}-comparison", title="Treatment against control",
-               guide=prose.EXPERIMENT_COMPARISON_GUIDE, table=v.to_frame()),
+               guide=prose.EXPERIMENT_COMPARISON_GUIDE.format(level=level_text(v.conf)),
+               table=v.to_frame()),
         Figure(key=f"experiment-{key}-arms", title="Arms", guide=prose.EXPERIMENT_ARMS_GUIDE,
                table=v.arms),
         Figure(key=f"experiment-{key}-balance", title="Balance of pre-assignment attributes",

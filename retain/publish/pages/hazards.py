@@ -17,6 +17,7 @@ from retain.publish.pages.shared import (
     failure_section,
     hazard_frame,
     interval_text,
+    level_text,
     num,
     p_text,
     term_frame,
@@ -49,7 +50,7 @@ def hazards_page(run: Any) -> Page:
         if len(tr):
             figs.append(Figure(
                 key="hazards-weibull-time-ratios", title="Time ratios (Weibull)",
-                guide=prose.WEIBULL_TIME_RATIOS_GUIDE,
+                guide=prose.WEIBULL_TIME_RATIOS_GUIDE.format(level=level_text(fit.level)),
                 chart=charts.forest_chart(tr, "hazards_weibull_time_ratios",
                                           estimate="time_ratio",
                                           x_title="Time ratio (log scale; 1 = no difference)"),
@@ -87,7 +88,8 @@ def cox_section(run: Any, cox: Any) -> Section:
                           conc.value.c_index))
     ph = run.get(step.COX_PH)
     bullets = list(cox.warnings)
-    figs = [Figure(key="hazards-cox", title="Hazard ratios (Cox)", guide=prose.COX_GUIDE,
+    figs = [Figure(key="hazards-cox", title="Hazard ratios (Cox)",
+                   guide=prose.COX_GUIDE.format(level=level_text(cox.level)),
                    chart=charts.forest_chart(frame, "hazards_cox"), table=frame,
                    csv=cox.hazard_ratios)]
     if ph.ok:

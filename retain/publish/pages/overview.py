@@ -15,6 +15,7 @@ from retain.publish.pages.shared import (
     failure_section,
     hazard_frame,
     interval_text,
+    level_text,
     months_text,
     num,
     pct,
@@ -56,7 +57,9 @@ def overview_page(run: Any) -> Page:
     sections.append(_hazard_words(run))
     if km.ok:
         fig = curves_figure("overview-retention", "Retention of all customers",
-                            prose.OVERVIEW_RETENTION_GUIDE, [("all customers", km.value)])
+                            prose.OVERVIEW_RETENTION_GUIDE.format(
+                                level=level_text(km.value.level)),
+                            [("all customers", km.value)])
         sections.append(Section("Retention curve", figures=(fig,)))
     return Page("overview", "Overview", prose.OVERVIEW_LEAD, tuple(sections),
                 nav_label="Overview")

@@ -26,7 +26,7 @@ OVERVIEW_LEAD = ("How many customers stay, for how long, and what moves the odds
                  "leaving.")
 OVERVIEW_RETENTION_GUIDE = (
     "The line is the share of customers still subscribed after each month of tenure "
-    "(Kaplan–Meier); the shaded band is its 95 % interval. A steep early drop means many "
+    "(Kaplan–Meier); the shaded band is its {level} interval. A steep early drop means many "
     "leave soon after starting.")
 HAZARD_WORDS_INTRO = ("The three largest effects in the proportional-hazards model, each "
                       "compared with its reference group and holding the others fixed:")
@@ -36,12 +36,12 @@ CURVES_LEAD = ("Kaplan–Meier retention: the share of customers still subscribe
                "month of tenure, overall and by segment, with delayed entry and censoring at "
                "the as-of date.")
 CURVES_ALL_GUIDE = (
-    "Share still subscribed by months of tenure, with its 95 % interval band. The table "
+    "Share still subscribed by months of tenure, with its {level} interval band. The table "
     "gives the number still at risk at each tenure: where it is small, the curve rests on "
     "few customers.")
 CURVES_SEGMENT_INTRO = "Each spell is placed by its {segment} at the start of the spell ({basis}). "
 CURVES_SEGMENT_GUIDE = (
-    "One line per {segment}; shaded bands are 95 % intervals. Lines that stay apart with "
+    "One line per {segment}; shaded bands are {level} intervals. Lines that stay apart with "
     "bands that do not overlap point to a real difference. The table lists the number still "
     "at risk at chosen tenures.")
 COHORTS_LEAD = ("Retention of each signup month's customers by months since start. Every "
@@ -60,12 +60,12 @@ HAZARDS_LEAD = ("What raises or lowers the risk of churn at any tenure, from the
 WEIBULL_TIME_RATIOS_GUIDE = (
     "A time ratio stretches (above 1) or shrinks (below 1) the whole lifetime of a customer "
     "with that attribute, against the reference group: 1.3 means customers stay 30 % "
-    "longer. Whiskers are 95 % intervals; a whisker that crosses the dashed line at 1 is not "
+    "longer. Whiskers are {level} intervals; a whisker that crosses the dashed line at 1 is not "
     "a clear difference.")
 COX_GUIDE = (
     "Each dot is how many times more likely (above 1) or less likely (below 1) customers "
     "with that attribute are to churn at any given tenure than the reference group, other "
-    "attributes held fixed; whiskers are 95 % intervals (robust, clustered by customer). A "
+    "attributes held fixed; whiskers are {level} intervals (robust, clustered by customer). A "
     "numeric attribute is read per unit.")
 PH_TEST_GUIDE = (
     "Grambsch–Therneau test on scaled Schoenfeld residuals: a small p-value says that "
@@ -104,7 +104,7 @@ VALUE_LEAD = ("What a customer is worth in discounted margin, for new customers 
               "and for the active base.")
 VALUE_SEGMENTS_GUIDE = (
     "Bars are the expected discounted margin of one new customer over the horizon; whiskers "
-    "are 95 % intervals from the model's parameter uncertainty only (not from future changes "
+    "are {level} intervals from the model's parameter uncertainty only (not from future changes "
     "in price, cost or behaviour). Compare segments by whether their whiskers overlap.")
 VALUE_BASE_GUIDE = (
     "For each customer active on the as-of date: the expected discounted margin still to "
@@ -129,12 +129,12 @@ VERDICT_CAUTION = ("Verdicts are statistical: an interval that excludes no effec
 DETECTABLE_EFFECT = ("With the {events} churns observed, the smallest hazard ratio this "
                      "experiment could detect for {treatment} (80 % power, 5 % two-sided) is "
                      "about {ratio:.2f}.")
-EXPERIMENT_CURVES_GUIDE = ("One line per arm, with 95 % bands, up to the analysis horizon. "
+EXPERIMENT_CURVES_GUIDE = ("One line per arm, with {level} bands, up to the analysis horizon. "
                            "Lines that part early and stay apart show an effect on churn.")
 EXPERIMENT_COMPARISON_GUIDE = (
     "Per treatment arm: the adjusted hazard ratio, the difference in restricted mean tenure "
     "(days kept within the horizon) and in revenue per assigned customer, each with its "
-    "95 % interval.")
+    "{level} interval.")
 EXPERIMENT_ARMS_GUIDE = "Customers, churns and revenue per arm."
 EXPERIMENT_BALANCE_GUIDE = (
     "Share of each attribute level per arm. Large differences (flagged) mean the arms were "
@@ -158,7 +158,7 @@ DECREMENTS_LEAD = (
     "Churn read as decrements: exposure in customer-months, churns by cause, central rates m "
     "and monthly probabilities q by month of tenure, with survivors per 10,000.")
 DECREMENTS_GUIDE = (
-    "Dots are the crude q = 1 − exp(−m) of each tenure month with exact Poisson 95 % "
+    "Dots are the crude q = 1 − exp(−m) of each tenure month with exact Poisson {level} "
     "intervals (shaded); the line, where shown, is the graduated rate. Early months often "
     "carry the highest churn; wide bands at long tenures reflect little exposure.")
 GRADUATION_GUIDE = (
@@ -179,7 +179,7 @@ AE_BASIS_INTRO = (
     "integrated over the row's interval and summed by segment. A/E above 1 means more churn "
     "than the basis expects. Intervals: {interval}.")
 AE_GUIDE = (
-    "Each bar (or point) is actual ÷ expected churns with its 95 % exact Poisson interval; "
+    "Each bar (or point) is actual ÷ expected churns with its {level} exact Poisson interval; "
     "the dashed line at 1 is 'as the basis expects'. Where the interval excludes 1 the level "
     "is flagged. The credibility column blends a small level's experience with the whole "
     "book (limited fluctuation, full credibility at {full_credibility:,.0f} expected churns; "
@@ -189,7 +189,7 @@ CAUSES_LEAD = (
     "different causes and cures; here they are kept apart as competing risks.")
 INCIDENCE_GUIDE = (
     "Solid lines are the probability of having churned from each cause by a given month, "
-    "with 95 % bands (Aalen–Johansen: the causes add up to all churn). Dashed lines are "
+    "with {level} bands (Aalen–Johansen: the causes add up to all churn). Dashed lines are "
     "1 − Kaplan–Meier with the other cause treated as censoring, which answers 'what if the "
     "other cause did not exist' and so overstates each cause.")
 CAUSE_COX_INTRO = (
@@ -199,4 +199,4 @@ CAUSE_COX_INTRO = (
 CAUSE_COX_GUIDE = (
     "Each attribute appears once per cause. An attribute that raises one kind of churn and "
     "not the other points to its cure: pricing and product for voluntary churn, payment "
-    "recovery for involuntary churn. Whiskers are 95 % intervals.")
+    "recovery for involuntary churn. Whiskers are {level} intervals.")

@@ -43,6 +43,12 @@ def level_text(level: float) -> str:
     return f"{100.0 * float(level):g} %"
 
 
+def levels_text(results: Iterable[Any]) -> str:
+    """The level of several results' intervals ("95 %"; "90 % / 95 %" if they differ)."""
+    levels = sorted({float(r.level) for r in results}) or [DEFAULT_LEVEL]
+    return " / ".join(level_text(v) for v in levels)
+
+
 def interval_text(lo: float | None, hi: float | None, fmt: Callable[[float | None], str],
                   level: float = DEFAULT_LEVEL) -> str:
     """"95 % interval lo to hi", at the level the result carries."""

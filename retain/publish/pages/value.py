@@ -8,7 +8,7 @@ from retain import step_names as step
 from retain.publish import charts
 from retain.publish.content import Fact, Figure, Page, Section
 from retain.publish.pages import prose
-from retain.publish.pages.shared import failure_section, interval_text, num
+from retain.publish.pages.shared import failure_section, interval_text, levels_text, num
 
 
 def value_page(run: Any) -> Page:
@@ -59,7 +59,7 @@ def _segments_section(sv: Any) -> Section:
     return Section(f"By {by}", bullets=tuple(sv.warnings) + tuple(
         f"{x.segment}: {w}" for x in sv.values for w in x.warnings), figures=(Figure(
             key="value-segments", title=f"Lifetime value of a new customer by {by}",
-            guide=prose.VALUE_SEGMENTS_GUIDE,
+            guide=prose.VALUE_SEGMENTS_GUIDE.format(level=levels_text(sv.values)),
             chart=charts.interval_bars(shown, "value_segments", label="segment",
                                        estimate="value", lower="lower", upper="upper",
                                        x_title="Value of a new customer", x_format=",.0f"),
