@@ -259,3 +259,20 @@ def test_cause_specific_without_rows_keeps_the_estimates(fits):
     assert all(not f.keeps_rows for f in light.fits.values())
     pd.testing.assert_frame_equal(light.estimates().interval(0.9), cs.estimates().interval(0.9))
     assert len(pickle.dumps(light)) < len(pickle.dumps(cs)) / 2
+
+
+def test_pages_print_the_level_the_result_carries(whas):
+    """A fit asked for 90 % intervals is printed as "90 % interval", with its own limits."""
+    from retain.publish.pages import hazard_sentences
+    from retain.publish.pages.shared import interval_text, level_text, levels_text
+
+    fit = fit_cox(whas, COV, conf=0.90)
+    iv = fit.estimates().interval()
+    assert (iv["level"] == 0.90).all()
+    words = hazard_sentences(fit, 3)
+    assert len(words) == 3 and all("90 % interval" in w and "95 %" not in w for w in words)
+    row = iv.iloc[int(np.argmax(np.abs(fit.estimates().estimate)))]
+    assert f"90 % interval {row['lower']:.2f} to {row['upper']:.2f}" in words[0]
+    assert interval_text(0.1, 0.2, lambda v: f"{v:.1f}") == "95 % interval 0.1 to 0.2"
+    assert level_text(0.999) == "99.9 %"
+    assert levels_text([fit, fit_exponential(whas, COV)]) == "90 % / 95 %"
