@@ -324,6 +324,21 @@ class ParametricFit(Result, LevelFromConf):
             "z": zstat, "p_value": 2.0 * stats.norm.sf(np.abs(zstat)),
         })
 
+    def _aft_jacobian(self) -> tuple[np.ndarray, float, np.ndarray]:
+        """b, alpha and the Jacobian of log TR = -b/alpha in ``params`` (one row per b_j)."""
+        if self.model == "piecewise":
+            raise ModelError("time ratios", "the piecewise-constant model has no "
+                             "accelerated-failure-time reading", "fit a Weibull model")
+        sl = self._beta_index
+        b = self.params[sl]
+        alpha = self.shape_value
+        jac = np.zeros((b.shape[0], self.params.shape[0]))
+        for j, i in enumerate(np.arange(self.params.shape[0])[sl]):
+            jac[j, i] = -1.0 / alpha
+            if self.model == "weibull" and self.fixed_shape is None:
+                jac[j, 1] = b[j] / alpha
+        return b, alpha, jac
+
     @property
     def time_ratios(self) -> pd.DataFrame:
         """Accelerated-failure-time reading: TR = exp(-b/alpha) = HR**(-1/alpha).
@@ -331,21 +346,9 @@ class ParametricFit(Result, LevelFromConf):
         Delta method on log TR = -b e^{-g}: d/db = -1/alpha, d/dg = b/alpha.
         Exponential: alpha = 1, TR = 1/HR. Not defined for the piecewise model.
         """
-        if self.model == "piecewise":
-            raise ModelError("time ratios", "the piecewise-constant model has no "
-                             "accelerated-failure-time reading", "fit a Weibull model")
-        sl = self._beta_index
-        b = self.params[sl]
-        alpha = self.shape_value
-        idx = np.arange(self.params.shape[0])[sl]
+        b, alpha, jac = self._aft_jacobian()
         log_tr = -b / alpha
-        var = np.empty(b.shape[0])
-        for j, i in enumerate(idx):
-            grad = np.zeros(self.params.shape[0])
-            grad[i] = -1.0 / alpha
-            if self.model == "weibull" and self.fixed_shape is None:
-                grad[1] = b[j] / alpha
-            var[j] = grad @ self.cov @ grad
+        var = np.array([grad @ self.cov @ grad for grad in jac])
         se = np.sqrt(var)
         z = self._z
         hr = np.exp(b)
@@ -362,16 +365,7 @@ class ParametricFit(Result, LevelFromConf):
         Covariance by the delta method with the Jacobian of :attr:`time_ratios`
         (d/db = -1/alpha; d/d log alpha = b/alpha for a free Weibull shape).
         """
-        if self.model == "piecewise":
-            raise ModelError("time ratios", "the piecewise-constant model has no "
-                             "accelerated-failure-time reading", "fit a Weibull model")
-        sl = self._beta_index
-        b = self.params[sl]
-        alpha = self.shape_value
-        jac = np.zeros((b.shape[0], self.params.shape[0]))
-        jac[:, sl] = -np.eye(b.shape[0]) / alpha
-        if self.model == "weibull" and self.fixed_shape is None:
-            jac[:, 1] = b / alpha
+        b, alpha, jac = self._aft_jacobian()
         return Estimates(model=self.model, names=tuple(self.labels), estimate=-b / alpha,
                          cov=jac @ self.cov @ jac.T, scale=("log time ratio",) * b.shape[0],
                          level=self.conf)
