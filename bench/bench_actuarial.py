@@ -18,7 +18,7 @@ resident memory just before):
 
 - decrement table by plan and tenure month from the Parquet file:
   ``retain.models.decrements.decrement_table(path, by="plan")`` (DuckDB,
-  sql/exposure_tenure.sql) vs the same difference-array aggregation written
+  sql/models/exposure_tenure.sql) vs the same difference-array aggregation written
   in pandas (read_parquet + groupby), results compared;
 - actual vs expected by plan and tenure month against a decrement-table basis
   (built from another 1M-row sample): ``actual_vs_expected(path, basis,
@@ -96,7 +96,7 @@ def write_parquet(n: int, seed: int = 20261202) -> Path:
 
 # ---------------------------------------------------------------- pandas versions
 def pandas_decrements(path: Path):
-    """The same difference-array aggregation as sql/exposure_tenure.sql, in pandas."""
+    """The same difference-array aggregation as sql/models/exposure_tenure.sql, in pandas."""
     import pandas as pd
 
     df = pd.read_parquet(path, columns=["plan", "start", "stop", "churned", "cause", "weight"])

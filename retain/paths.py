@@ -1,5 +1,8 @@
 """Where the project's non-Python files live (sql/, site_templates/, demo_data/).
 
+``sql/`` holds the preparation steps; ``sql/models/`` the models' SQL (the resource
+package ``retain._sql.models``).
+
 The top-level folders of the repository are the source of truth. pyproject.toml
 maps each onto a resource package inside retain (``retain._sql``,
 ``retain._site_templates``, ``retain._demo_data``), so both a normal wheel and an

@@ -156,7 +156,7 @@ def test_compress_table_on_any_arrow_start_stop_table(con):
                    "event_ignore", "reason_from", "reason_to", "reason_ignore"}),
     ("states", {"window_start"}), ("troubled", set()), ("sequence", set()), ("spells", set()),
     ("state_input_all", set()), ("state_input_redo", set()),
-    ("exposure_running", set()), ("repeats", set()), ("reorder", set()),
+    ("models/exposure_running", set()), ("repeats", set()), ("reorder", set()),
     ("intervals", {"as_of", "window_start"}),
     ("compress", set()), ("quarantine", set()), ("reconcile", set()),
     ("reason_codes", {"reason_sentences", "reason_codes"}),

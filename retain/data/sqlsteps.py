@@ -1,5 +1,9 @@
 """Run the SQL steps in ``sql/`` by name, with bound parameters.
 
+A step's name is its path under ``sql/`` without ``.sql``: the preparation steps
+sit at the top (``"normalise"``), the models' SQL in ``sql/models/``
+(``"models/exposure_tenure"``).
+
 Python never formats values into SQL text: a step file uses DuckDB's named
 parameters (``$as_of``) and the caller passes them as a dict. A step may name
 relations that an earlier step (or the caller) registered on the connection.
@@ -27,7 +31,7 @@ _PARAM = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
 
 @cache
 def load_step(name: str) -> str:
-    """The text of ``sql/<name>.sql`` (``name`` without the extension)."""
+    """The text of ``sql/<name>.sql`` (``name`` without the extension, folder included)."""
     path = SQL_DIR / f"{name}.sql"
     if not path.exists():
         raise RetainError(str(path), f"SQL step {name!r} does not exist",

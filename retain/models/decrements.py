@@ -22,8 +22,8 @@ q by the same transform as q; survivors on the log scale,
 l_k exp(±z sqrt(Σ_{j<k} d_j / E_j²)) (Poisson variance of the cumulative rate).
 Weights are read as frequency weights (counts of identical rows).
 
-The table is computed in DuckDB (``sql/exposure_tenure.sql``,
-``sql/exposure_calendar.sql``) from a Parquet file, an Arrow table or a
+The table is computed in DuckDB (``sql/models/exposure_tenure.sql``,
+``sql/models/exposure_calendar.sql``) from a Parquet file, an Arrow table or a
 DataFrame, and in numpy (:mod:`retain.kernels.exposure`) from a StartStop;
 the two agree to rounding.
 """
@@ -385,11 +385,12 @@ def exposure_by_band(con: duckdb.DuckDBPyConnection, axis: str, n_bands: int) ->
     "calendar" (calendar months). Two SQL steps: the band totals, then the running sums.
     """
     if axis == "tenure":
-        run_step(con, "exposure_tenure", {"days_per_month": DAYS_PER_MONTH, "n_bands": n_bands},
+        run_step(con, "models/exposure_tenure",
+                 {"days_per_month": DAYS_PER_MONTH, "n_bands": n_bands},
                  create="exposure_bands")
     else:
-        run_step(con, "exposure_calendar", create="exposure_bands")
-    return run_step(con, "exposure_running").df()
+        run_step(con, "models/exposure_calendar", create="exposure_bands")
+    return run_step(con, "models/exposure_running").df()
 
 
 def _duckdb_counts(source: Any, names: tuple[str, ...], axis: str, months: int | None,
@@ -402,9 +403,9 @@ def _duckdb_counts(source: Any, names: tuple[str, ...], axis: str, months: int |
         where = duckdb_input(con, source, names, need_start_date=axis == "calendar")
         facts = check_input(con, where)
         if user_edges is not None:
-            run_step(con, "exposure_bands", {"edges": [float(e) for e in user_edges]},
+            run_step(con, "models/exposure_bands", {"edges": [float(e) for e in user_edges]},
                      create="exposure_bands")
-            raw = run_step(con, "exposure_running").df()
+            raw = run_step(con, "models/exposure_running").df()
         else:
             raw = exposure_by_band(con, axis,
                                    _UNLIMITED_BANDS if months is None else int(months))
@@ -420,11 +421,11 @@ def _duckdb_counts(source: Any, names: tuple[str, ...], axis: str, months: int |
 
 
 def check_input(con: duckdb.DuckDBPyConnection, where: str) -> tuple:
-    """Check the registered ``exposure_input``; return its facts row (sql/exposure_check.sql).
+    """Check the registered ``exposure_input``; its facts row (sql/models/exposure_check.sql).
 
     Raises a DataError naming the first broken contract rule.
     """
-    row = run_step(con, "exposure_check").fetchall()[0]
+    row = run_step(con, "models/exposure_check").fetchall()[0]
     n, missing, order, negative, churned, weight, cause = row[:7]
     if n == 0:
         raise DataError(where, "the table has no rows", "check the filter or the input file")
