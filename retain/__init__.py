@@ -33,6 +33,8 @@ _WHERE: dict[str, str] = {
     "ModelError": "retain.errors",
     "ReconciliationError": "retain.errors",
     "RetainError": "retain.errors",
+    "Estimates": "retain.estimates",
+    "RetentionPrediction": "retain.estimates",
     "cause_specific_cox": "retain.models.competing",
     "cumulative_incidence": "retain.models.competing",
     "fit_cox": "retain.models.cox",
@@ -94,9 +96,11 @@ __all__ = [
     "ConfigError",
     "ConvergenceError",
     "DataError",
+    "Estimates",
     "ModelError",
     "ReconciliationError",
     "RetainError",
+    "RetentionPrediction",
     "StartStop",
 ]
 
@@ -131,6 +135,7 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors only
         ReconciliationError,
         RetainError,
     )
+    from retain.estimates import Estimates, RetentionPrediction
     from retain.models.competing import cause_specific_cox, cumulative_incidence
     from retain.models.cox import fit_cox
     from retain.models.curves import (
