@@ -2,7 +2,7 @@
 
 The hand-worked rows are computed on paper from the definitions in
 Kaplan & Meier (1958), Greenwood (1926) and the (start, stop] convention of
-DESIGN.md; each expected value is written out as a fraction.
+ARCHITECTURE.md; each expected value is written out as a fraction.
 """
 
 from __future__ import annotations

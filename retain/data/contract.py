@@ -7,7 +7,7 @@ match the group prefixes with column patterns (``columns('^[sv]c__.*$')``); a
 test holds every such pattern to the prefixes defined here, so a change on one
 side alone fails.
 
-Columns of the table (DESIGN.md, "The start-stop table"):
+Columns of the table (ARCHITECTURE.md, "The start-stop table"):
 
 ``customer_id``, ``spell``, ``start``, ``stop``, ``churned``, ``cause``,
 ``weight``, ``start_date``

@@ -1,6 +1,6 @@
 """The start-stop table: one validated container that every model reads.
 
-Contract (DESIGN.md): one row per customer, per spell, per interval in which
+Contract (ARCHITECTURE.md): one row per customer, per spell, per interval in which
 every covariate is constant. Intervals are (start, stop] in days of tenure: at
 risk just after ``start`` through ``stop`` inclusive.
 
@@ -213,7 +213,7 @@ def _as_float(name: str, values: Any) -> np.ndarray:
 
 
 class StartStop:
-    """A start-stop survival table that meets the contract in DESIGN.md.
+    """A start-stop survival table that meets the contract in ARCHITECTURE.md.
 
     Build it with :meth:`from_frame`, :meth:`from_arrow`, :meth:`from_parquet`
     or :meth:`from_duckdb`; the constructor takes plain arrays.

@@ -1,6 +1,6 @@
 r"""Cox proportional-hazards kernels on (start, stop] data: pure numpy, no validation.
 
-Convention (DESIGN.md): row :math:`i` is at risk at time :math:`t` when
+Convention (ARCHITECTURE.md): row :math:`i` is at risk at time :math:`t` when
 :math:`\text{start}_i < t \le \text{stop}_i`; a row entering at :math:`t` is not
 at risk at :math:`t`. Time unit: whatever the caller uses (days in retain).
 

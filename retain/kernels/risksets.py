@@ -1,6 +1,6 @@
 """Risk-set index on (start, stop] data: the counts every survival fit starts from.
 
-Convention (DESIGN.md): a row is at risk at time ``t`` when ``start < t <= stop``.
+Convention (ARCHITECTURE.md): a row is at risk at time ``t`` when ``start < t <= stop``.
 A row that enters at ``t`` (``start == t``) is *not* at risk at ``t``; a row that
 stops at ``t`` is. Events at ``t`` are counted before censorings at ``t``: a row
 censored at ``t`` is still in the risk set of the events at ``t``.

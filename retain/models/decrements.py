@@ -190,7 +190,7 @@ def decrement_table(
     Parameters
     ----------
     source : StartStop, pyarrow.Table, pandas.DataFrame, or path to Parquet (glob allowed)
-        A start-stop table meeting the contract (DESIGN.md).
+        A start-stop table meeting the contract (ARCHITECTURE.md).
     by : column name or names, optional
         Segments (e.g. ``"cohort"``, ``"plan"``, ``["channel", "region"]``). A
         time-varying column splits each customer's exposure by the value in force.
