@@ -597,11 +597,6 @@ class CohortTable(Result, LevelFromConf):
         return pd.DataFrame(self.retention, index=pd.Index(self.cohorts, name="cohort"),
                             columns=pd.Index(self.months, name="month"))
 
-    def churn_rate_frame(self) -> pd.DataFrame:
-        """Wide form of the monthly churn rate."""
-        return pd.DataFrame(self.churn_rate, index=pd.Index(self.cohorts, name="cohort"),
-                            columns=pd.Index(self.months, name="month"))
-
     def summary(self) -> str:
         obs = np.isfinite(self.retention)
         return (f"Cohort retention: {len(self.cohorts)} cohorts x {len(self.months)} months, "

@@ -84,20 +84,6 @@ class Design:
         """``X - means`` (a new array)."""
         return self.X.copy() if self.is_centred else self.X - self.means
 
-    def column_of(self, covariate: str, level: str | None = None) -> int:
-        """Index of the column for a numeric covariate, or for one level of a categorical."""
-        if covariate not in self.terms:
-            raise DataError(self.source, f"covariate {covariate!r} is not in the model",
-                            f"choose one of: {', '.join(self.covariates)}")
-        if covariate in self.reference:
-            name = f"{covariate}={level}"
-            if name not in self.columns:
-                raise DataError(self.source, f"{covariate} level {level!r} has no column "
-                                f"(reference is {self.reference[covariate]!r})",
-                                f"choose one of: {', '.join(self.levels[covariate][1:])}")
-            return self.columns.index(name)
-        return self.terms[covariate].start
-
     # ------------------------------------------------------------ new rows
     def rows_for(self, profile: Mapping[str, object]) -> np.ndarray:
         """Design rows for a covariate profile.

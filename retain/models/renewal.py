@@ -571,10 +571,6 @@ class RenewalBacktest(Result):
         held = self.periods > self.train_periods
         return float(np.nanmean(np.abs(self.relative_error[held]))) if held.any() else math.nan
 
-    @property
-    def covered(self) -> np.ndarray:
-        return (self.observed >= self.lower) & (self.observed <= self.upper)
-
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame({"period": self.periods, "observed_survival": self.observed,
                              "projected_survival": self.projected, "lower": self.lower,
