@@ -276,3 +276,23 @@ def test_pages_print_the_level_the_result_carries(whas):
     assert interval_text(0.1, 0.2, lambda v: f"{v:.1f}") == "95 % interval 0.1 to 0.2"
     assert level_text(0.999) == "99.9 %"
     assert levels_text([fit, fit_exponential(whas, COV)]) == "90 % / 95 %"
+
+
+@pytest.mark.parametrize("name", PREDICTS)
+def test_prediction_limits_at_any_level_nest(fits, name):
+    """predict_retention(level=...) computes the limits on demand: 90 % inside 95 % inside 99 %."""
+    fit = fits[name]
+    call = (lambda lv: fit.predict_retention(TIMES, level=lv)) if name == "renewal" else \
+        (lambda lv: fit.predict_retention(PROFILE, TIMES, level=lv))
+    p90, p95, p99 = (call(lv) for lv in LEVELS)
+    assert (p90.level, p95.level, p99.level) == LEVELS
+    np.testing.assert_array_equal(p95.lower, _predict(name, fit).lower)  # default: the fit's
+    inner = p95.survival < 1  # at tenure 0 (before any churn) the limits are the point 1
+    assert inner.sum() >= 5
+    for a, b in ((p99, p95), (p95, p90)):
+        np.testing.assert_array_equal(a.survival, b.survival)
+        assert np.all(a.lower[inner] < b.lower[inner]) and np.all(b.upper[inner] < a.upper[inner])
+    if name == "cox":
+        ref = fit.retention_interval(PROFILE, TIMES, conf=0.90)
+        np.testing.assert_allclose(p90.lower, ref["retention_low"], rtol=1e-14)
+        np.testing.assert_allclose(p90.upper, ref["retention_high"], rtol=1e-14)

@@ -35,7 +35,7 @@ from scipy import stats
 
 from retain.data.table import Categorical, StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
-from retain.estimates import Estimates, RetentionPrediction
+from retain.estimates import Estimates, RetentionPrediction, check_level
 from retain.kernels import cox as K
 from retain.kernels.threads import one_blas_thread
 from retain.models._segments import column_codes
@@ -353,24 +353,26 @@ class CoxFit(Result, LevelFromConf):
         return (self.design.rows_for(profile) - self.design.means) @ self.coef
 
     def predict_retention(self, profile: Mapping[str, object], times: Sequence[float],
-                          stratum: str | None = None) -> RetentionPrediction:
+                          stratum: str | None = None, level: float | None = None
+                          ) -> RetentionPrediction:
         """Retention curve :math:`S(t\\mid x)` from tenure 0 for a covariate profile.
 
         The profile is held fixed over time. ``times`` in days of tenure.
         ``extrapolated`` marks times after the stratum's last churn (the
         baseline is flat there). ``lower`` / ``upper`` are the pointwise
-        log-log limits of :meth:`retention_interval` at the fit's level.
+        log-log limits of :meth:`retention_interval` at ``level`` (default the fit's).
         """
+        lv = self.conf if level is None else check_level(level, "retention prediction")
         s = self._stratum_code(stratum)
         x = self._profile_row(profile)
         t = np.asarray(times, dtype=float)
         H = self._cumhaz_at(s, t) * np.exp(x @ self.coef)
         _, H_iv, se = self._cumhaz_se(x, t, s)
-        low, high = _retention_limits(H_iv, se, self.conf, "log-log")
+        low, high = _retention_limits(H_iv, se, lv, "log-log")
         last = self._last_time(s)
         return RetentionPrediction(
             model="Cox", times=t, survival=np.exp(-H), lower=low, upper=high,
-            level=self.conf, extrapolated=t > last, cumulative_hazard=H, follow_up=last,
+            level=lv, extrapolated=t > last, cumulative_hazard=H, follow_up=last,
             profile={k: to_jsonable(v) for k, v in dict(profile).items()},
             filled={} if stratum is None else {"stratum": self.stratum_labels[s]})
 

@@ -51,7 +51,7 @@ from scipy import stats
 
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
-from retain.estimates import Estimates, RetentionPrediction
+from retain.estimates import Estimates, RetentionPrediction, check_level, z_value
 from retain.kernels import parametric as K
 from retain.kernels.exposure import exposure_by_row
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
@@ -496,16 +496,19 @@ class ParametricFit(Result, LevelFromConf):
         return self.predict_retention(profile, times).hazard
 
     def predict_retention(self, profile: Mapping[str, Any] | None = None,
-                          times: Sequence[float] | np.ndarray | None = None) -> RetentionPrediction:
+                          times: Sequence[float] | np.ndarray | None = None,
+                          level: float | None = None) -> RetentionPrediction:
         """Retention S(t|x), hazard and cumulative hazard at tenures ``times`` (days).
 
         ``times`` default: every month up to twice the longest observed tenure.
         Times past the data are allowed; the result's warning says how far.
-        Intervals: log H +- z se (delta method) mapped to S = exp(-H).
+        Intervals at ``level`` (default the fit's): log H +- z se (delta method)
+        mapped to S = exp(-H).
         """
         x, prof, filled = self._profile_row(profile)
         t = self._prediction_times(times)
-        z = self._z
+        lv = self.conf if level is None else check_level(level, "retention prediction")
+        z = z_value(lv)
         pos = t > 0
         tp = np.where(pos, t, 1.0)
         lh, jh = K.log_cumulative_hazard(self.model, self.params, x, tp, self._cuts)
@@ -528,7 +531,7 @@ class ParametricFit(Result, LevelFromConf):
         return RetentionPrediction(
             model=self.model, profile=prof, filled=filled, times=t, survival=surv,
             lower=lower, upper=upper, hazard=hz, hazard_lower=hz_lo, hazard_upper=hz_hi,
-            cumulative_hazard=H, level=self.conf, follow_up=self.follow_up,
+            cumulative_hazard=H, level=lv, follow_up=self.follow_up,
             extrapolated=t > self.follow_up, warnings=tuple(warnings))
 
     def warnings_for(self, reach_days: float, what: str) -> tuple[str, ...]:

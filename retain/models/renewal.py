@@ -40,7 +40,7 @@ from scipy import stats
 
 from retain.data.table import StartStop
 from retain.errors import ConvergenceError, DataError, ModelError
-from retain.estimates import Estimates, RetentionPrediction
+from retain.estimates import Estimates, RetentionPrediction, check_level, z_value
 from retain.kernels import renewal as R
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
 from retain.results import LevelFromConf, Result
@@ -290,11 +290,13 @@ class RenewalFit(Result, LevelFromConf):
         return R.sbg_retention_rate(self.alpha, self.beta, t)
 
     def project(self, periods: int | Sequence[int] = 12, *,
-                cohort_size: float = 1000.0) -> RenewalProjection:
+                cohort_size: float = 1000.0, level: float | None = None) -> RenewalProjection:
         """Survival and retention rates for renewals 0..periods (or the given list).
 
-        A warning says how many periods past the observed ones it reaches.
+        Intervals at ``level`` (default the fit's). A warning says how many
+        periods past the observed ones it reaches.
         """
+        lv = self.conf if level is None else check_level(level, "renewal projection")
         if isinstance(periods, (int, np.integer)):
             if periods < 1:
                 raise DataError("renewal projection", "periods must be >= 1", "pass e.g. 12")
@@ -306,7 +308,7 @@ class RenewalFit(Result, LevelFromConf):
                                 "pass e.g. range(13)")
         surv = self.survival(t)
         # delta method on log(-log S(t)); d log S / d theta by the kernel's formulas
-        z = self._z
+        z = z_value(lv)
         lo = np.ones_like(surv)
         hi = np.ones_like(surv)
         for i, ti in enumerate(t):
@@ -331,9 +333,10 @@ class RenewalFit(Result, LevelFromConf):
             warnings.append(f"projects {beyond} {unit} past the {self.n_periods} observed")
         return RenewalProjection(self.label, t.astype(np.float64), surv, lo, hi, rates,
                                  surv * cohort_size, float(cohort_size), observed, obs_at,
-                                 self.period_days, self.conf, tuple(warnings))
+                                 self.period_days, lv, tuple(warnings))
 
-    def predict_retention(self, times: Sequence[float] | np.ndarray) -> RetentionPrediction:
+    def predict_retention(self, times: Sequence[float] | np.ndarray,
+                          level: float | None = None) -> RetentionPrediction:
         """Retention at tenures ``times`` (days; renewal periods when the fit has no
         ``period_days``): S of the renewals completed by then, with the log(-log)
         limits of :meth:`project`. Times past the observed periods are flagged."""
@@ -343,10 +346,10 @@ class RenewalFit(Result, LevelFromConf):
                             "pass e.g. numpy.arange(0, 731, 30.4375)")
         unit = self.period_days or 1.0
         periods = np.floor(t / unit + 1e-9).astype(np.int64)
-        pr = self.project(periods.tolist())
+        pr = self.project(periods.tolist(), level=level)
         return RetentionPrediction(
             model="shifted-beta-geometric", times=t, survival=pr.survival, lower=pr.lower,
-            upper=pr.upper, level=self.conf, extrapolated=periods > self.n_periods,
+            upper=pr.upper, level=pr.conf, extrapolated=periods > self.n_periods,
             cumulative_hazard=-np.log(pr.survival), follow_up=self.n_periods * unit,
             profile={"segment": self.label}, warnings=pr.warnings)
 
