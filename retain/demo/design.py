@@ -257,31 +257,6 @@ def _coef_vec(cause: str, name: str, levels: list[str]) -> np.ndarray:
     return np.array([float(c[lv]) for lv in levels])
 
 
-_KEY = np.int64(1 << 22)  # > any tenure day; spell * _KEY + day is a sort key
-
-
-def _lookup(ev_key: np.ndarray, ev_val: np.ndarray, q_key: np.ndarray,
-            q_spell: np.ndarray, default: np.ndarray) -> np.ndarray:
-    """Value of the last event at or before each query (same spell), else the default."""
-    out = default[q_spell].copy()
-    if ev_key.size == 0:
-        return out
-    idx = np.searchsorted(ev_key, q_key, side="right") - 1
-    ok = idx >= 0
-    ok[ok] = ev_key[idx[ok]] >= q_spell[ok].astype(np.int64) * _KEY
-    out[ok] = ev_val[idx[ok]]
-    return out
-
-
-def _sorted_unique(x: np.ndarray) -> np.ndarray:
-    x = np.sort(x)
-    return x[np.r_[True, x[1:] != x[:-1]]] if x.size else x
-
-
-def _group_starts(sorted_ids: np.ndarray, n: int) -> np.ndarray:
-    return np.searchsorted(sorted_ids, np.arange(n + 1))
-
-
 def _prices_cents() -> np.ndarray:
     p = TRUTH["plans"]
     before = np.rint(np.array(p["list_price_before_rise"]) * 100).astype(np.int64)
