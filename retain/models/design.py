@@ -227,6 +227,30 @@ def design_matrix(
     """
     where = table.source
     covariates = [covariates] if isinstance(covariates, str) else list(covariates)
+    reference = dict(reference or {})
+    _check_covariate_names(table, covariates, reference)
+    w = table.weight
+    coded = _code_covariates(table, covariates, reference, w)
+    gram = None
+    if order == "F":
+        X, means = _fill_columns(coded.blocks, w, table.n_rows, centre)
+    elif order == "C":
+        X, means, gram = _fill_row_bands(coded.blocks, w, table.n_rows, centre, check_collinear)
+    else:
+        raise ValueError(f"order must be 'F' or 'C', got {order!r}")
+    coded.blocks.clear()  # the indicator columns are in X now
+    design = Design(X=X, columns=tuple(coded.columns), labels=tuple(coded.labels),
+                    covariates=tuple(covariates), terms=coded.terms, reference=coded.refs,
+                    levels=coded.levels, means=means, source=where, is_centred=bool(centre))
+    if check_collinear:
+        _check_collinear(design, w, gram)
+    return design
+
+
+def _check_covariate_names(table: StartStop, covariates: list[str],
+                           reference: Mapping[str, str]) -> None:
+    """Each covariate named once and present; references only for covariates."""
+    where = table.source
     seen: set[str] = set()
     for c in covariates:
         if c in seen:
@@ -236,105 +260,129 @@ def design_matrix(
             raise DataError(where, f"there is no column {c!r}",
                             "choose covariates from: "
                             f"{', '.join(table.covariate_names) or '(none)'}")
-    reference = dict(reference or {})
     for c in reference:
         if c not in covariates:
             raise DataError(where, f"a reference level is given for {c!r}, "
                             "which is not a covariate",
                             f"covariates are: {', '.join(covariates) or '(none)'}")
-    w = table.weight
-    blocks: list[np.ndarray] = []
-    columns: list[str] = []
-    labels: list[str] = []
-    terms: dict[str, slice] = {}
-    refs: dict[str, str] = {}
-    levels: dict[str, tuple[str, ...]] = {}
+
+
+@dataclass
+class _CodedColumns:
+    """The columns of a design before they are laid out in ``X``."""
+
+    blocks: list[np.ndarray] = field(default_factory=list)
+    columns: list[str] = field(default_factory=list)
+    labels: list[str] = field(default_factory=list)
+    terms: dict[str, slice] = field(default_factory=dict)
+    refs: dict[str, str] = field(default_factory=dict)
+    levels: dict[str, tuple[str, ...]] = field(default_factory=dict)
+
+
+def _code_covariates(table: StartStop, covariates: list[str], reference: Mapping[str, str],
+                     w: np.ndarray) -> _CodedColumns:
+    """One block (column source) per coefficient, with its names, in covariate order."""
+    out = _CodedColumns()
     for c in covariates:
         col = table.column(c)
-        start = len(columns)
+        start = len(out.columns)
         if isinstance(col, Categorical):
-            _check_missing(where, c, col.codes < 0)
-            counts = np.bincount(col.codes, weights=w, minlength=len(col.levels))
-            present = [i for i in range(len(col.levels)) if counts[i] > 0]
-            if len(present) < 2:
-                only = col.levels[present[0]] if present else "(none)"
-                raise DataError(where, f"covariate {c!r} has no variation (every row is {only!r})",
-                                f"drop {c!r} from the covariates or fit within one level")
-            if c in reference:
-                ref = str(reference[c])
-                if ref not in col.levels or counts[col.levels.index(ref)] == 0:
-                    have = ", ".join(col.levels[i] for i in present)
-                    raise DataError(where, f"reference level {ref!r} of {c!r} does not occur",
-                                    f"choose one of: {have}")
-                ref_code = col.levels.index(ref)
-            else:
-                # most common by weight; np.argmax returns the first maximum = first in sort order
-                ref_code = int(np.argmax(counts))
-                ref = col.levels[ref_code]
-            others = [i for i in present if i != ref_code]
-            refs[c] = ref
-            levels[c] = (ref,) + tuple(col.levels[i] for i in others)
-            for i in others:
-                blocks.append(col.codes == i)
-                columns.append(f"{c}={col.levels[i]}")
-                labels.append(f"{c} {col.levels[i]} vs {ref}")
+            _code_categorical(table.source, c, col, reference, w, out)
         else:
-            if c in reference:
-                raise DataError(where, f"a reference level is given for numeric covariate {c!r}",
-                                "reference levels apply to categorical covariates only")
-            lowest, highest = float(col.min()), float(col.max())  # NaN/inf show up here
-            if not (np.isfinite(lowest) and np.isfinite(highest)):
-                _check_missing(where, c, ~np.isfinite(col))
-            if lowest == highest:
-                raise DataError(where, f"covariate {c!r} has no variation "
-                                f"(every row is {col[0]:g})",
-                                f"drop {c!r} from the covariates")
-            blocks.append(col)
-            columns.append(c)
-            labels.append(f"{c} (per unit)")
-        terms[c] = slice(start, len(columns))
-    p = len(blocks)
-    n = table.n_rows
-    wsum = float(w.sum())
-    gram = None
-    if order == "F":
-        X = np.empty((n, p), dtype=np.float64, order="F")
-        for j, block in enumerate(blocks):
-            X[:, j] = block
-        means = (w @ X) / wsum if p else np.zeros(0)
-        if centre:
-            X -= means
-    elif order == "C":
-        means = np.array([w[b].sum() if b.dtype == bool else np.dot(w, b) for b in blocks]) \
-            / wsum if p else np.zeros(0)
-        shift = means if centre else np.zeros(p)
-        # a band of rows at a time, so each band stays in cache while its columns land
-        # and while it adds to the weighted cross-product for the collinearity check
-        X = np.empty((n, p), dtype=np.float64, order="C")
-        gram = np.zeros((p, p)) if check_collinear else None
-        band = 1 << 14
-        Y = np.empty((min(band, n), p))
-        sw = np.sqrt(w) if check_collinear else w
-        for a in range(0, n, band):
-            Xb = X[a:a + band]
-            for j, block in enumerate(blocks):
-                np.subtract(block[a:a + band], shift[j], out=Xb[:, j])
-            if gram is not None:
-                Yb = Y[:Xb.shape[0]]
-                np.multiply(Xb, sw[a:a + band, None], out=Yb)
-                if not centre:
-                    Yb -= means * sw[a:a + band, None]
-                gram += Yb.T @ Yb
-        del Y, sw
+            _code_numeric(table.source, c, col, reference, out)
+        out.terms[c] = slice(start, len(out.columns))
+    return out
+
+
+def _code_categorical(where: str, c: str, col: Categorical, reference: Mapping[str, str],
+                      w: np.ndarray, out: _CodedColumns) -> None:
+    """Indicator blocks for every present level but the reference."""
+    _check_missing(where, c, col.codes < 0)
+    counts = np.bincount(col.codes, weights=w, minlength=len(col.levels))
+    present = [i for i in range(len(col.levels)) if counts[i] > 0]
+    if len(present) < 2:
+        only = col.levels[present[0]] if present else "(none)"
+        raise DataError(where, f"covariate {c!r} has no variation (every row is {only!r})",
+                        f"drop {c!r} from the covariates or fit within one level")
+    if c in reference:
+        ref = str(reference[c])
+        if ref not in col.levels or counts[col.levels.index(ref)] == 0:
+            have = ", ".join(col.levels[i] for i in present)
+            raise DataError(where, f"reference level {ref!r} of {c!r} does not occur",
+                            f"choose one of: {have}")
+        ref_code = col.levels.index(ref)
     else:
-        raise ValueError(f"order must be 'F' or 'C', got {order!r}")
-    del blocks
-    design = Design(X=X, columns=tuple(columns), labels=tuple(labels),
-                    covariates=tuple(covariates), terms=terms, reference=refs, levels=levels,
-                    means=means, source=where, is_centred=bool(centre))
-    if check_collinear:
-        _check_collinear(design, w, gram)
-    return design
+        # most common by weight; np.argmax returns the first maximum = first in sort order
+        ref_code = int(np.argmax(counts))
+        ref = col.levels[ref_code]
+    others = [i for i in present if i != ref_code]
+    out.refs[c] = ref
+    out.levels[c] = (ref,) + tuple(col.levels[i] for i in others)
+    for i in others:
+        out.blocks.append(col.codes == i)
+        out.columns.append(f"{c}={col.levels[i]}")
+        out.labels.append(f"{c} {col.levels[i]} vs {ref}")
+
+
+def _code_numeric(where: str, c: str, col: np.ndarray, reference: Mapping[str, str],
+                  out: _CodedColumns) -> None:
+    """A numeric covariate as one block, as is."""
+    if c in reference:
+        raise DataError(where, f"a reference level is given for numeric covariate {c!r}",
+                        "reference levels apply to categorical covariates only")
+    lowest, highest = float(col.min()), float(col.max())  # NaN/inf show up here
+    if not (np.isfinite(lowest) and np.isfinite(highest)):
+        _check_missing(where, c, ~np.isfinite(col))
+    if lowest == highest:
+        raise DataError(where, f"covariate {c!r} has no variation "
+                        f"(every row is {col[0]:g})",
+                        f"drop {c!r} from the covariates")
+    out.blocks.append(col)
+    out.columns.append(c)
+    out.labels.append(f"{c} (per unit)")
+
+
+def _fill_columns(blocks: list[np.ndarray], w: np.ndarray, n: int,
+                  centre: bool) -> tuple[np.ndarray, np.ndarray]:
+    """``X`` in Fortran order, a column at a time, and the weighted column means."""
+    p = len(blocks)
+    wsum = float(w.sum())
+    X = np.empty((n, p), dtype=np.float64, order="F")
+    for j, block in enumerate(blocks):
+        X[:, j] = block
+    means = (w @ X) / wsum if p else np.zeros(0)
+    if centre:
+        X -= means
+    return X, means
+
+
+def _fill_row_bands(blocks: list[np.ndarray], w: np.ndarray, n: int, centre: bool,
+                    check_collinear: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """``X`` in C order, the weighted column means and (when ``check_collinear``) the
+    weighted cross-product of the centred columns, summed band by band."""
+    p = len(blocks)
+    wsum = float(w.sum())
+    means = np.array([w[b].sum() if b.dtype == bool else np.dot(w, b) for b in blocks]) \
+        / wsum if p else np.zeros(0)
+    shift = means if centre else np.zeros(p)
+    # a band of rows at a time, so each band stays in cache while its columns land
+    # and while it adds to the weighted cross-product for the collinearity check
+    X = np.empty((n, p), dtype=np.float64, order="C")
+    gram = np.zeros((p, p)) if check_collinear else None
+    band = 1 << 14
+    Y = np.empty((min(band, n), p))
+    sw = np.sqrt(w) if check_collinear else w
+    for a in range(0, n, band):
+        Xb = X[a:a + band]
+        for j, block in enumerate(blocks):
+            np.subtract(block[a:a + band], shift[j], out=Xb[:, j])
+        if gram is not None:
+            Yb = Y[:Xb.shape[0]]
+            np.multiply(Xb, sw[a:a + band, None], out=Yb)
+            if not centre:
+                Yb -= means * sw[a:a + band, None]
+            gram += Yb.T @ Yb
+    return X, means, gram
 
 
 def weighted_correlation(X: np.ndarray, w: np.ndarray, means: np.ndarray | float,
