@@ -158,34 +158,123 @@ class SimSpells:
                         self.horizon).astype(np.int64)
 
 
+def _plan_changes(rng: np.random.Generator, sid: np.ndarray, H: np.ndarray,
+                  plan0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Plan changes: their sort keys ``spell * _KEY + day`` and the plan each moves to."""
+    span = np.maximum(H - 1, 0)
+    k = rng.poisson(TRUTH["processes"]["plan_change"]["rate_per_day"] * span)
+    ps = np.repeat(sid, k)
+    pday = 1 + np.floor(rng.random(ps.size) * span[ps]).astype(np.int64)
+    pstep = 1 + (rng.random(ps.size) < 0.5).astype(np.int64)
+    pkey = ps * _KEY + pday
+    o = np.argsort(pkey, kind="stable")
+    pkey, ps, pstep = pkey[o], ps[o], pstep[o]
+    new = np.r_[True, pkey[1:] != pkey[:-1]][: pkey.size]
+    pkey, ps, pstep = pkey[new], ps[new], pstep[new]
+    cs = np.cumsum(pstep)
+    gst = _group_starts(ps, sid.size)
+    base = np.concatenate([[0], cs])[gst[:-1]]
+    return pkey, (plan0[ps] + cs - base[ps]) % 3
+
+
+def _winter_pauses(rng: np.random.Generator, sid: np.ndarray, start_day: np.ndarray,
+                   H: np.ndarray, region: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Winter pauses: (spell, tenure day of the pause, tenure day of the resume), sorted."""
+    n = sid.size
+    wp = TRUTH["processes"]["winter_pause"]
+    y0 = int(str(np.datetime64(int(start_day.min()), "D"))[:4]) - 1 if n else 2023
+    y1 = int(str(np.datetime64(int((start_day + H).max()), "D"))[:4]) if n else 2023
+    preg = np.array([wp["probability_by_region"][r] for r in _levels("regions")])
+    lo, hi = wp["duration_days"]
+    pl_s, pl_tp, pl_tr = [], [], []
+    for y in range(y0, y1 + 1):
+        dec1 = _day(f"{y}-12-01")
+        pday_ = dec1 + rng.integers(0, wp["spread_days"] + 1, n)
+        u = rng.random(n)
+        dur = rng.integers(lo, hi + 1, n)
+        tp = pday_ - start_day
+        ok = (tp >= 1) & (tp <= H - 1) & (u < preg[region])
+        pl_s.append(sid[ok])
+        pl_tp.append(tp[ok])
+        pl_tr.append(tp[ok] + dur[ok])
+    pz_s = np.concatenate(pl_s)
+    pz_tp = np.concatenate(pl_tp)
+    pz_tr = np.concatenate(pl_tr)
+    o = np.argsort(pz_s * _KEY + pz_tp, kind="stable")
+    return pz_s[o], pz_tp[o], pz_tr[o]
+
+
+def _payment_failures(rng: np.random.Generator, sid: np.ndarray, H: np.ndarray
+                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Payment failures as an alternating renewal: (spell, failure day, recovery day)."""
+    pf = TRUTH["processes"]["payment_failure"]
+    cursor = np.zeros(sid.size, np.int64)
+    active = sid.copy()
+    fl_s, fl_f, fl_r = [], [], []
+    while active.size:
+        f = cursor[active] + rng.geometric(pf["p_fail_per_day"], active.size)
+        keep = f <= H[active] - 1
+        active, f = active[keep], f[keep]
+        r = f + rng.geometric(pf["p_recover_per_day"], active.size)
+        fl_s.append(active)
+        fl_f.append(f)
+        fl_r.append(r)
+        cursor[active] = r
+    fz_s = np.concatenate(fl_s) if fl_s else np.zeros(0, np.int64)
+    fz_f = np.concatenate(fl_f) if fl_f else np.zeros(0, np.int64)
+    fz_r = np.concatenate(fl_r) if fl_r else np.zeros(0, np.int64)
+    o = np.argsort(fz_s * _KEY + fz_f, kind="stable")
+    return fz_s[o], fz_f[o], fz_r[o]
+
+
+def _apart(pauses: tuple[np.ndarray, np.ndarray, np.ndarray],
+           failures: tuple[np.ndarray, np.ndarray, np.ndarray], n: int
+           ) -> tuple[tuple[np.ndarray, ...], tuple[np.ndarray, ...]]:
+    """A pause does not start on a day in recovery; a failure on a paused day is dropped."""
+    pz_s, pz_tp, pz_tr = pauses
+    fz_s, fz_f, fz_r = failures
+    if not (pz_s.size and fz_s.size):
+        return pauses, failures
+    fkey = fz_s * _KEY + fz_f
+    lastf = _lookup(fkey, np.arange(fz_s.size), pz_s * _KEY + pz_tp, pz_s,
+                    np.full(n, -1, np.int64))
+    inrec = np.zeros(pz_s.size, bool)
+    okf = lastf >= 0
+    inrec[okf] = pz_tp[okf] <= fz_r[lastf[okf]]
+    pz_s, pz_tp, pz_tr = pz_s[~inrec], pz_tp[~inrec], pz_tr[~inrec]
+    lastp = _lookup(pz_s * _KEY + pz_tp, np.arange(pz_s.size), fkey, fz_s,
+                    np.full(n, -1, np.int64))
+    drop = np.zeros(fz_s.size, bool)
+    okp = lastp >= 0
+    drop[okp] = fz_f[okp] <= pz_tr[lastp[okp]]
+    return (pz_s, pz_tp, pz_tr), (fz_s[~drop], fz_f[~drop], fz_r[~drop])
+
+
+def _state_stream(H: np.ndarray, s: np.ndarray, on: np.ndarray, off: np.ndarray
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """A 0/1 state's changes as sorted keys and values (a change on day d holds for
+    tenure > d); an end on or after the horizon is left out."""
+    offok = off <= H[s] - 1
+    ks = np.concatenate([s * _KEY + on, s[offok] * _KEY + off[offok]])
+    vs = np.concatenate([np.ones(s.size, np.int64), np.zeros(int(offok.sum()), np.int64)])
+    o = np.argsort(ks, kind="stable")
+    return ks[o], vs[o]
+
+
 def _simulate_round(rng: np.random.Generator, *, customer: np.ndarray, start_day: np.ndarray,
                     plan0: np.ndarray, prior: np.ndarray, discount: np.ndarray,
                     horizon: np.ndarray, channel: np.ndarray, region: np.ndarray,
                     arm: np.ndarray, sw: SimSwitches) -> SimSpells:
     n = customer.size
     H = horizon.astype(np.int64)
-    proc = TRUTH["processes"]
     sid = np.arange(n, dtype=np.int64)
 
-    # plan changes -------------------------------------------------------------------
+    none = np.zeros(0, np.int64)
     if sw.plan_changes:
-        span = np.maximum(H - 1, 0)
-        k = rng.poisson(proc["plan_change"]["rate_per_day"] * span)
-        ps = np.repeat(sid, k)
-        pday = 1 + np.floor(rng.random(ps.size) * span[ps]).astype(np.int64)
-        pstep = 1 + (rng.random(ps.size) < 0.5).astype(np.int64)
-        pkey = ps * _KEY + pday
-        o = np.argsort(pkey, kind="stable")
-        pkey, ps, pstep = pkey[o], ps[o], pstep[o]
-        new = np.r_[True, pkey[1:] != pkey[:-1]][: pkey.size]
-        pkey, ps, pstep = pkey[new], ps[new], pstep[new]
-        cs = np.cumsum(pstep)
-        gst = _group_starts(ps, n)
-        base = np.concatenate([[0], cs])[gst[:-1]]
-        pval = (plan0[ps] + cs - base[ps]) % 3
+        pkey, pval = _plan_changes(rng, sid, H, plan0)
     else:
-        pkey = np.zeros(0, np.int64)
-        pval = np.zeros(0, np.int64)
+        pkey, pval = none, none
 
     # price rise and discount end ------------------------------------------------------
     rise_t = _day(TRUTH["dates"]["price_rise"]) - start_day
@@ -196,81 +285,11 @@ def _simulate_round(rng: np.random.Generator, *, customer: np.ndarray, start_day
     disc = discount & sw.intro_discount
     disc_in = disc & (ddays <= H - 1)
 
-    # winter pauses --------------------------------------------------------------------
-    wp = proc["winter_pause"]
-    if sw.pauses:
-        y0 = int(str(np.datetime64(int(start_day.min()), "D"))[:4]) - 1 if n else 2023
-        y1 = int(str(np.datetime64(int((start_day + H).max()), "D"))[:4]) if n else 2023
-        preg = np.array([wp["probability_by_region"][r] for r in _levels("regions")])
-        lo, hi = wp["duration_days"]
-        pl_s, pl_tp, pl_tr = [], [], []
-        for y in range(y0, y1 + 1):
-            dec1 = _day(f"{y}-12-01")
-            pday_ = dec1 + rng.integers(0, wp["spread_days"] + 1, n)
-            u = rng.random(n)
-            dur = rng.integers(lo, hi + 1, n)
-            tp = pday_ - start_day
-            ok = (tp >= 1) & (tp <= H - 1) & (u < preg[region])
-            pl_s.append(sid[ok])
-            pl_tp.append(tp[ok])
-            pl_tr.append(tp[ok] + dur[ok])
-        pz_s = np.concatenate(pl_s)
-        pz_tp = np.concatenate(pl_tp)
-        pz_tr = np.concatenate(pl_tr)
-        o = np.argsort(pz_s * _KEY + pz_tp, kind="stable")
-        pz_s, pz_tp, pz_tr = pz_s[o], pz_tp[o], pz_tr[o]
-    else:
-        pz_s = pz_tp = pz_tr = np.zeros(0, np.int64)
-
-    # payment failures (alternating renewal) -------------------------------------------
-    pf = proc["payment_failure"]
-    if sw.payment_failures:
-        cursor = np.zeros(n, np.int64)
-        active = sid.copy()
-        fl_s, fl_f, fl_r = [], [], []
-        while active.size:
-            f = cursor[active] + rng.geometric(pf["p_fail_per_day"], active.size)
-            keep = f <= H[active] - 1
-            active, f = active[keep], f[keep]
-            r = f + rng.geometric(pf["p_recover_per_day"], active.size)
-            fl_s.append(active)
-            fl_f.append(f)
-            fl_r.append(r)
-            cursor[active] = r
-        fz_s = np.concatenate(fl_s) if fl_s else np.zeros(0, np.int64)
-        fz_f = np.concatenate(fl_f) if fl_f else np.zeros(0, np.int64)
-        fz_r = np.concatenate(fl_r) if fl_r else np.zeros(0, np.int64)
-        o = np.argsort(fz_s * _KEY + fz_f, kind="stable")
-        fz_s, fz_f, fz_r = fz_s[o], fz_f[o], fz_r[o]
-    else:
-        fz_s = fz_f = fz_r = np.zeros(0, np.int64)
-
-    # a pause does not start on a day in recovery; a failure on a paused day is dropped
-    if pz_s.size and fz_s.size:
-        fkey = fz_s * _KEY + fz_f
-        lastf = _lookup(fkey, np.arange(fz_s.size), pz_s * _KEY + pz_tp, pz_s,
-                        np.full(n, -1, np.int64))
-        inrec = np.zeros(pz_s.size, bool)
-        okf = lastf >= 0
-        inrec[okf] = pz_tp[okf] <= fz_r[lastf[okf]]
-        pz_s, pz_tp, pz_tr = pz_s[~inrec], pz_tp[~inrec], pz_tr[~inrec]
-        lastp = _lookup(pz_s * _KEY + pz_tp, np.arange(pz_s.size), fkey, fz_s,
-                        np.full(n, -1, np.int64))
-        drop = np.zeros(fz_s.size, bool)
-        okp = lastp >= 0
-        drop[okp] = fz_f[okp] <= pz_tr[lastp[okp]]
-        fz_s, fz_f, fz_r = fz_s[~drop], fz_f[~drop], fz_r[~drop]
-
-    # state streams (change on day d holds for tenure > d) -------------------------------
-    def stream(s, on, off):
-        offok = off <= H[s] - 1
-        ks = np.concatenate([s * _KEY + on, s[offok] * _KEY + off[offok]])
-        vs = np.concatenate([np.ones(s.size, np.int64), np.zeros(int(offok.sum()), np.int64)])
-        o = np.argsort(ks, kind="stable")
-        return ks[o], vs[o], s[offok], off[offok]
-
-    pkey2, pval2, rs_s, rs_d = stream(pz_s, pz_tp, pz_tr)
-    fkey2, fval2, rc_s, rc_d = stream(fz_s, fz_f, fz_r)
+    pauses = _winter_pauses(rng, sid, start_day, H, region) if sw.pauses else (none,) * 3
+    failures = _payment_failures(rng, sid, H) if sw.payment_failures else (none,) * 3
+    pauses, failures = _apart(pauses, failures, n)
+    pkey2, pval2 = _state_stream(H, *pauses)
+    fkey2, fval2 = _state_stream(H, *failures)
 
     # grid of change days ----------------------------------------------------------------
     gkeys = _sorted_unique(np.concatenate([

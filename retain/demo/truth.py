@@ -260,29 +260,10 @@ def km_limit(n_customers: int = 4_000_000, *, seed: int = 2, chunk: int = 125_00
     return out
 
 
-def true_reference_values(n_customers: int = 1_000_000, n_experiment: int = 200_000, *,
-                          seed: int = 7, days: tuple[int, ...] = RETENTION_DAYS,
-                          experiment_horizon: int = 365) -> dict[str, Any]:
-    """Quantities of the truth that need simulation (large, uncensored runs).
-
-    Retention: ``n_customers`` customers drawn as in :func:`generate_log`, every
-    spell followed ``max(days) + 1`` days with no calendar window and no
-    censoring; retention ``P(T > t)`` by plan at the spell's start (first spells,
-    and all spells): the mean over spells of :func:`conditional_retention` (the
-    closed-form survival given each simulated covariate path), with its Monte
-    Carlo standard error (standard deviation over spells / sqrt(spells)).
-    Cumulative incidence of each cause at the same days (share of spells).
-    These are marginal over calendar time; what a Kaplan–Meier curve on a
-    windowed, censored log estimates is :func:`km_limit`.
-
-    Experiment: ``n_experiment`` customers whose first signup is drawn from the
-    2025-03 signup weights, randomised as in the log; first spells followed
-    ``experiment_horizon`` days. Restricted mean lifetime ``E[min(T, h)]`` and
-    revenue per assigned customer to ``h`` (sum over days alive of the monthly
-    price / 30.4375, pauses included, and pauses excluded), per arm and the
-    difference intro_discount - standard; both for the latent continuous ``T``
-    and for the recorded churn day ``ceil(T)`` (what the start-stop table holds).
-    """
+def _retention_truth(n_customers: int, seed: int, days: tuple[int, ...]
+                     ) -> tuple[dict[str, Any], dict[str, Any]]:
+    """Retention by plan (first spells and all spells) and the first spells' cumulative
+    incidence by cause, uncensored: see :func:`true_reference_values`."""
     rng = np.random.Generator(np.random.PCG64(seed))
     dates = TRUTH["dates"]
     cap = int(max(days)) + 1
@@ -315,8 +296,13 @@ def true_reference_values(n_customers: int = 1_000_000, n_experiment: int = 200_
     for code, name in ((0, "voluntary"), (1, "involuntary")):
         cif[name] = {str(d): round(float(np.mean((sp.t <= d) & (sp.cause == code) & first)
                                          / np.mean(first)), 5) for d in days}
+    return retention, cif
 
-    # experiment
+
+def _experiment_truth(n_experiment: int, seed: int, experiment_horizon: int
+                      ) -> dict[str, Any]:
+    """The experiment's true lifetimes and revenue by arm: see :func:`true_reference_values`."""
+    dates = TRUTH["dates"]
     rng2 = np.random.Generator(np.random.PCG64(seed + 1))
     ex = TRUTH["experiment"]
     ce = _draw_customers(rng2, n_experiment, dates["log_start"], dates["as_of"],
@@ -373,6 +359,34 @@ def true_reference_values(n_customers: int = 1_000_000, n_experiment: int = 200_
         for k in list(v):
             if isinstance(v[k], float):
                 v[k] = round(v[k], 4)
+    return experiment
+
+
+def true_reference_values(n_customers: int = 1_000_000, n_experiment: int = 200_000, *,
+                          seed: int = 7, days: tuple[int, ...] = RETENTION_DAYS,
+                          experiment_horizon: int = 365) -> dict[str, Any]:
+    """Quantities of the truth that need simulation (large, uncensored runs).
+
+    Retention: ``n_customers`` customers drawn as in :func:`generate_log`, every
+    spell followed ``max(days) + 1`` days with no calendar window and no
+    censoring; retention ``P(T > t)`` by plan at the spell's start (first spells,
+    and all spells): the mean over spells of :func:`conditional_retention` (the
+    closed-form survival given each simulated covariate path), with its Monte
+    Carlo standard error (standard deviation over spells / sqrt(spells)).
+    Cumulative incidence of each cause at the same days (share of spells).
+    These are marginal over calendar time; what a Kaplan–Meier curve on a
+    windowed, censored log estimates is :func:`km_limit`.
+
+    Experiment: ``n_experiment`` customers whose first signup is drawn from the
+    2025-03 signup weights, randomised as in the log; first spells followed
+    ``experiment_horizon`` days. Restricted mean lifetime ``E[min(T, h)]`` and
+    revenue per assigned customer to ``h`` (sum over days alive of the monthly
+    price / 30.4375, pauses included, and pauses excluded), per arm and the
+    difference intro_discount - standard; both for the latent continuous ``T``
+    and for the recorded churn day ``ceil(T)`` (what the start-stop table holds).
+    """
+    retention, cif = _retention_truth(n_customers, seed, days)
+    experiment = _experiment_truth(n_experiment, seed, experiment_horizon)
     return {
         "call": f"true_reference_values(n_customers={n_customers}, "
                 f"n_experiment={n_experiment}, seed={seed}, days={tuple(days)}, "
