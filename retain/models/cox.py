@@ -834,21 +834,8 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
              reference: Mapping[str, str] | None, robust: bool, conf: float,
              max_iter: int, missing: str = "stop") -> CoxFit:
     where = f"Cox model on {table.source}"
-    if ties not in TIES:
-        raise ModelError(where, f"unknown tie method {ties!r}", "use 'efron' or 'breslow'")
-    if not 0 < conf < 1:
-        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}", "use e.g. 0.95")
-    if not (np.isfinite(penalty) and penalty >= 0):
-        raise ModelError(where, f"penalty must be >= 0, got {penalty!r}", "use 0 for no penalty")
-    strata_t: tuple[str, ...] = () if strata is None else \
-        ((strata,) if isinstance(strata, str) else tuple(strata))
-    covariates = [covariates] if isinstance(covariates, str) else list(covariates)
-    clash = [s for s in strata_t if s in covariates]
-    if clash:
-        raise DataError(where, f"{clash[0]!r} is both a covariate and a stratum",
-                        "a stratum gets its own baseline; drop it from the covariates")
-    for s in strata_t:
-        table.column(s)
+    _check_cox_options(where, ties, conf, penalty)
+    covariates, strata_t = _covariates_and_strata(where, table, covariates, strata)
     n_in = table.n_rows
     table, dropped, kept = apply_missing_rule(table, [*covariates, *strata_t], missing, where)
     if offset is not None and not isinstance(offset, str) and dropped.rows:
@@ -868,26 +855,11 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     p = design.n_columns
     if p == 0:
         raise ModelError(where, "no covariates", "name at least one covariate")
-    off = None
-    if offset is not None:
-        off = table.numeric(offset) if isinstance(offset, str) else np.asarray(offset, float)
-        if off.shape != (table.n_rows,) or not np.all(np.isfinite(off)):
-            raise DataError(where, "the offset must be finite with one value per row",
-                            "check the offset column")
+    off = _offset_values(where, table, offset)
     warn: list[str] = [dropped.summary()] if dropped.any else []
     stratum, stratum_labels = _stratum_codes(table, strata_t)
-    ev_by_stratum = (np.bincount(stratum, weights=w * d, minlength=len(stratum_labels))
-                     if strata_t else np.array([n_events]))
-    for s, e in enumerate(ev_by_stratum):
-        if e <= 0:
-            warn.append(f"stratum {stratum_labels[s]} has no churns: its rows do not inform the "
-                        "hazard ratios and it has no baseline")
-    _check_separation(where, table, design, w, d, penalty, warn)
-    epp = n_events / p
-    if epp < MIN_EVENTS_PER_PARAMETER:
-        warn.append(f"only {epp:.1f} churns per coefficient ({n_events:g} churns, {p} "
-                    f"coefficients); about {MIN_EVENTS_PER_PARAMETER:g} or more is common "
-                    "practice: estimates may be biased and intervals too narrow")
+    epp = _warn_thin_data(where, table, design, w, d, n_events, bool(strata_t), stratum,
+                          stratum_labels, penalty, warn)
     Xc = design.X
     index = K.build_risk_index(table.start, table.stop, d, w, stratum, len(stratum_labels))
     efron = ties == "efron"
@@ -898,40 +870,9 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
 
     res = K.newton_cox(index, Xc, w, d, off, efron, penalty, max_iter=max_iter,
                        check_info0=check_info0)
-    size = np.abs(res.params)
-    for j in np.flatnonzero(size > 1.0):  # |beta| x sd only where it could be large
-        size[j] *= np.sqrt(np.dot(w * Xc[:, j], Xc[:, j]) / w.sum())
-    if not res.converged:
-        big = np.flatnonzero(size > SEPARATION_SIZE)
-        if big.size:
-            j = int(big[0])
-            raise ModelError(where, f"{design.labels[j]}: the coefficient grows without bound "
-                             "(perfect or quasi separation: churn is fully predicted along this "
-                             "covariate)", "merge sparse levels, drop the covariate, or set a "
-                             "penalty (e.g. penalty=1)")
-        raise ConvergenceError(where, f"Newton-Raphson did not converge in {res.iterations} "
-                               "iterations", "check the iteration history, rescale numeric "
-                               "covariates, or set a small penalty",
-                               history=[h.as_row() for h in res.history])
-    big = np.flatnonzero(size > SEPARATION_SIZE)
-    for j in big:
-        warn.append(f"{design.labels[j]}: very large coefficient ({res.params[j]:.2f}); possible "
-                    "quasi separation -- merge levels or use a penalty")
-    try:
-        cov_model = np.linalg.inv(res.info)
-    except np.linalg.LinAlgError as exc:
-        raise ModelError(where, "the information matrix is singular", "drop collinear "
-                         "covariates or set a penalty") from exc
-    if table.has_customers:
-        cluster = table.cluster
-        clusters = "customer"
-    else:
-        cluster = None
-        clusters = "row"
-        warn.append("the table has no customer_id (e.g. compressed): robust errors treat each "
-                    "row (times its weight) as independent, not clustered by customer")
-    cov_robust = _robust_cov(index, Xc, w, d, res.params, off, efron, cluster, cov_model,
-                             res.state)
+    _check_coefficient_sizes(where, res, design, Xc, w, warn)
+    cov_model, cov_robust, cluster, clusters = _cox_covariances(where, table, index, Xc, w, d,
+                                                                res, off, efron, warn)
     se_model = np.sqrt(np.diag(cov_model))
     se_robust = np.sqrt(np.diag(cov_robust))
     se = se_robust if robust else se_model
@@ -940,14 +881,8 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     z = res.params / se
     pval = 2 * stats.norm.sf(np.abs(z))
     lr = 2 * (res.loglik - res.start_loglik)
-    try:
-        wald = float(res.params @ np.linalg.solve(cov, res.params))
-    except np.linalg.LinAlgError:
-        wald = float("nan")
-    try:
-        score = float(res.start_grad @ np.linalg.solve(res.start_info, res.start_grad))
-    except np.linalg.LinAlgError:
-        score = float("nan")
+    wald = _quadratic_form(res.params, cov)
+    score = _quadratic_form(res.start_grad, res.start_info)
     if penalty:
         warn.append(f"L2 penalty {penalty:g}: coefficients are shrunk towards 0 and the tests use "
                     "the penalised log likelihood")
@@ -971,6 +906,120 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         warnings=tuple(warn), source=table.source, design=design, _index=index, _Xc=Xc,
         _weight=w, _churned=d, _offset=off, _dH0=dH0, _xbar=xbar, _table=table, missing=dropped,
     )
+
+
+def _check_cox_options(where: str, ties: str, conf: float, penalty: float) -> None:
+    if ties not in TIES:
+        raise ModelError(where, f"unknown tie method {ties!r}", "use 'efron' or 'breslow'")
+    if not 0 < conf < 1:
+        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}", "use e.g. 0.95")
+    if not (np.isfinite(penalty) and penalty >= 0):
+        raise ModelError(where, f"penalty must be >= 0, got {penalty!r}", "use 0 for no penalty")
+
+
+def _covariates_and_strata(where: str, table: StartStop, covariates: Sequence[str],
+                           strata: str | Sequence[str] | None
+                           ) -> tuple[list[str], tuple[str, ...]]:
+    """Both as sequences; no name in both; every stratum column exists."""
+    strata_t: tuple[str, ...] = () if strata is None else \
+        ((strata,) if isinstance(strata, str) else tuple(strata))
+    covariates = [covariates] if isinstance(covariates, str) else list(covariates)
+    clash = [s for s in strata_t if s in covariates]
+    if clash:
+        raise DataError(where, f"{clash[0]!r} is both a covariate and a stratum",
+                        "a stratum gets its own baseline; drop it from the covariates")
+    for s in strata_t:
+        table.column(s)
+    return covariates, strata_t
+
+
+def _offset_values(where: str, table: StartStop,
+                   offset: str | np.ndarray | None) -> np.ndarray | None:
+    """The offset as one finite value per row (a column name or an array), or None."""
+    if offset is None:
+        return None
+    off = table.numeric(offset) if isinstance(offset, str) else np.asarray(offset, float)
+    if off.shape != (table.n_rows,) or not np.all(np.isfinite(off)):
+        raise DataError(where, "the offset must be finite with one value per row",
+                        "check the offset column")
+    return off
+
+
+def _warn_thin_data(where: str, table: StartStop, design: Design, w: np.ndarray, d: np.ndarray,
+                    n_events: float, stratified: bool, stratum: np.ndarray,
+                    stratum_labels: tuple[str, ...], penalty: float, warn: list[str]) -> float:
+    """Warnings for strata without churns, separation and few churns per coefficient;
+    returns the churns per coefficient."""
+    ev_by_stratum = (np.bincount(stratum, weights=w * d, minlength=len(stratum_labels))
+                     if stratified else np.array([n_events]))
+    for s, e in enumerate(ev_by_stratum):
+        if e <= 0:
+            warn.append(f"stratum {stratum_labels[s]} has no churns: its rows do not inform the "
+                        "hazard ratios and it has no baseline")
+    _check_separation(where, table, design, w, d, penalty, warn)
+    p = design.n_columns
+    epp = n_events / p
+    if epp < MIN_EVENTS_PER_PARAMETER:
+        warn.append(f"only {epp:.1f} churns per coefficient ({n_events:g} churns, {p} "
+                    f"coefficients); about {MIN_EVENTS_PER_PARAMETER:g} or more is common "
+                    "practice: estimates may be biased and intervals too narrow")
+    return epp
+
+
+def _check_coefficient_sizes(where: str, res: K.NewtonSolution, design: Design,
+                             Xc: np.ndarray, w: np.ndarray, warn: list[str]) -> None:
+    """Separation (|beta| x sd of the column) as an error when Newton did not converge,
+    as a warning when it did; other failures to converge raise ConvergenceError."""
+    size = np.abs(res.params)
+    for j in np.flatnonzero(size > 1.0):  # |beta| x sd only where it could be large
+        size[j] *= np.sqrt(np.dot(w * Xc[:, j], Xc[:, j]) / w.sum())
+    if not res.converged:
+        big = np.flatnonzero(size > SEPARATION_SIZE)
+        if big.size:
+            j = int(big[0])
+            raise ModelError(where, f"{design.labels[j]}: the coefficient grows without bound "
+                             "(perfect or quasi separation: churn is fully predicted along this "
+                             "covariate)", "merge sparse levels, drop the covariate, or set a "
+                             "penalty (e.g. penalty=1)")
+        raise ConvergenceError(where, f"Newton-Raphson did not converge in {res.iterations} "
+                               "iterations", "check the iteration history, rescale numeric "
+                               "covariates, or set a small penalty",
+                               history=[h.as_row() for h in res.history])
+    big = np.flatnonzero(size > SEPARATION_SIZE)
+    for j in big:
+        warn.append(f"{design.labels[j]}: very large coefficient ({res.params[j]:.2f}); possible "
+                    "quasi separation -- merge levels or use a penalty")
+
+
+def _cox_covariances(where: str, table: StartStop, index: K.RiskIndex, Xc: np.ndarray,
+                     w: np.ndarray, d: np.ndarray, res: K.NewtonSolution,
+                     off: np.ndarray | None, efron: bool, warn: list[str]
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, str]:
+    """Model-based and robust covariance, the cluster codes and what a cluster is."""
+    try:
+        cov_model = np.linalg.inv(res.info)
+    except np.linalg.LinAlgError as exc:
+        raise ModelError(where, "the information matrix is singular", "drop collinear "
+                         "covariates or set a penalty") from exc
+    if table.has_customers:
+        cluster = table.cluster
+        clusters = "customer"
+    else:
+        cluster = None
+        clusters = "row"
+        warn.append("the table has no customer_id (e.g. compressed): robust errors treat each "
+                    "row (times its weight) as independent, not clustered by customer")
+    cov_robust = _robust_cov(index, Xc, w, d, res.params, off, efron, cluster, cov_model,
+                             res.state)
+    return cov_model, cov_robust, cluster, clusters
+
+
+def _quadratic_form(v: np.ndarray, A: np.ndarray) -> float:
+    """``v' A^-1 v`` (a Wald or score statistic), NaN when ``A`` is singular."""
+    try:
+        return float(v @ np.linalg.solve(A, v))
+    except np.linalg.LinAlgError:
+        return float("nan")
 
 
 def _robust_cov(index: K.RiskIndex, Xc: np.ndarray, w: np.ndarray, d: np.ndarray,
