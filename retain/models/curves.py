@@ -646,21 +646,7 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
     if not (isinstance(months, (int, np.integer)) and months >= 1):
         raise ModelError(where, f"months must be a positive whole number, got {months!r}",
                          "e.g. months=24")
-    if table.has(cohort):
-        col = table.column(cohort)
-        if not isinstance(col, Categorical):
-            raise DataError(where, f"column {cohort!r} must be text 'YYYY-MM'",
-                            "store the cohort as text")
-        codes, levels = col.codes, col.levels
-    elif table.start_date is not None:
-        cat = Categorical.from_values(
-            pd.Series(table.start_date.astype("datetime64[M]").astype(str)).to_numpy())
-        codes, levels = cat.codes, cat.levels
-    else:
-        raise DataError(where, f"the table has neither a {cohort!r} column nor start_date",
-                        "prepare the table with retain.data.prepare, which adds both")
-    if table.has_customers:
-        codes = codes[first_of_spell(table.customer.codes, table.spell, table.start)]
+    codes, levels = _cohort_codes(table, cohort, where)
     exits = _exits(table)
     grid = np.arange(1, months + 1, dtype=np.float64) * DAYS_PER_MONTH
     edges = np.concatenate(([0.0], grid))
@@ -692,42 +678,11 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
             reach = last_day - float(start_day[mask].min())
         else:
             reach = float(sub.stop.max())
-        c = _km(sub, z, float(conf), ci, levels[code], ex)
-        s = _step_lookup(c.times, c.survival, grid, 1.0)
-        lo = _step_lookup(c.times, c.lower, grid, 1.0)
-        hi = _step_lookup(c.times, c.upper, grid, 1.0)
-        n_at = at_risk_at(sub.start, sub.stop, sub.weight, grid)
-        entered[code] = c.first_entry
-        if c.first_entry > 0:
-            warnings.append(f"cohort {levels[code]} entered observation at tenure "
-                            f"{c.first_entry:g} days: its cells are retention conditional on "
-                            "being active then")
-        # observable: reachable by the last day, after entry, someone at risk (or all gone)
-        seen = ((grid <= reach + 1e-9) & (grid > c.first_entry)
-                & ((n_at > 0) | (s <= 0)))
-        out["retention"][code] = np.where(seen, s, np.nan)
-        out["lower"][code] = np.where(seen, lo, np.nan)
-        out["upper"][code] = np.where(seen, hi, np.nan)
-        out["at_risk"][code] = np.where(seen, n_at, np.nan)
-        # churns and exposure per month of tenure
-        ev = sub.churned == 1
-        month_of = np.searchsorted(edges, sub.stop[ev], side="left") - 1  # (e_k, e_k+1]
-        inside = month_of < months
-        churns = np.bincount(month_of[inside], weights=sub.weight[ev][inside], minlength=months)
-        expo = np.diff(exposure_to(sub.start, sub.stop, sub.weight, edges)) / DAYS_PER_MONTH
-        open_ = (edges[:-1] < reach) & (expo > 0)
-        out["churns"][code] = np.where(open_, churns, np.nan)
-        out["exposure"][code] = np.where(open_, expo, np.nan)
-        out["rate"][code] = np.where(open_, churns / np.where(expo > 0, expo, 1.0), np.nan)
+        entered[code] = _cohort_km_cells(out, code, sub, ex, reach, grid, z, float(conf), ci,
+                                         levels[code], warnings)
+        _cohort_monthly_churns(out, code, sub, reach, edges, months)
     rows = np.array(keep_rows, dtype=np.int64)
-    alpha = 1.0 - float(conf)
-    d = out["churns"]
-    e = out["exposure"]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rate_lo = np.where(d > 0, stats.chi2.ppf(alpha / 2, 2 * d) / 2, 0.0) / e
-        rate_hi = stats.chi2.ppf(1 - alpha / 2, 2 * (d + 1)) / 2 / e
-    rate_lo[~np.isfinite(out["rate"])] = np.nan
-    rate_hi[~np.isfinite(out["rate"])] = np.nan
+    rate_lo, rate_hi = _churn_rate_limits(out, float(conf))
     missing = codes < 0
     if missing.any():
         warnings.append(f"{int(missing.sum())} rows have no cohort and are left out")
@@ -740,6 +695,77 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
         as_of_basis=basis, warnings=tuple(warnings),
     )
 
+
+def _cohort_codes(table: StartStop, cohort: str, where: str
+                  ) -> tuple[np.ndarray, Sequence[str]]:
+    """Each row's cohort code (of its spell's first row) and the cohort labels."""
+    if table.has(cohort):
+        col = table.column(cohort)
+        if not isinstance(col, Categorical):
+            raise DataError(where, f"column {cohort!r} must be text 'YYYY-MM'",
+                            "store the cohort as text")
+        codes, levels = col.codes, col.levels
+    elif table.start_date is not None:
+        cat = Categorical.from_values(
+            pd.Series(table.start_date.astype("datetime64[M]").astype(str)).to_numpy())
+        codes, levels = cat.codes, cat.levels
+    else:
+        raise DataError(where, f"the table has neither a {cohort!r} column nor start_date",
+                        "prepare the table with retain.data.prepare, which adds both")
+    if table.has_customers:
+        codes = codes[first_of_spell(table.customer.codes, table.spell, table.start)]
+    return codes, levels
+
+
+def _cohort_km_cells(out: dict[str, np.ndarray], code: int, sub: StartStop,
+                     ex: np.ndarray | None, reach: float, grid: np.ndarray, z: float,
+                     conf: float, ci: str, label: str, warnings: list[str]) -> float:
+    """Fill one cohort's retention, limits and at-risk cells; returns its entry tenure."""
+    c = _km(sub, z, conf, ci, label, ex)
+    s = _step_lookup(c.times, c.survival, grid, 1.0)
+    lo = _step_lookup(c.times, c.lower, grid, 1.0)
+    hi = _step_lookup(c.times, c.upper, grid, 1.0)
+    n_at = at_risk_at(sub.start, sub.stop, sub.weight, grid)
+    if c.first_entry > 0:
+        warnings.append(f"cohort {label} entered observation at tenure "
+                        f"{c.first_entry:g} days: its cells are retention conditional on "
+                        "being active then")
+    # observable: reachable by the last day, after entry, someone at risk (or all gone)
+    seen = ((grid <= reach + 1e-9) & (grid > c.first_entry)
+            & ((n_at > 0) | (s <= 0)))
+    out["retention"][code] = np.where(seen, s, np.nan)
+    out["lower"][code] = np.where(seen, lo, np.nan)
+    out["upper"][code] = np.where(seen, hi, np.nan)
+    out["at_risk"][code] = np.where(seen, n_at, np.nan)
+    return c.first_entry
+
+
+def _cohort_monthly_churns(out: dict[str, np.ndarray], code: int, sub: StartStop, reach: float,
+                           edges: np.ndarray, months: int) -> None:
+    """Fill one cohort's churns, exposure (customer-months) and rate per month of tenure."""
+    ev = sub.churned == 1
+    month_of = np.searchsorted(edges, sub.stop[ev], side="left") - 1  # (e_k, e_k+1]
+    inside = month_of < months
+    churns = np.bincount(month_of[inside], weights=sub.weight[ev][inside], minlength=months)
+    expo = np.diff(exposure_to(sub.start, sub.stop, sub.weight, edges)) / DAYS_PER_MONTH
+    open_ = (edges[:-1] < reach) & (expo > 0)
+    out["churns"][code] = np.where(open_, churns, np.nan)
+    out["exposure"][code] = np.where(open_, expo, np.nan)
+    out["rate"][code] = np.where(open_, churns / np.where(expo > 0, expo, 1.0), np.nan)
+
+
+def _churn_rate_limits(out: dict[str, np.ndarray], conf: float
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Exact Poisson (Garwood 1936) limits of the monthly churn rates; NaN where no rate."""
+    alpha = 1.0 - conf
+    d = out["churns"]
+    e = out["exposure"]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rate_lo = np.where(d > 0, stats.chi2.ppf(alpha / 2, 2 * d) / 2, 0.0) / e
+        rate_hi = stats.chi2.ppf(1 - alpha / 2, 2 * (d + 1)) / 2 / e
+    rate_lo[~np.isfinite(out["rate"])] = np.nan
+    rate_hi[~np.isfinite(out["rate"])] = np.nan
+    return rate_lo, rate_hi
 
 # --------------------------------------------------------------------------- time grid
 @dataclass(frozen=True, eq=False)
