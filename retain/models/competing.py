@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from retain.data.table import CAUSES, StartStop
+from retain.data.table import CAUSES, Categorical, StartStop
 from retain.errors import DataError, ModelError
 from retain.estimates import DEFAULT_LEVEL, Estimates
 from retain.kernels.incidence import aalen_johansen, risk_and_events
@@ -440,7 +440,24 @@ def fine_gray(
     if cause not in causes:
         raise ModelError(where, f"there are no {cause} churns", "choose a cause with churns")
     target = causes.index(cause) + 1
-    # one subject per (customer, spell)
+    rows = _spell_last_rows(table, covariates, where)
+    m = rows.shape[0]
+    base = table.take(rows)
+    status = np.where(base.churned == 1, kind[rows], 0)
+    w = base.weight
+    expanded = _weighted_risk_rows(base, status, target)
+    expanded.source = f"{table.source} (Fine-Gray rows for {cause})"
+    fit = fit_cox(expanded, covariates, ties="breslow", **options)
+    hr = fit.hazard_ratios
+    return SubdistributionCox(fit=fit, frame=hr, cause=cause, covariates=tuple(covariates),
+                              n_spells=m, n_events=float(np.sum(w[status == target])),
+                              n_competing=float(np.sum(w[(status > 0) & (status != target)])),
+                              n_rows_expanded=expanded.n_rows, warnings=tuple(fit.warnings))
+
+
+def _spell_last_rows(table: StartStop, covariates: Sequence[str], where: str) -> np.ndarray:
+    """The last row of each spell (one subject per customer and spell), in spell order;
+    checks that every spell starts at tenure 0 and covariates stay fixed within it."""
     key = table.customer.codes.astype(np.int64) * (int(table.spell.max()) + 1) + table.spell
     spells, spell_of = np.unique(key, return_inverse=True)
     m = spells.shape[0]
@@ -458,10 +475,16 @@ def fine_gray(
         if not np.array_equal(vals, vals[rows][spell_of], equal_nan=vals.dtype.kind == "f"):
             raise DataError(where, f"covariate {name!r} changes within a spell",
                             "Fine-Gray needs time-fixed covariates; use cause-specific Cox")
-    base = table.take(rows)
+    return rows
+
+
+def _weighted_risk_rows(base: StartStop, status: np.ndarray, target: int) -> StartStop:
+    """One row (0, T] per subject of ``base``, plus, for a subject ended by a competing
+    cause before the last target churn, weighted rows between the censoring curve's
+    jumps after T (weight G(low) / G(T-)) up to that churn."""
     T = base.stop
-    status = np.where(base.churned == 1, kind[rows], 0)
     w = base.weight
+    m = T.shape[0]
     c_times, g = censoring_weights(T, status, w)
 
     def g_at(t: np.ndarray) -> np.ndarray:  # right-continuous G(t)
@@ -489,8 +512,6 @@ def fine_gray(
     keep = wt > 0
     rep, low, up, wt = rep[keep], low[keep], up[keep], wt[keep]
     subject = np.concatenate([np.arange(m), rep])
-    from retain.data.table import Categorical
-
     expanded = base.take(subject)
     expanded.start = np.concatenate([np.zeros(m), low])
     expanded.stop = np.concatenate([T, up])
@@ -500,10 +521,4 @@ def fine_gray(
     expanded.customer = Categorical(subject.astype(np.int32), tuple(str(i) for i in range(m)))
     expanded.has_customers = True
     expanded.spell = np.ones(subject.shape[0], dtype=np.int64)
-    expanded.source = f"{table.source} (Fine-Gray rows for {cause})"
-    fit = fit_cox(expanded, covariates, ties="breslow", **options)
-    hr = fit.hazard_ratios
-    return SubdistributionCox(fit=fit, frame=hr, cause=cause, covariates=tuple(covariates),
-                              n_spells=m, n_events=float(np.sum(w[status == target])),
-                              n_competing=float(np.sum(w[(status > 0) & (status != target)])),
-                              n_rows_expanded=expanded.n_rows, warnings=tuple(fit.warnings))
+    return expanded
