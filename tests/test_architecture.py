@@ -7,6 +7,8 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
+from retain.data.sqlsteps import step_name
+
 REPO = Path(__file__).resolve().parent.parent
 ARCH = (REPO / "ARCHITECTURE.md").read_text(encoding="utf-8")
 
@@ -18,7 +20,7 @@ def _run_order_steps() -> set[str]:
 
 
 def test_every_preparation_step_is_in_the_run_order_table() -> None:
-    on_disk = {p.stem for p in (REPO / "sql").glob("*.sql")}
+    on_disk = {step_name(p) for p in (REPO / "sql").glob("*.sql")}
     listed = _run_order_steps()
     assert on_disk == listed, (f"missing from ARCHITECTURE.md: {sorted(on_disk - listed)}; "
                                f"no such file: {sorted(listed - on_disk)}")

@@ -19,6 +19,7 @@ import pytest
 from retain.data import contract
 from retain.data.config import CORE_OUTPUT, DERIVED
 from retain.data.table import CAUSES, CORE_COLUMNS
+from retain.data.sqlsteps import step_name, step_path
 from retain.paths import SQL_DIR
 
 # (kind, varies, ratio) of every attribute the project file can declare
@@ -67,7 +68,7 @@ def _sql_patterns() -> set[tuple[str, str]]:
     found = set()
     for path in sorted(SQL_DIR.glob("*.sql")):
         for pattern in re.findall(r"columns\('([^']*)'\)", path.read_text(encoding="utf-8")):
-            found.add((path.name, pattern))
+            found.add((f"{step_name(path)}.sql", pattern))
     return found
 
 
@@ -107,7 +108,7 @@ def test_sql_placeholders_are_the_contract_ones() -> None:
                                                + contract.PLACEHOLDER}
     assert written and written <= allowed, written - allowed
     # intervals drops every placeholder before its window
-    exclude = re.search(r"exclude \(([^)]*)\)", (SQL_DIR / "intervals.sql").read_text())
+    exclude = re.search(r"exclude \(([^)]*)\)", step_path("intervals").read_text())
     assert exclude is not None
     assert {c.strip() for c in exclude.group(1).split(",")} == set(contract.placeholders())
 

@@ -198,13 +198,13 @@ def _sql_reasons() -> set[str]:
     """Every reason sentence the SQL steps can write: the text literals after ``then`` in
     normalise.sql and sequence.sql, and the literal that repeats.sql casts as its reason
     (read from the files, so a new reason cannot slip past)."""
-    from retain.paths import SQL_DIR
+    from retain.data.sqlsteps import step_path
 
     found: set[str] = set()
     for name in ("normalise", "sequence"):
-        text = re.sub(r"--[^\n]*", "", (SQL_DIR / f"{name}.sql").read_text(encoding="utf-8"))
+        text = re.sub(r"--[^\n]*", "", step_path(name).read_text(encoding="utf-8"))
         found |= {m.replace("''", "'") for m in re.findall(r"\bthen\s+'((?:[^']|'')*)'", text)}
-    text = (SQL_DIR / "repeats.sql").read_text(encoding="utf-8")
+    text = step_path("repeats").read_text(encoding="utf-8")
     found |= set(re.findall(r"cast\('([^']*)' as varchar\) as reason", text))
     return found
 

@@ -6,7 +6,7 @@ on: it never changes with the wording), the sentence the SQL steps write into
 is in the order the rules are tried (DEVELOPERS.md, "Preparation rules"): the
 first reason that applies to a row is its reason.
 
-:func:`prepare` loads it onto the DuckDB connection (``sql/reason_codes.sql``)
+:func:`prepare` loads it onto the DuckDB connection (``sql/01_reason_codes.sql``)
 so the quarantine table carries ``quarantine_code`` beside ``quarantine_reason``
 and the reconciliation counts rows by code as well as by sentence.
 """
@@ -70,6 +70,6 @@ def code_of(sentence: str) -> str:
 
 
 def reason_parameters() -> dict[str, list[str]]:
-    """The bound parameters of ``sql/reason_codes.sql``."""
+    """The bound parameters of ``sql/01_reason_codes.sql``."""
     return {"reason_sentences": [r.sentence for r in REASONS],
             "reason_codes": [r.code for r in REASONS]}

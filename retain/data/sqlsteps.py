@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import re
 from functools import cache
+from pathlib import Path
 from typing import Any
 
 import duckdb
@@ -29,14 +30,30 @@ _KINDS = {
 _PARAM = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
 
 
+def step_path(name: str) -> Path:
+    """The file of step ``name``: ``sql/<name>.sql``, or ``sql/NN_<name>.sql`` where the
+    preparation steps carry their place in the run order (ARCHITECTURE.md); ``name`` is
+    without the number and the extension, its folder included (``models/exposure_tenure``)."""
+    path = SQL_DIR / f"{name}.sql"
+    if path.exists():
+        return path
+    numbered = sorted(path.parent.glob(f"[0-9][0-9]_{path.name}"))
+    if len(numbered) != 1:
+        raise RetainError(str(path), f"SQL step {name!r} does not exist"
+                          + (" (more than one numbered file)" if numbered else ""),
+                          "this is a bug in retain: the step list names a missing file")
+    return numbered[0]
+
+
+def step_name(path: Path) -> str:
+    """The step a file under ``sql/`` holds: its stem without the run-order number."""
+    return re.sub(r"^\d\d_", "", Path(path).stem)
+
+
 @cache
 def load_step(name: str) -> str:
-    """The text of ``sql/<name>.sql`` (``name`` without the extension, folder included)."""
-    path = SQL_DIR / f"{name}.sql"
-    if not path.exists():
-        raise RetainError(str(path), f"SQL step {name!r} does not exist",
-                          "this is a bug in retain: the step list names a missing file")
-    return path.read_text(encoding="utf-8")
+    """The text of step ``name`` (see :func:`step_path`)."""
+    return step_path(name).read_text(encoding="utf-8")
 
 
 def step_parameters(name: str) -> set[str]:
