@@ -157,6 +157,16 @@ class Result:
         return type(self).__name__
 
 
+class OneRowFrame:
+    """Mixin for a result that is one record: its table form is that record as one row.
+
+    List it before :class:`Result` (``class X(OneRowFrame, Result)``).
+    """
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([self.to_dict()])  # type: ignore[attr-defined]
+
+
 class LevelFromConf:
     """Mixin for results whose confidence level is stored as the field ``conf``.
 
