@@ -34,7 +34,7 @@ from retain.data.config import (
 )
 from retain.data.table import StartStop
 from retain.errors import ConfigError, ModelError, RetainError
-from retain.results import Result, to_jsonable
+from retain.results import OneRowFrame, Result, to_jsonable
 from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
 
 BASE_VALUE_DRAWS = 200  # parameter draws for the base's interval (the residual sum is the cost)
@@ -186,7 +186,7 @@ class RunResults(Result):
 
 # --------------------------------------------------------------------------- book facts
 @dataclass(frozen=True, eq=False)
-class BookSummary(Result):
+class BookSummary(OneRowFrame, Result):
     """Counts that describe the book of customers (no model involved).
 
     ``monthly_churn_rate`` is the crude central rate over the last
@@ -207,9 +207,6 @@ class BookSummary(Result):
     monthly_churn_rate: float
     monthly_churn_q: float
     basis: str
-
-    def to_frame(self) -> pd.DataFrame:
-        return pd.DataFrame([self.to_dict()])
 
     def summary(self) -> str:
         return (f"{self.customers} customers, {self.active:g} active, monthly churn "

@@ -41,7 +41,7 @@ from retain.kernels.threads import one_blas_thread
 from retain.models._segments import column_codes
 from retain.models.design import Design, check_collinear_matrix, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
-from retain.results import LevelFromConf, Result, to_jsonable
+from retain.results import LevelFromConf, OneRowFrame, Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 TIES = ("efron", "breslow")
@@ -54,16 +54,13 @@ SEPARATION_SIZE = 15.0
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True, eq=False)
-class TestStat(Result):
+class TestStat(OneRowFrame, Result):
     """A chi-square test: statistic, degrees of freedom, p-value."""
 
     name: str
     statistic: float
     df: int
     p_value: float
-
-    def to_frame(self) -> pd.DataFrame:
-        return pd.DataFrame([self.to_dict()])
 
     def summary(self) -> str:
         return f"{self.name}: chi2 = {self.statistic:.3f} on {self.df} df, p = {self.p_value:.3g}"
@@ -95,7 +92,7 @@ class ProportionalHazardsTest(Result):
 
 
 @dataclass(frozen=True, eq=False)
-class Concordance(Result):
+class Concordance(OneRowFrame, Result):
     """Harrell's C on start-stop data with its pair counts (weighted).
 
     ``score`` names what was ranked (the Cox linear predictor, or a user's score).
@@ -108,9 +105,6 @@ class Concordance(Result):
     comparable: float
     score: str = "Cox linear predictor"
 
-    def to_frame(self) -> pd.DataFrame:
-        return pd.DataFrame([self.to_dict()])
-
     def summary(self) -> str:
         return (f"Concordance (Harrell's C) of {self.score} = {self.c_index:.3f} over "
                 f"{self.comparable:.0f} comparable pairs judged among those at risk at each "
@@ -118,7 +112,7 @@ class Concordance(Result):
 
 
 @dataclass(frozen=True, eq=False)
-class RemainingLifetime(Result):
+class RemainingLifetime(OneRowFrame, Result):
     """Expected tenure still to come, up to a horizon, for one covariate profile."""
 
     days: float
@@ -129,9 +123,6 @@ class RemainingLifetime(Result):
     last_churn_time: float
     extrapolated: bool
     note: str
-
-    def to_frame(self) -> pd.DataFrame:
-        return pd.DataFrame([self.to_dict()])
 
     def summary(self) -> str:
         return (f"Expected remaining lifetime from tenure {self.from_tenure:g} to {self.horizon:g} "
