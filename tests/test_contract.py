@@ -18,8 +18,8 @@ import pytest
 
 from retain.data import contract
 from retain.data.config import CORE_OUTPUT, DERIVED
-from retain.data.table import CAUSES, CORE_COLUMNS
 from retain.data.sqlsteps import step_name, step_path
+from retain.data.table import CAUSES, CORE_COLUMNS
 from retain.paths import SQL_DIR
 
 # (kind, varies, ratio) of every attribute the project file can declare
