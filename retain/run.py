@@ -256,12 +256,33 @@ def run_table(table: StartStop, options: RunOptions, *, prepared: Any = None,
     def step(name: str, fn: Callable[[], Any]) -> Outcome:
         say(name)
         out[name] = attempt(name, fn)
+        _drop_rows(out, ran=name)
         return out[name]
 
     step(step_names.BOOK, lambda: book_summary(table))
     for name, fn in _model_steps(table, options, out):
         step(name, fn)
     return RunResults(options=options, table=table, outcomes=out, prepared=prepared)
+
+
+# A fit that keeps its table's rows for diagnostics -> the last step that reads them.
+# Once that step has run, the fit's outcome holds only its prediction-only copy
+# (``without_rows()``: estimates, baseline, what codes a profile), so a finished run
+# does not pin the rows through it; the pages read only estimates and the outcomes of
+# the steps that needed the rows (cox:ph, cox:concordance, cox:curve).
+ROWS_READ_UNTIL = {
+    step_names.COX: step_names.COX_CURVE,
+    step_names.CAUSE_COX: step_names.CAUSE_COX,
+}
+
+
+def _drop_rows(out: dict[str, Outcome], ran: str) -> None:
+    """After step ``ran``, swap every fit whose last row reader it was for that fit's
+    prediction-only copy."""
+    for fit_step, last in ROWS_READ_UNTIL.items():
+        o = out.get(fit_step)
+        if last == ran and o is not None and o.ok and hasattr(o.value, "without_rows"):
+            out[fit_step] = dataclasses.replace(o, value=o.value.without_rows())
 
 
 def options_from_config(config: Config) -> RunOptions:
