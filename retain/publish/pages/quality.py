@@ -8,7 +8,7 @@ import pandas as pd
 
 from retain.publish.content import Fact, Figure, Page, Section
 from retain.publish.pages import prose
-from retain.publish.pages.shared import num
+from retain.publish.pages.shared import as_frame, num
 
 QUARANTINE_SAMPLE = 5
 
@@ -24,7 +24,9 @@ def quality_page(run: Any) -> Page:
         sections.append(Section("Reconciliation", intro=prose.NO_RECONCILIATION))
     quarantine = getattr(prepared, "quarantine", None) if prepared is not None else None
     if quarantine is not None:
-        sections.append(_quarantine_section(quarantine, getattr(prepared, "unknown_events", None)))
+        # the prepared quarantine is an Arrow table (Prepared.quarantine)
+        sections.append(_quarantine_section(quarantine.to_pandas(),
+                                            getattr(prepared, "unknown_events", None)))
     cause_counts = t.cause.counts(t.weight * t.churned)
     facts = (Fact("Start-stop rows", num(t.n_rows), "", "table-rows", float(t.n_rows)),
              Fact("Customers", num(t.n_customers), "", "table-customers", float(t.n_customers)),
@@ -36,20 +38,8 @@ def quality_page(run: Any) -> Page:
                 nav_label="Data quality")
 
 
-def _as_frame(obj: Any) -> pd.DataFrame:
-    if isinstance(obj, pd.DataFrame):
-        return obj
-    if hasattr(obj, "to_frame"):
-        return obj.to_frame()
-    if hasattr(obj, "to_pandas"):
-        return obj.to_pandas()
-    if hasattr(obj, "df"):
-        return obj.df()
-    return pd.DataFrame(obj)
-
-
 def _reconciliation_section(rec: Any) -> Section:
-    frame = _as_frame(rec)
+    frame = as_frame(rec)
     return Section("Reconciliation", intro=getattr(rec, "summary", lambda: "")() or "",
                    figures=(Figure(key="quality-reconciliation",
                                    title="Rows in, used and set aside",
@@ -57,8 +47,7 @@ def _reconciliation_section(rec: Any) -> Section:
                                    table=frame, show_rows=len(frame)),))
 
 
-def _quarantine_section(quarantine: Any, unknown: Any = None) -> Section:
-    frame = _as_frame(quarantine)
+def _quarantine_section(frame: pd.DataFrame, unknown: Any = None) -> Section:
     reason = next((c for c in frame.columns if "reason" in str(c) and "quarantine" in str(c)),
                   None)
     if reason is not None:

@@ -69,6 +69,12 @@ def failure_section(title: str, outcome: Any, intro: str = "") -> Section:
                    or "this part was not run")
 
 
+def as_frame(result: Any) -> pd.DataFrame:
+    """The table a page shows for ``result``: every result exposes ``to_frame()``; a
+    plain DataFrame passes through as it is."""
+    return result if isinstance(result, pd.DataFrame) else result.to_frame()
+
+
 def term_frame(frame: pd.DataFrame, label: str = "label") -> pd.DataFrame:
     """``frame`` with its ``label`` column first, renamed ``term``."""
     out = frame.copy()
