@@ -33,11 +33,10 @@ import pandas as pd
 from scipy import stats
 
 from retain.errors import ModelError
-from retain.results import Result, to_jsonable
+from retain.results import DEFAULT_LEVEL, Result, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 #: the confidence level used when a caller names none
-DEFAULT_LEVEL = 0.95
 
 __all__ = ["DEFAULT_LEVEL", "Estimates", "RetentionPrediction", "check_level", "reading_of",
            "z_value"]

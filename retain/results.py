@@ -18,6 +18,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from retain.errors import ModelError, RetainError
+
+#: the confidence level of intervals when a call names none
+DEFAULT_LEVEL = 0.95
+
 
 def to_jsonable(value: Any) -> Any:
     """Convert numpy / pandas / dataclass values to plain JSON-ready Python values.
@@ -165,6 +170,28 @@ class OneRowFrame:
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([self.to_dict()])  # type: ignore[attr-defined]
+
+
+def resolve_level(level: float | None, conf: float | None, where: str,
+                  default: float = DEFAULT_LEVEL,
+                  error: type[RetainError] = ModelError) -> float:
+    """The confidence level of a call that takes ``level=`` and its older alias ``conf=``.
+
+    Gives ``default`` when neither is given; a one-line error when both are given
+    or the value is not strictly between 0 and 1 (the message names the argument
+    used); ``error`` is the :class:`RetainError` subclass raised.
+    """
+    if level is not None and conf is not None:
+        raise error(where, f"both level={level!r} and conf={conf!r} given",
+                         "give only level= (conf= is its older name)")
+    name, value = ("conf", conf) if conf is not None else ("level", level)
+    if value is None:
+        return float(default)
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) \
+            or not 0.0 < float(value) < 1.0:
+        raise error(where, f"{name} must be between 0 and 1, got {value!r}",
+                         f"use e.g. {name}=0.95")
+    return float(value)
 
 
 class LevelFromConf:

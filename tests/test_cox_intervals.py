@@ -126,19 +126,19 @@ def test_interval_forms_and_messages(whas):
     ll = fit.retention_interval(PROFILE, GRID)
     lg = fit.retention_interval(PROFILE, GRID, transform="log")
     for out in (ll, lg):
-        assert (out["retention_low"] <= out["retention"] + 1e-15).all()
-        assert (out["retention"] <= out["retention_high"] + 1e-15).all()
-        assert (out["retention_high"] <= 1.0).all() and (out["retention_low"] > 0).all()
+        assert (out["lower"] <= out["retention"] + 1e-15).all()
+        assert (out["retention"] <= out["upper"] + 1e-15).all()
+        assert (out["upper"] <= 1.0).all() and (out["lower"] > 0).all()
     # before the first churn the curve is exactly 1 with no width
-    assert ll["retention_low"].iloc[0] == ll["retention_high"].iloc[0] == 1.0
+    assert ll["lower"].iloc[0] == ll["upper"].iloc[0] == 1.0
     # log-log: log(-log S) +- z se / H; log: -H +- z se (the textbook forms, by hand)
     z = stats.norm.ppf(0.975)
     H, se = ll["cumulative_hazard"].iloc[4], ll["se_cumulative_hazard"].iloc[4]
-    assert ll["retention_low"].iloc[4] == pytest.approx(np.exp(-H * np.exp(z * se / H)))
-    assert ll["retention_high"].iloc[4] == pytest.approx(np.exp(-H * np.exp(-z * se / H)))
-    assert lg["retention_low"].iloc[4] == pytest.approx(np.exp(-H - z * se))
+    assert ll["lower"].iloc[4] == pytest.approx(np.exp(-H * np.exp(z * se / H)))
+    assert ll["upper"].iloc[4] == pytest.approx(np.exp(-H * np.exp(-z * se / H)))
+    assert lg["lower"].iloc[4] == pytest.approx(np.exp(-H - z * se))
     wider = fit.retention_interval(PROFILE, GRID, conf=0.99)
-    assert (wider["retention_low"].iloc[2:] < ll["retention_low"].iloc[2:]).all()
+    assert (wider["lower"].iloc[2:] < ll["lower"].iloc[2:]).all()
     assert ll["extrapolated"].tolist() == [t > whas.stop[whas.churned == 1].max() for t in GRID]
     with pytest.raises(DataError, match="unknown transform 'logit'"):
         fit.retention_interval(PROFILE, GRID, transform="logit")
@@ -163,7 +163,7 @@ def test_splitting_rows_leaves_the_interval_unchanged(whas):
                       covariates=sub.covariates)
     a = fit_cox(whas, COV).retention_interval(PROFILE, GRID)
     b = fit_cox(split, COV).retention_interval(PROFILE, GRID)
-    for col in ("cumulative_hazard", "se_cumulative_hazard", "retention_low", "retention_high"):
+    for col in ("cumulative_hazard", "se_cumulative_hazard", "lower", "upper"):
         np.testing.assert_allclose(a[col], b[col], rtol=1e-8)
 
 
@@ -189,7 +189,7 @@ def test_coverage_by_simulation():
         fit = fit_cox(_simulated(rng), ["x1", "x2"], robust=False)
         for form in ("log-log", "log"):
             row = fit.retention_interval(profile, [t], transform=form).iloc[0]
-            hits[form] += row["retention_low"] <= truth <= row["retention_high"]
+            hits[form] += row["lower"] <= truth <= row["upper"]
         # the same log-log interval without the beta term: sum D_k / S0(t_k; x)^2 only
         base = fit.baseline()
         lp = float(fit.linear_predictor(profile)[0])

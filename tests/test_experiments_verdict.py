@@ -129,7 +129,7 @@ def test_verdict_matches_the_model_layer(whas_trial: StartStop) -> None:
     fit = fit_cox(cut, ["arm", "age"], reference={"arm": "0"})
     row = fit.hazard_ratios.set_index("term").loc["arm 1 vs 0"]
     assert v.adjusted[0].hazard_ratio == pytest.approx(row["hazard_ratio"], rel=1e-10)
-    assert v.adjusted[0].lower == pytest.approx(row["hr_low"], rel=1e-10)
+    assert v.adjusted[0].lower == pytest.approx(row["lower"], rel=1e-10)
     rd = rmst_difference(whas_trial, "arm", 365.0, levels=("0", "1"))
     assert v.rmst[0].difference == pytest.approx(rd.difference, rel=1e-10)
     assert v.rmst[0].lower == pytest.approx(rd.lower, rel=1e-10)

@@ -144,7 +144,7 @@ def test_cox_to_frame_fits_the_default_width():
                           cwd=str(__import__("pathlib").Path(__file__).parent))
     assert proc.returncode == 0, proc.stderr
     header = proc.stdout.splitlines()[0].split()
-    assert header[:5] == ["term", "hazard_ratio", "hr_low", "hr_high", "p_value"], proc.stdout
+    assert header[:5] == ["term", "hazard_ratio", "lower", "upper", "p_value"], proc.stdout
     assert "..." not in proc.stdout
 
 

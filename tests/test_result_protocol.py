@@ -124,8 +124,8 @@ def test_estimates_agree_with_the_tables_each_fit_reports(fits):
     """At the fit's level the protocol gives the limits the old readers print."""
     cox = fits["cox"]
     iv = cox.estimates().interval()
-    np.testing.assert_allclose(iv["lower"], cox.hazard_ratios["hr_low"], rtol=1e-12)
-    np.testing.assert_allclose(iv["upper"], cox.hazard_ratios["hr_high"], rtol=1e-12)
+    np.testing.assert_allclose(iv["lower"], cox.hazard_ratios["lower"], rtol=1e-12)
+    np.testing.assert_allclose(iv["upper"], cox.hazard_ratios["upper"], rtol=1e-12)
     for name in ("exponential", "weibull", "piecewise"):
         fit = fits[name]
         iv = fit.estimates().interval()
@@ -143,8 +143,8 @@ def test_estimates_agree_with_the_tables_each_fit_reports(fits):
                                ren.intervals[["lower", "upper"]], rtol=1e-12)
     cs = fits["cause-specific cox"]
     iv = cs.estimates().interval()
-    np.testing.assert_allclose(iv["lower"], cs.frame["hr_low"], rtol=1e-12)
-    np.testing.assert_allclose(iv["upper"], cs.frame["hr_high"], rtol=1e-12)
+    np.testing.assert_allclose(iv["lower"], cs.frame["lower"], rtol=1e-12)
+    np.testing.assert_allclose(iv["upper"], cs.frame["upper"], rtol=1e-12)
 
 
 def test_interval_matches_lifelines_at_90_percent(whas):
@@ -294,5 +294,5 @@ def test_prediction_limits_at_any_level_nest(fits, name):
         assert np.all(a.lower[inner] < b.lower[inner]) and np.all(b.upper[inner] < a.upper[inner])
     if name == "cox":
         ref = fit.retention_interval(PROFILE, TIMES, conf=0.90)
-        np.testing.assert_allclose(p90.lower, ref["retention_low"], rtol=1e-14)
-        np.testing.assert_allclose(p90.upper, ref["retention_high"], rtol=1e-14)
+        np.testing.assert_allclose(p90.lower, ref["lower"], rtol=1e-14)
+        np.testing.assert_allclose(p90.upper, ref["upper"], rtol=1e-14)

@@ -393,8 +393,8 @@ def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
         if hit.empty:
             continue
         r = hit.iloc[0]
-        out.append(AdjustedHazardRatio(t, float(r["hazard_ratio"]), float(r["hr_low"]),
-                                       float(r["hr_high"]), float(r["p_value"]),
+        out.append(AdjustedHazardRatio(t, float(r["hazard_ratio"]), float(r["lower"]),
+                                       float(r["upper"]), float(r["p_value"]),
                                        tuple(covariates), label))
     return tuple(out), list(getattr(fit, "warnings", ())), fit.missing
 

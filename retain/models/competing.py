@@ -238,7 +238,7 @@ class CauseSpecificCox(Result):
     @property
     def level(self) -> float:
         """The confidence level of the causes' intervals."""
-        return float(self.fits[self.causes[0]].conf) if self.causes else DEFAULT_LEVEL
+        return float(self.fits[self.causes[0]].level) if self.causes else DEFAULT_LEVEL
 
     def without_rows(self) -> CauseSpecificCox:
         """A copy whose cause models keep only what prediction needs
@@ -276,8 +276,8 @@ class CauseSpecificCox(Result):
         parts = []
         for cause in self.causes:
             rows = self.frame[self.frame["cause"] == cause]
-            terms = "; ".join(f"{r.term} HR {r.hazard_ratio:.2f} ({r.hr_low:.2f} to "
-                              f"{r.hr_high:.2f})" for r in rows.itertuples())
+            terms = "; ".join(f"{r.term} HR {r.hazard_ratio:.2f} ({r.lower:.2f} to "
+                              f"{r.upper:.2f})" for r in rows.itertuples())
             parts.append(f"{cause} ({self.events[cause]:,.0f} churns): {terms}")
         return "Cause-specific Cox models. " + " | ".join(parts)
 
@@ -305,7 +305,7 @@ def cause_specific_cox(
         the covariates and strata so every cause's model fits the same rows.
     **options
         Passed to :func:`retain.models.cox.fit_cox` (strata, ties, reference,
-        penalty, robust, conf, ...).
+        penalty, robust, level, ...).
     """
     from retain.models.cox import fit_cox
     from retain.models.missing import apply_missing_rule
@@ -382,8 +382,8 @@ class SubdistributionCox(Result):
         return self.frame.copy()
 
     def summary(self) -> str:
-        terms = "; ".join(f"{r.term} subdistribution HR {r.hazard_ratio:.2f} ({r.hr_low:.2f} to "
-                          f"{r.hr_high:.2f})" for r in self.frame.itertuples())
+        terms = "; ".join(f"{r.term} subdistribution HR {r.hazard_ratio:.2f} ({r.lower:.2f} to "
+                          f"{r.upper:.2f})" for r in self.frame.itertuples())
         return (f"Fine-Gray model for {self.cause} churn ({self.n_events:,.0f} churns, "
                 f"{self.n_competing:,.0f} competing): {terms}.")
 

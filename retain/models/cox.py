@@ -41,7 +41,7 @@ from retain.kernels.threads import one_blas_thread
 from retain.models._segments import column_codes
 from retain.models.design import Design, check_collinear_matrix, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
-from retain.results import LevelFromConf, OneRowFrame, Result, to_jsonable
+from retain.results import OneRowFrame, Result, resolve_level, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 TIES = ("efron", "breslow")
@@ -145,11 +145,12 @@ _PRIVATE = ("design", "_index", "_Xc", "_weight", "_churned", "_offset", "_dH0",
 
 
 @dataclass(frozen=True, eq=False)
-class CoxFit(Result, LevelFromConf):
+class CoxFit(Result):
     """A fitted Cox model: estimates with their context, prediction and diagnostics.
 
     ``se`` is the standard error the z, p and intervals use: robust (clustered
     by customer) when ``robust`` is True, model-based otherwise; both are kept.
+    ``lower`` / ``upper`` bound ``coef`` (log hazard ratio) at ``level``.
     """
 
     covariates: tuple[str, ...]
@@ -164,9 +165,9 @@ class CoxFit(Result, LevelFromConf):
     cov_robust: np.ndarray
     z: np.ndarray
     p_value: np.ndarray
-    ci_low: np.ndarray
-    ci_high: np.ndarray
-    conf: float
+    lower: np.ndarray
+    upper: np.ndarray
+    level: float
     ties: str
     strata: tuple[str, ...]
     stratum_labels: tuple[str, ...]
@@ -251,8 +252,18 @@ class CoxFit(Result, LevelFromConf):
             else "inverse observed information"
         return Estimates(model="Cox", names=tuple(self.labels), estimate=self.coef,
                          cov=self.cov_robust if self.robust else self.cov_model,
-                         scale=("log hazard ratio",) * len(self.labels), level=self.conf,
+                         scale=("log hazard ratio",) * len(self.labels), level=self.level,
                          covariance=kind)
+
+    @property
+    def ci_low(self) -> np.ndarray:
+        """Older name of ``lower`` (read-only)."""
+        return self.lower
+
+    @property
+    def ci_high(self) -> np.ndarray:
+        """Older name of ``upper`` (read-only)."""
+        return self.upper
 
     @property
     def hazard_ratio(self) -> np.ndarray:
@@ -266,8 +277,8 @@ class CoxFit(Result, LevelFromConf):
             "column": list(self.columns),
             "coef": self.coef,
             "hazard_ratio": np.exp(self.coef),
-            "hr_low": np.exp(self.ci_low),
-            "hr_high": np.exp(self.ci_high),
+            "lower": np.exp(self.lower),
+            "upper": np.exp(self.upper),
             "se": self.se,
             "se_model": self.se_model,
             "se_robust": self.se_robust,
@@ -280,7 +291,7 @@ class CoxFit(Result, LevelFromConf):
 
         The full table (coefficients, both standard errors, z) is :attr:`hazard_ratios`.
         """
-        return self.hazard_ratios[["term", "hazard_ratio", "hr_low", "hr_high", "p_value"]]
+        return self.hazard_ratios[["term", "hazard_ratio", "lower", "upper", "p_value"]]
 
     def summary(self) -> str:
         se_kind = ("robust, clustered by " + self.robust_clusters) if self.robust else "model-based"
@@ -292,13 +303,13 @@ class CoxFit(Result, LevelFromConf):
             f"Log partial likelihood {self.loglik:.3f}; {self.lr_test.summary()}; "
             f"AIC {self.aic:.1f}.",
             f"Standard errors: {se_kind}"
-            f"; {int(round(self.conf * 100))}% intervals.",
+            f"; {int(round(self.level * 100))}% intervals.",
         ]
-        pct = int(round(self.conf * 100))
+        pct = int(round(self.level * 100))
         for i, lab in enumerate(self.labels):
             hr = np.exp(self.coef[i])
-            lines.append(f"  {lab}: hazard ratio {hr:.3f} ({pct}% CI {np.exp(self.ci_low[i]):.3f}"
-                         f" to {np.exp(self.ci_high[i]):.3f}), p = {self.p_value[i]:.3g}")
+            lines.append(f"  {lab}: hazard ratio {hr:.3f} ({pct}% CI {np.exp(self.lower[i]):.3f}"
+                         f" to {np.exp(self.upper[i]):.3f}), p = {self.p_value[i]:.3g}")
         for w in self.warnings:
             lines.append(f"Warning: {w}")
         return "\n".join(lines)
@@ -353,7 +364,7 @@ class CoxFit(Result, LevelFromConf):
         baseline is flat there). ``lower`` / ``upper`` are the pointwise
         log-log limits of :meth:`retention_interval` at ``level`` (default the fit's).
         """
-        lv = self.conf if level is None else check_level(level, "retention prediction")
+        lv = self.level if level is None else check_level(level, "retention prediction")
         s = self._stratum_code(stratum)
         x = self._profile_row(profile)
         t = np.asarray(times, dtype=float)
@@ -397,8 +408,9 @@ class CoxFit(Result, LevelFromConf):
         return self._last_time(s), upto(dH)[pos], se[pos]
 
     def retention_interval(self, profile: Mapping[str, object], times: Sequence[float],
-                           stratum: str | None = None, conf: float | None = None,
-                           transform: str = "log-log") -> pd.DataFrame:
+                           stratum: str | None = None, level: float | None = None,
+                           transform: str = "log-log", *, conf: float | None = None
+                           ) -> pd.DataFrame:
         r"""Retention curve for a covariate profile with pointwise confidence intervals.
 
         The variance of the Breslow cumulative hazard for a fixed profile
@@ -420,7 +432,8 @@ class CoxFit(Result, LevelFromConf):
         is robust, model-based otherwise). The Breslow form holds whatever the
         tie rule of the fit, as does the baseline it belongs to.
 
-        Intervals (pointwise, level ``conf``, default the fit's): ``"log-log"``
+        Intervals (pointwise, level ``level``, default the fit's; ``conf=`` is accepted
+        as its older name): ``"log-log"``
         (default) is symmetric on :math:`\log H = \log(-\log S)`, so
         :math:`S^{\exp(\pm z\,\mathrm{se}/H)}`, always inside (0, 1); ``"log"``
         is symmetric on :math:`\log S = -H`, :math:`e^{-H\mp z\,\mathrm{se}}`
@@ -429,22 +442,19 @@ class CoxFit(Result, LevelFromConf):
         ``extrapolated`` (the baseline and its variance are flat there).
 
         Columns: time, cumulative_hazard, se_cumulative_hazard, retention,
-        retention_low, retention_high, extrapolated.
+        lower, upper, extrapolated.
         """
         if transform not in ("log-log", "log"):
             raise DataError("retention_interval", f"unknown transform {transform!r}",
                             "use 'log-log' or 'log'")
-        level = self.conf if conf is None else conf
-        if not 0 < level < 1:
-            raise DataError("retention_interval", f"conf must be between 0 and 1, got {level!r}",
-                            "use e.g. 0.95")
+        level = resolve_level(level, conf, "retention_interval", self.level, DataError)
         s = self._stratum_code(stratum)
         t = np.asarray(times, dtype=float)
         last, H, se = self._cumhaz_se(self._profile_row(profile), t, s)
         low, high = _retention_limits(H, se, level, transform)
         return pd.DataFrame({"time": t, "cumulative_hazard": H, "se_cumulative_hazard": se,
-                             "retention": np.exp(-H), "retention_low": low,
-                             "retention_high": high, "extrapolated": t > last})
+                             "retention": np.exp(-H), "lower": low,
+                             "upper": high, "extrapolated": t > last})
 
     def _strata_of(self, table: StartStop) -> np.ndarray:
         if not self.strata:
@@ -765,9 +775,10 @@ def fit_cox(
     penalty: float = 0.0,
     reference: Mapping[str, str] | None = None,
     robust: bool = True,
-    conf: float = 0.95,
+    level: float | None = None,
     max_iter: int = 50,
     missing: str = "stop",
+    conf: float | None = None,
 ) -> CoxFit:
     r"""Fit a Cox proportional-hazards model to a start-stop table.
 
@@ -794,8 +805,9 @@ def fit_cox(
     robust : bool
         Base z, p and intervals on the robust (sandwich) errors clustered by
         customer (Lin & Wei 1989). Both kinds are always reported.
-    conf : float
-        Confidence level of the intervals.
+    level : float
+        Confidence level of the intervals (default 0.95); ``conf=`` is accepted as
+        its older name.
     max_iter : int
         Newton–Raphson iterations allowed.
     missing : {"stop", "complete_cases", "missing_level"}
@@ -816,16 +828,17 @@ def fit_cox(
     """
     with one_blas_thread():
         return _fit_cox(table, covariates, strata=strata, ties=ties, offset=offset,
-                        penalty=penalty, reference=reference, robust=robust, conf=conf,
+                        penalty=penalty, reference=reference, robust=robust,
+                        level=resolve_level(level, conf, "Cox model"),
                         max_iter=max_iter, missing=missing)
 
 
 def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Sequence[str] | None,
              ties: str, offset: str | np.ndarray | None, penalty: float,
-             reference: Mapping[str, str] | None, robust: bool, conf: float,
+             reference: Mapping[str, str] | None, robust: bool, level: float,
              max_iter: int, missing: str = "stop") -> CoxFit:
     where = f"Cox model on {table.source}"
-    _check_cox_options(where, ties, conf, penalty)
+    _check_cox_options(where, ties, penalty)
     covariates, strata_t = _covariates_and_strata(where, table, covariates, strata)
     n_in = table.n_rows
     table, dropped, kept = apply_missing_rule(table, [*covariates, *strata_t], missing, where)
@@ -868,7 +881,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     se_robust = np.sqrt(np.diag(cov_robust))
     se = se_robust if robust else se_model
     cov = cov_robust if robust else cov_model
-    zq = float(stats.norm.ppf(0.5 + conf / 2))
+    zq = float(stats.norm.ppf(0.5 + level / 2))
     z = res.params / se
     pval = 2 * stats.norm.sf(np.abs(z))
     lr = 2 * (res.loglik - res.start_loglik)
@@ -884,7 +897,7 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
         covariates=tuple(covariates), columns=design.columns, labels=design.labels,
         reference=dict(design.reference), coef=res.params, se=se, se_model=se_model,
         se_robust=se_robust, cov_model=cov_model, cov_robust=cov_robust, z=z, p_value=pval,
-        ci_low=res.params - zq * se, ci_high=res.params + zq * se, conf=float(conf), ties=ties,
+        lower=res.params - zq * se, upper=res.params + zq * se, level=float(level), ties=ties,
         strata=strata_t, stratum_labels=stratum_labels, penalty=float(penalty),
         robust=bool(robust), robust_clusters=clusters, n_rows=table.n_rows,
         n_customers=(int(np.count_nonzero(np.bincount(cluster))) if cluster is not None
@@ -899,11 +912,9 @@ def _fit_cox(table: StartStop, covariates: Sequence[str], *, strata: str | Seque
     )
 
 
-def _check_cox_options(where: str, ties: str, conf: float, penalty: float) -> None:
+def _check_cox_options(where: str, ties: str, penalty: float) -> None:
     if ties not in TIES:
         raise ModelError(where, f"unknown tie method {ties!r}", "use 'efron' or 'breslow'")
-    if not 0 < conf < 1:
-        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}", "use e.g. 0.95")
     if not (np.isfinite(penalty) and penalty >= 0):
         raise ModelError(where, f"penalty must be >= 0, got {penalty!r}", "use 0 for no penalty")
 

@@ -166,7 +166,7 @@ def _cause_cox_section(run: Any) -> Section:
     frame = pd.DataFrame({"term": [f"{t} · {c}" for t, c in zip(hr["term"], hr["cause"],
                                                                strict=True)],
                           "cause": hr["cause"], "hazard_ratio": hr["hazard_ratio"],
-                          "lower": hr["hr_low"], "upper": hr["hr_high"],
+                          "lower": hr["lower"], "upper": hr["upper"],
                           "p_value": hr["p_value"]})
     # each term's causes side by side, terms in the model's order
     position = frame.groupby("cause", sort=False).cumcount().to_numpy()

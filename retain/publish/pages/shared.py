@@ -86,7 +86,7 @@ def hazard_frame(cox: Any) -> pd.DataFrame:
     """term, hazard_ratio, lower, upper, p_value of a Cox fit, in the model's order."""
     hr = cox.hazard_ratios
     return pd.DataFrame({"term": hr["term"].astype(str), "hazard_ratio": hr["hazard_ratio"],
-                         "lower": hr["hr_low"], "upper": hr["hr_high"],
+                         "lower": hr["lower"], "upper": hr["upper"],
                          "p_value": hr["p_value"]})
 
 
