@@ -152,6 +152,23 @@ class RunOptions:
         return out
 
 
+@dataclass(frozen=True)
+class PreparationRecord:
+    """What a run keeps of the preparation (:class:`retain.data.prepare.Prepared`): the
+    data-quality page's inputs, not the preparation's second (Arrow) copy of the table."""
+
+    reconciliation: Any  # retain.data.prepare.Reconciliation
+    quarantine: Any  # pyarrow.Table of the rows set aside, with the reason of each
+    unknown_events: dict[str, int]
+
+    @classmethod
+    def of(cls, prepared: Any) -> PreparationRecord | None:
+        """The record of ``prepared`` (None stays None; a record is kept as it is)."""
+        if prepared is None or isinstance(prepared, cls):
+            return prepared
+        return cls(prepared.reconciliation, prepared.quarantine, dict(prepared.unknown_events))
+
+
 @dataclass(frozen=True, eq=False)
 class RunResults(Result):
     """The bundle one run produces: the table, its data-quality record, every outcome."""
@@ -159,7 +176,7 @@ class RunResults(Result):
     options: RunOptions
     table: StartStop
     outcomes: dict[str, Outcome]
-    prepared: Any = None
+    prepared: PreparationRecord | None = None
 
     def get(self, name: str) -> Outcome:
         return self.outcomes.get(name, Outcome(name, error="this step was not run", kind="absent"))
@@ -262,7 +279,8 @@ def run_table(table: StartStop, options: RunOptions, *, prepared: Any = None,
     step(step_names.BOOK, lambda: book_summary(table))
     for name, fn in _model_steps(table, options, out):
         step(name, fn)
-    return RunResults(options=options, table=table, outcomes=out, prepared=prepared)
+    return RunResults(options=options, table=table, outcomes=out,
+                      prepared=PreparationRecord.of(prepared))
 
 
 # A fit that keeps its table's rows for diagnostics -> the last step that reads them.
