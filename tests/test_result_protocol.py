@@ -296,3 +296,36 @@ def test_prediction_limits_at_any_level_nest(fits, name):
         ref = fit.retention_interval(PROFILE, TIMES, conf=0.90)
         np.testing.assert_allclose(p90.lower, ref["lower"], rtol=1e-14)
         np.testing.assert_allclose(p90.upper, ref["upper"], rtol=1e-14)
+
+
+def test_resolve_level_takes_level_or_its_older_name_conf():
+    from retain.errors import DataError, ModelError
+    from retain.results import DEFAULT_LEVEL, resolve_level
+
+    assert resolve_level(None, None, "x") == DEFAULT_LEVEL == 0.95
+    assert resolve_level(0.9, None, "x") == resolve_level(None, 0.9, "x") == 0.9
+    with pytest.raises(ModelError, match="both level=0.9 and conf=0.9 given"):
+        resolve_level(0.9, 0.9, "x")
+    for bad in (0, 1, 1.5, -0.1, True, "0.95"):
+        with pytest.raises(ModelError, match="level must be between 0 and 1"):
+            resolve_level(bad, None, "x")
+    with pytest.raises(DataError, match="conf must be between 0 and 1, got 95"):
+        resolve_level(None, 95, "x", error=DataError)
+
+
+@pytest.mark.parametrize("fit_fn", [
+    lambda t, **k: fit_cox(t, COV, robust=False, **k),
+    lambda t, **k: fit_exponential(t, COV, **k),
+    lambda t, **k: fit_weibull(t, COV, **k),
+    lambda t, **k: fit_piecewise(t, [365.0], COV, **k),
+])
+def test_level_and_conf_give_the_same_fit(whas, fit_fn):
+    from retain.errors import ModelError
+
+    a, b = fit_fn(whas, level=0.9), fit_fn(whas, conf=0.9)
+    assert a.level == b.level == 0.9
+    np.testing.assert_array_equal(a.estimates().interval(0.9)["lower"],
+                                  b.estimates().interval(0.9)["lower"])
+    assert fit_fn(whas).level == 0.95
+    with pytest.raises(ModelError, match="both level"):
+        fit_fn(whas, level=0.9, conf=0.9)

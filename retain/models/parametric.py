@@ -58,7 +58,7 @@ from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximi
 from retain.kernels.threads import one_blas_thread
 from retain.models.design import Design, design_matrix
 from retain.models.missing import MissingCovariates, apply_missing_rule
-from retain.results import LevelFromConf, Result, to_jsonable
+from retain.results import Result, resolve_level, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 __all__ = [
@@ -81,10 +81,6 @@ DEFAULT_BAND_MONTHS = (1.0, 3.0, 6.0, 12.0, 24.0)
 
 
 # --------------------------------------------------------------------------- helpers
-def _z(conf: float, where: str) -> float:
-    if not (isinstance(conf, (int, float)) and 0.0 < float(conf) < 1.0):
-        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}", "use e.g. conf=0.95")
-    return float(stats.norm.isf((1.0 - float(conf)) / 2.0))
 
 
 def _check_table(table: object, where: str) -> StartStop:
@@ -135,7 +131,7 @@ RetentionForecast = RetentionPrediction
 
 
 @dataclass(frozen=True, eq=False)
-class LifetimeEstimate(Result, LevelFromConf):
+class LifetimeEstimate(Result):
     """A median or mean lifetime (days) with a delta-method interval (log scale)."""
 
     model: str
@@ -144,7 +140,7 @@ class LifetimeEstimate(Result, LevelFromConf):
     lower: float
     upper: float
     horizon: float | None
-    conf: float
+    level: float
     profile: dict[str, Any]
     filled: dict[str, str]
     warnings: tuple[str, ...] = ()
@@ -157,25 +153,25 @@ class LifetimeEstimate(Result, LevelFromConf):
         return pd.DataFrame([{
             "model": self.model, "measure": self.measure, "days": self.days,
             "months": self.months, "lower_days": self.lower, "upper_days": self.upper,
-            "horizon_days": self.horizon, "conf": self.conf,
+            "horizon_days": self.horizon, "level": self.level,
         }])
 
     def summary(self) -> str:
         what = self.measure if self.horizon is None else \
             f"{self.measure} over the first {_months(self.horizon):.0f} months"
-        text = (f"{self.model} {what}: {self.months:.1f} months ({self.conf:.0%} CI "
+        text = (f"{self.model} {what}: {self.months:.1f} months ({self.level:.0%} CI "
                 f"{_months(self.lower):.1f} to {_months(self.upper):.1f})")
         return text + ("; " + "; ".join(self.warnings) if self.warnings else "")
 
 
 @dataclass(frozen=True, eq=False)
-class ShapeTest(Result, LevelFromConf):
+class ShapeTest(Result):
     """Weibull shape alpha, its interval, and the likelihood-ratio test of alpha = 1."""
 
     shape: float
     lower: float
     upper: float
-    conf: float
+    level: float
     statistic: float
     p_value: float
     loglik_weibull: float
@@ -191,14 +187,14 @@ class ShapeTest(Result, LevelFromConf):
         else:
             trend = ("the data cannot tell a rising from a falling risk (shape near 1, "
                      "the exponential model's constant risk)")
-        return (f"Weibull shape {self.shape:.3f} ({self.conf:.0%} CI {self.lower:.3f} to "
+        return (f"Weibull shape {self.shape:.3f} ({self.level:.0%} CI {self.lower:.3f} to "
                 f"{self.upper:.3f}): {trend}. Likelihood-ratio test of shape = 1 "
                 f"(exponential): chi-square {self.statistic:.2f} on 1 df, "
                 f"{_fmt_p(self.p_value)}.")
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([{
-            "shape": self.shape, "lower": self.lower, "upper": self.upper, "conf": self.conf,
+            "shape": self.shape, "lower": self.lower, "upper": self.upper, "level": self.level,
             "lr_statistic": self.statistic, "p_value": self.p_value,
             "loglik_weibull": self.loglik_weibull, "loglik_exponential": self.loglik_exponential,
         }])
@@ -212,7 +208,7 @@ def _fmt_p(p: float) -> str:
 
 
 @dataclass(frozen=True, eq=False)
-class ParametricFit(Result, LevelFromConf):
+class ParametricFit(Result):
     """A fitted exponential, Weibull or piecewise-constant hazard model.
 
     ``params`` are in days and uncentred covariates:
@@ -243,7 +239,7 @@ class ParametricFit(Result, LevelFromConf):
     n_events: float
     exposure_days: float
     follow_up: float
-    conf: float
+    level: float
     converged: bool
     iterations: int
     history: tuple[dict, ...]
@@ -282,7 +278,7 @@ class ParametricFit(Result, LevelFromConf):
                 scale[1] = "log shape"
         names = tuple(self.param_names[:sl.start]) + tuple(self.labels)
         return Estimates(model=self.model, names=names, estimate=self.params,
-                         cov=self.cov, scale=tuple(scale), level=self.conf)
+                         cov=self.cov, scale=tuple(scale), level=self.level)
 
     @property
     def se(self) -> np.ndarray:
@@ -298,7 +294,7 @@ class ParametricFit(Result, LevelFromConf):
 
     @property
     def _z(self) -> float:
-        return float(stats.norm.isf((1.0 - self.conf) / 2.0))
+        return float(stats.norm.isf((1.0 - self.level) / 2.0))
 
     @property
     def _beta_index(self) -> slice:
@@ -368,7 +364,7 @@ class ParametricFit(Result, LevelFromConf):
         b, alpha, jac = self._aft_jacobian()
         return Estimates(model=self.model, names=tuple(self.labels), estimate=-b / alpha,
                          cov=jac @ self.cov @ jac.T, scale=("log time ratio",) * b.shape[0],
-                         level=self.conf)
+                         level=self.level)
 
     @property
     def shape_value(self) -> float:
@@ -392,7 +388,7 @@ class ParametricFit(Result, LevelFromConf):
         z = self._z
         stat = max(2.0 * (self.loglik - self.exponential_loglik), 0.0)
         return ShapeTest(shape=math.exp(g), lower=math.exp(g - z * se), upper=math.exp(g + z * se),
-                         conf=self.conf, statistic=stat, p_value=float(stats.chi2.sf(stat, 1)),
+                         level=self.level, statistic=stat, p_value=float(stats.chi2.sf(stat, 1)),
                          loglik_weibull=self.loglik, loglik_exponential=self.exponential_loglik)
 
     @property
@@ -453,7 +449,7 @@ class ParametricFit(Result, LevelFromConf):
             parts.append(self.shape_test.reading)
         for _, row in (self.hazard_ratios.iterrows() if self.columns else []):
             parts.append(f"{row['label']}: hazard ratio {row['hazard_ratio']:.3f} "
-                         f"({self.conf:.0%} CI {row['lower']:.3f} to {row['upper']:.3f})")
+                         f"({self.level:.0%} CI {row['lower']:.3f} to {row['upper']:.3f})")
         parts.extend(self.warnings)
         return "\n".join(parts)
 
@@ -507,7 +503,7 @@ class ParametricFit(Result, LevelFromConf):
         """
         x, prof, filled = self._profile_row(profile)
         t = self._prediction_times(times)
-        lv = self.conf if level is None else check_level(level, "retention prediction")
+        lv = self.level if level is None else check_level(level, "retention prediction")
         z = z_value(lv)
         pos = t > 0
         tp = np.where(pos, t, 1.0)
@@ -548,7 +544,7 @@ class ParametricFit(Result, LevelFromConf):
         t_med = K.quantile_time(self.model, self.params, x, 0.5, self._cuts)
         if not math.isfinite(t_med):
             return LifetimeEstimate(self.model, "median", math.inf, math.nan, math.nan, None,
-                                    self.conf, prof, filled,
+                                    self.level, prof, filled,
                                     ("fitted retention never falls to 50%",))
         _, jh = K.log_cumulative_hazard(self.model, self.params, x, np.array([t_med]), self._cuts)
         lz, _ = K.log_hazard(self.model, self.params, x, np.array([t_med]), self._cuts)
@@ -556,7 +552,7 @@ class ParametricFit(Result, LevelFromConf):
         se = math.sqrt(max(float(grad @ self.cov @ grad), 0.0))
         z = self._z
         return LifetimeEstimate(self.model, "median", t_med, t_med * math.exp(-z * se),
-                                t_med * math.exp(z * se), None, self.conf, prof, filled,
+                                t_med * math.exp(z * se), None, self.level, prof, filled,
                                 self.warnings_for(t_med, "the median lifetime"))
 
     def mean_lifetime(self, profile: Mapping[str, Any] | None = None,
@@ -579,7 +575,7 @@ class ParametricFit(Result, LevelFromConf):
         value = f(self.params)
         if not math.isfinite(value):
             return LifetimeEstimate(self.model, "mean", math.inf, math.nan, math.nan, horizon,
-                                    self.conf, prof, filled,
+                                    self.level, prof, filled,
                                     ("the fitted hazard beyond the last band is zero",))
         k = self.params.shape[0]
         grad = np.empty(k)
@@ -593,7 +589,7 @@ class ParametricFit(Result, LevelFromConf):
         measure = "mean" if horizon is None else "restricted mean"
         reach = math.inf if horizon is None else float(horizon)
         return LifetimeEstimate(self.model, measure, value, value * math.exp(-z * se),
-                                value * math.exp(z * se), horizon, self.conf, prof, filled,
+                                value * math.exp(z * se), horizon, self.level, prof, filled,
                                 self.warnings_for(reach, f"the {measure} lifetime"))
 
     def segment_retention(self, table: StartStop,
@@ -666,7 +662,7 @@ class ParametricFit(Result, LevelFromConf):
             model=self.model, profile={"segment": label, "spells": int(sub.n_rows)}, filled={},
             times=t, survival=surv, lower=lower, upper=upper, hazard=hbar,
             hazard_lower=hbar * np.exp(-z * se_h), hazard_upper=hbar * np.exp(z * se_h),
-            cumulative_hazard=-np.log(surv), level=self.conf, follow_up=self.follow_up,
+            cumulative_hazard=-np.log(surv), level=self.level, follow_up=self.follow_up,
             extrapolated=t > self.follow_up,
             warnings=self.warnings_for(float(t.max()), f"the retention curve of {label}"))
 
@@ -777,8 +773,9 @@ def _fit_exponential_core(rows: K.SurvivalRows, prep: _Prepared, max_iter: int
 
 
 def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
-                    reference: Mapping[str, str] | None = None, conf: float = 0.95,
-                    max_iter: int = 100, missing: str = "stop") -> ParametricFit:
+                    reference: Mapping[str, str] | None = None, level: float | None = None,
+                    max_iter: int = 100, missing: str = "stop", conf: float | None = None
+                    ) -> ParametricFit:
     """Exponential (constant-hazard) proportional-hazards model.
 
     h(t | x) = exp(b0 + x'b) per day; log-likelihood
@@ -792,8 +789,8 @@ def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
         Columns of the table (numeric, or categorical coded against a reference level).
     reference : mapping, optional
         Reference level per categorical covariate (default: the most common).
-    conf : float
-        Level of every interval (default 0.95).
+    level : float
+        Level of every interval (default 0.95); ``conf=`` is accepted as its older name.
     missing : {"stop", "complete_cases", "missing_level"}
         Rows whose covariates have no value: refuse (default), fit on the
         complete rows, or give a categorical covariate a ``"(missing)"`` level
@@ -804,19 +801,19 @@ def fit_exponential(table: StartStop, covariates: Sequence[str] = (), *,
     ParametricFit with ``model = "exponential"``.
     """
     where = "exponential model"
-    _z(conf, where)
+    level = resolve_level(level, conf, where)
     prep = _prepare(table, covariates, reference, where, missing)
     table = prep.table
     theta_i, ll_i, hess_i, history = _fit_exponential_core(_survival_rows(table, prep), prep,
                                                            max_iter)
-    return _finish("exponential", table, prep, theta_i, ll_i, hess_i, history, conf,
+    return _finish("exponential", table, prep, theta_i, ll_i, hess_i, history, level,
                    fixed_shape=None, exp_ll=None, cuts=())
 
 
 def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
                 reference: Mapping[str, str] | None = None, shape: float | None = None,
-                conf: float = 0.95, max_iter: int = 100, missing: str = "stop"
-                ) -> ParametricFit:
+                level: float | None = None, max_iter: int = 100, missing: str = "stop",
+                conf: float | None = None) -> ParametricFit:
     """Weibull proportional-hazards model on start-stop data.
 
     h(t | x) = alpha exp(b0 + x'b) t**(alpha - 1), H(t | x) = exp(b0 + x'b) t**alpha
@@ -832,8 +829,8 @@ def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
     shape : float, optional
         Hold alpha fixed at this value (``shape=1`` is the exponential model);
         default: estimate it.
-    conf : float
-        Level of every interval.
+    level : float
+        Level of every interval (default 0.95); ``conf=`` is accepted as its older name.
     missing : {"stop", "complete_cases", "missing_level"}
         Rows whose covariates have no value: refuse (default), fit on the
         complete rows, or give a categorical covariate a ``"(missing)"`` level
@@ -845,7 +842,7 @@ def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
     ``time_ratios``, ``shape_test`` (interval and LR test of alpha = 1).
     """
     where = "Weibull model"
-    _z(conf, where)
+    level = resolve_level(level, conf, where)
     if shape is not None and not (math.isfinite(shape) and shape > 0):
         raise ModelError(where, f"a fixed shape must be a positive number, got {shape!r}",
                          "leave shape=None to estimate it")
@@ -880,12 +877,12 @@ def fit_weibull(table: StartStop, covariates: Sequence[str] = (), *,
     # log-likelihoods in days: each churn's log h picks up -log(s); the
     # exponential's too -- so the LR statistic is unchanged by the rescaling
     exp_ll_days = ll_e - rows.sum_wd * math.log(s)
-    return _finish("weibull", table, prep, theta_i, ll_i, hess_i, history, conf,
+    return _finish("weibull", table, prep, theta_i, ll_i, hess_i, history, level,
                    fixed_shape=shape, exp_ll=exp_ll_days, cuts=())
 
 
 def _finish(model: str, table: StartStop, prep: _Prepared, theta_i: np.ndarray, ll_i: float,
-            hess_i: np.ndarray, history: list, conf: float, *, fixed_shape: float | None,
+            hess_i: np.ndarray, history: list, level: float, *, fixed_shape: float | None,
             exp_ll: float | None, cuts: Sequence[float]) -> ParametricFit:
     """Move internal estimates to days and uncentred covariates; build the result."""
     design = prep.design
@@ -933,7 +930,7 @@ def _finish(model: str, table: StartStop, prep: _Prepared, theta_i: np.ndarray, 
         columns=design.columns, labels=design.labels, covariates=design.covariates,
         reference=dict(design.reference), cuts=tuple(float(c) for c in cuts),
         fixed_shape=fixed_shape, loglik=float(ll), n_params=int(n_params), **_facts(table),
-        conf=float(conf), converged=True, iterations=len(history), history=tuple(history),
+        level=float(level), converged=True, iterations=len(history), history=tuple(history),
         exponential_loglik=exp_ll, design=_strip(design), warnings=tuple(warnings),
         missing=prep.missing)
 
@@ -954,8 +951,9 @@ def _check_cuts(cuts: Sequence[float] | None, table: StartStop, where: str) -> n
 
 def fit_piecewise(table: StartStop, cuts: Sequence[float] | None = None,
                   covariates: Sequence[str] = (), *,
-                  reference: Mapping[str, str] | None = None, conf: float = 0.95,
-                  max_iter: int = 100, missing: str = "stop") -> ParametricFit:
+                  reference: Mapping[str, str] | None = None, level: float | None = None,
+                  max_iter: int = 100, missing: str = "stop", conf: float | None = None
+                  ) -> ParametricFit:
     """Piecewise-constant hazard model on tenure bands.
 
     h(t | x) = exp(a_k + x'b) for t in band k = (c_{k-1}, c_k] (Friedman 1982):
@@ -977,13 +975,13 @@ def fit_piecewise(table: StartStop, cuts: Sequence[float] | None = None,
         first band starts at 0, the last is open); the project file's
         ``[model] piecewise_cuts``. Default: 1, 3, 6, 12 and 24 months
         (30.44-day months), those below the longest observed tenure.
-    covariates, reference, conf, max_iter
+    covariates, reference, level, max_iter
         As for :func:`fit_weibull`.
     missing : {"stop", "complete_cases", "missing_level"}
         The missing-value rule (:mod:`retain.models.missing`).
     """
     where = "piecewise-constant hazard model"
-    _z(conf, where)
+    level = resolve_level(level, conf, where)
     prep = _prepare(table, covariates, reference, where, missing)
     table = prep.table
     asked = _check_cuts(cuts, table, where)
@@ -1025,7 +1023,7 @@ def fit_piecewise(table: StartStop, cuts: Sequence[float] | None = None,
             return K.piecewise_loglik(th, rows, derivatives=derivatives)
 
         theta_i, ll_i, hess_i, history = _newton(fun, theta0, where, max_iter)
-    fit = _finish("piecewise", table, prep, theta_i, ll_i, hess_i, history, conf,
+    fit = _finish("piecewise", table, prep, theta_i, ll_i, hess_i, history, level,
                   fixed_shape=None, exp_ll=None, cuts=used)
     note = (("bands merged for lack of churns or time at risk: " + "; ".join(merged),)
             if merged else ())
@@ -1072,7 +1070,8 @@ class ModelComparison(Result):
 def compare_models(table: StartStop, covariates: Sequence[str] = (),
                    cuts: Sequence[float] | None = None, *,
                    reference: Mapping[str, str] | None = None,
-                   conf: float = 0.95, missing: str = "stop") -> ModelComparison:
+                   level: float | None = None, missing: str = "stop",
+                   conf: float | None = None) -> ModelComparison:
     """Fit exponential, Weibull and piecewise-constant models with the same covariates.
 
     The piecewise model nests the exponential (equal band hazards); the
@@ -1082,13 +1081,14 @@ def compare_models(table: StartStop, covariates: Sequence[str] = (),
     ``missing`` applies one missing-value rule (:mod:`retain.models.missing`)
     before all three fits, so they share their rows.
     """
+    level = resolve_level(level, conf, "model comparison")
     covs = [covariates] if isinstance(covariates, str) else list(covariates)
     table, dropped, _ = apply_missing_rule(_check_table(table, "model comparison"), covs,
                                            missing, "model comparison")
     fits = {
-        "exponential": fit_exponential(table, covs, reference=reference, conf=conf),
-        "weibull": fit_weibull(table, covs, reference=reference, conf=conf),
-        "piecewise": fit_piecewise(table, cuts, covs, reference=reference, conf=conf),
+        "exponential": fit_exponential(table, covs, reference=reference, level=level),
+        "weibull": fit_weibull(table, covs, reference=reference, level=level),
+        "piecewise": fit_piecewise(table, cuts, covs, reference=reference, level=level),
     }
     warnings = [dropped.summary()] if dropped.any else []
     for name, fit in fits.items():
