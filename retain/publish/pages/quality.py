@@ -16,17 +16,14 @@ QUARANTINE_SAMPLE = 5
 def quality_page(run: Any) -> Page:
     t = run.table
     sections: list[Section] = []
-    prepared = run.prepared
-    rec = getattr(prepared, "reconciliation", None) if prepared is not None else None
-    if rec is not None:
-        sections.append(_reconciliation_section(rec))
-    else:
+    prepared = run.prepared  # retain.run.PreparationRecord; None for a table made elsewhere
+    if prepared is None:
         sections.append(Section("Reconciliation", intro=prose.NO_RECONCILIATION))
-    quarantine = getattr(prepared, "quarantine", None) if prepared is not None else None
-    if quarantine is not None:
-        # the prepared quarantine is an Arrow table (Prepared.quarantine)
-        sections.append(_quarantine_section(quarantine.to_pandas(),
-                                            getattr(prepared, "unknown_events", None)))
+    else:
+        sections.append(_reconciliation_section(prepared.reconciliation))
+        # the quarantine is kept as the Arrow table prepare wrote
+        sections.append(_quarantine_section(prepared.quarantine.to_pandas(),
+                                            prepared.unknown_events))
     cause_counts = t.cause.counts(t.weight * t.churned)
     facts = (Fact("Start-stop rows", num(t.n_rows), "", "table-rows", float(t.n_rows)),
              Fact("Customers", num(t.n_customers), "", "table-customers", float(t.n_customers)),
@@ -40,14 +37,14 @@ def quality_page(run: Any) -> Page:
 
 def _reconciliation_section(rec: Any) -> Section:
     frame = as_frame(rec)
-    return Section("Reconciliation", intro=getattr(rec, "summary", lambda: "")() or "",
+    return Section("Reconciliation", intro=rec.summary(),
                    figures=(Figure(key="quality-reconciliation",
                                    title="Rows in, used and set aside",
                                    guide=prose.RECONCILIATION_GUIDE,
                                    table=frame, show_rows=len(frame)),))
 
 
-def _quarantine_section(frame: pd.DataFrame, unknown: Any = None) -> Section:
+def _quarantine_section(frame: pd.DataFrame, unknown: dict[str, int]) -> Section:
     reason = next((c for c in frame.columns if "reason" in str(c) and "quarantine" in str(c)),
                   None)
     if reason is not None:
@@ -57,7 +54,7 @@ def _quarantine_section(frame: pd.DataFrame, unknown: Any = None) -> Section:
     else:
         sample = frame
     bullets = tuple(f"unknown event value {k!r}: {num(float(v))} rows — map it in [events] map "
-                    "or list it in [events] ignore" for k, v in sorted(dict(unknown or {}).items()))
+                    "or list it in [events] ignore" for k, v in sorted(unknown.items()))
     return Section("Quarantined rows (sample)", bullets=bullets, figures=(Figure(
         key="quality-quarantine", title="Rows set aside",
         guide=prose.QUARANTINE_GUIDE.format(sample=QUARANTINE_SAMPLE),

@@ -61,12 +61,11 @@ def p_text(p: float) -> str:
 
 
 def failure_section(title: str, outcome: Any, intro: str = "") -> Section:
-    """The section of a step that failed, or (said as a note, not an alert) one that the
-    project file does not ask for."""
-    if getattr(outcome, "kind", "") == "skipped":
+    """The section of a step that failed (a :class:`retain.run.Outcome`), or (said as a
+    note, not an alert) one that the project file does not ask for."""
+    if outcome.skipped:
         return Section(title=title, intro=f"Not set up: {outcome.error}")
-    return Section(title=title, intro=intro, failure=getattr(outcome, "error", None)
-                   or "this part was not run")
+    return Section(title=title, intro=intro, failure=outcome.error or "this part was not run")
 
 
 def as_frame(result: Any) -> pd.DataFrame:
