@@ -43,7 +43,8 @@ def demo_run(demo_prepared):
 
 
 class _RowFinder(pickle.Pickler):
-    """Pickles an object and notes every StartStop and every array as long as the table."""
+    """Pickles an object and notes every StartStop and every array half as long as the
+    table or longer (a model's fitting rows may be fewer than the table's)."""
 
     def __init__(self, n_rows: int) -> None:
         super().__init__(io.BytesIO(), protocol=pickle.HIGHEST_PROTOCOL)
@@ -54,7 +55,7 @@ class _RowFinder(pickle.Pickler):
         if isinstance(obj, StartStop):
             self.found.append("StartStop")
             return "table"
-        if isinstance(obj, np.ndarray) and obj.ndim and obj.shape[0] == self.n_rows:
+        if isinstance(obj, np.ndarray) and obj.ndim and 2 * obj.shape[0] >= self.n_rows:
             self.found.append(f"array {obj.shape}")
         return None
 
