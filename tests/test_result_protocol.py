@@ -36,6 +36,7 @@ from retain import StartStop
 from retain.estimates import Estimates, RetentionPrediction
 from retain.models.competing import cause_specific_cox
 from retain.models.cox import fit_cox
+from retain.models.curves import curves_by, kaplan_meier, nelson_aalen
 from retain.models.parametric import fit_exponential, fit_piecewise, fit_weibull
 from retain.models.renewal import fit_renewal
 
@@ -329,3 +330,19 @@ def test_level_and_conf_give_the_same_fit(whas, fit_fn):
     assert fit_fn(whas).level == 0.95
     with pytest.raises(ModelError, match="both level"):
         fit_fn(whas, level=0.9, conf=0.9)
+
+
+@pytest.mark.parametrize("curve_fn", [
+    lambda t, **k: kaplan_meier(t, **k),
+    lambda t, **k: nelson_aalen(t, **k),
+    lambda t, **k: curves_by(t, "gender", **k)["1"],
+])
+def test_curves_take_level_and_conf_alike(whas, curve_fn):
+    from retain.errors import ModelError
+
+    a, b = curve_fn(whas, level=0.9), curve_fn(whas, conf=0.9)
+    assert a.level == b.level == 0.9 and curve_fn(whas).level == 0.95
+    np.testing.assert_array_equal(a.lower, b.lower)
+    np.testing.assert_array_equal(a.upper, b.upper)
+    with pytest.raises(ModelError, match="both level"):
+        curve_fn(whas, level=0.9, conf=0.9)

@@ -44,7 +44,7 @@ from retain.kernels.risksets import (
     risk_table,
 )
 from retain.models._segments import column_codes
-from retain.results import LevelFromConf, Result
+from retain.results import Result, resolve_level
 from retain.units import DAYS_PER_MONTH
 
 INTERVALS = ("log-log", "log", "linear")
@@ -62,14 +62,12 @@ def _check_table(table: object, where: str) -> StartStop:
     return table
 
 
-def _check_conf(conf: float, ci: str, where: str) -> float:
-    if not (isinstance(conf, (int, float)) and 0.0 < float(conf) < 1.0):
-        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}",
-                         "use e.g. conf=0.95")
+def _level_z(level: float, ci: str, where: str) -> float:
+    """The normal quantile of a level already checked by ``resolve_level``; checks ``ci``."""
     if ci not in INTERVALS:
         raise ModelError(where, f"unknown interval type {ci!r}",
                          f"choose one of: {', '.join(INTERVALS)}")
-    return float(stats.norm.isf((1.0 - float(conf)) / 2.0))
+    return float(stats.norm.isf((1.0 - float(level)) / 2.0))
 
 
 def _exits(table: StartStop) -> np.ndarray | None:
@@ -109,7 +107,7 @@ def _fmt_days(d: float | None) -> str:
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True, eq=False)
-class LifetimeQuantile(Result, LevelFromConf):
+class LifetimeQuantile(Result):
     """A quantile of tenure: the time by which a fraction ``p`` of customers has churned.
 
     ``days`` is None when the curve never falls to ``1 - p`` ("not reached");
@@ -124,7 +122,7 @@ class LifetimeQuantile(Result, LevelFromConf):
     days: float | None
     lower: float | None
     upper: float | None
-    conf: float
+    level: float
     ci: str
 
     @property
@@ -138,12 +136,12 @@ class LifetimeQuantile(Result, LevelFromConf):
 
     def summary(self) -> str:
         what = "median tenure" if self.p == 0.5 else f"time to {self.p:.0%} churned"
-        return (f"{self.label}: {what} {_fmt_days(self.days)}; {self.conf:.0%} interval "
+        return (f"{self.label}: {what} {_fmt_days(self.days)}; {self.level:.0%} interval "
                 f"{_fmt_days(self.lower)} to {_fmt_days(self.upper)}")
 
 
 @dataclass(frozen=True, eq=False)
-class RestrictedMean(Result, LevelFromConf):
+class RestrictedMean(Result):
     """Restricted mean tenure: expected days retained within the first ``horizon`` days.
 
     The area under the Kaplan–Meier curve from 0 to ``horizon`` (Irwin 1949),
@@ -156,7 +154,7 @@ class RestrictedMean(Result, LevelFromConf):
     se: float
     lower: float
     upper: float
-    conf: float
+    level: float
     warnings: tuple[str, ...] = ()
 
     def to_frame(self) -> pd.DataFrame:
@@ -165,12 +163,12 @@ class RestrictedMean(Result, LevelFromConf):
 
     def summary(self) -> str:
         return (f"{self.label}: of the first {self.horizon:g} days a customer stays "
-                f"{self.mean:.1f} days on average ({self.conf:.0%} CI {self.lower:.1f} to "
+                f"{self.mean:.1f} days on average ({self.level:.0%} CI {self.lower:.1f} to "
                 f"{self.upper:.1f})")
 
 
 @dataclass(frozen=True, eq=False)
-class RetentionCurve(Result, LevelFromConf):
+class RetentionCurve(Result):
     """Kaplan–Meier retention (survival) curve on start-stop data.
 
     Arrays are indexed by the distinct times at which a customer churned or left
@@ -192,7 +190,7 @@ class RetentionCurve(Result, LevelFromConf):
     lower: np.ndarray
     upper: np.ndarray
     greenwood: np.ndarray
-    conf: float
+    level: float
     ci: str
     n_rows: int
     n_customers: int
@@ -268,7 +266,7 @@ class RetentionCurve(Result, LevelFromConf):
             lower = upper = None
             if days is not None:  # interval collapsed onto the point (tiny SE)
                 lower = upper = days
-        return LifetimeQuantile(self.label, float(p), days, lower, upper, self.conf, self.ci)
+        return LifetimeQuantile(self.label, float(p), days, lower, upper, self.level, self.ci)
 
     def median(self) -> LifetimeQuantile:
         """Median tenure with its Brookmeyer–Crowley interval."""
@@ -295,7 +293,7 @@ class RetentionCurve(Result, LevelFromConf):
                              f"choose a horizon <= {self.follow_up:g} days")
         mean, se = K.restricted_mean(self.times, self.survival, self.at_risk, self.events,
                                      float(horizon))
-        z = float(stats.norm.isf((1.0 - self.conf) / 2.0))
+        z = float(stats.norm.isf((1.0 - self.level) / 2.0))
         warn = ()
         ev_t = self.times[self.events > 0]
         if self.reached_zero and horizon > self.follow_up:
@@ -305,7 +303,7 @@ class RetentionCurve(Result, LevelFromConf):
             warn = (f"no churn observed between the last churn and the horizon {horizon:g} days; "
                     "the curve is held flat there",)
         return RestrictedMean(self.label, float(horizon), mean, se, mean - z * se, mean + z * se,
-                              self.conf, warn)
+                              self.level, warn)
 
     # ---- presentation
     def to_frame(self) -> pd.DataFrame:
@@ -322,14 +320,14 @@ class RetentionCurve(Result, LevelFromConf):
         if self.follow_up >= yr:
             s = float(self.at(yr)[0])
             lo, hi = (float(x[0]) for x in self.interval_at(yr))
-            parts.append(f"retained at 12 months {s:.1%} ({self.conf:.0%} {self.ci} CI "
+            parts.append(f"retained at 12 months {s:.1%} ({self.level:.0%} {self.ci} CI "
                          f"{lo:.1%} to {hi:.1%})")
         parts.append(f"median tenure {_fmt_days(self.median().days)}")
         return "; ".join(parts)
 
 
 @dataclass(frozen=True, eq=False)
-class CumulativeHazard(Result, LevelFromConf):
+class CumulativeHazard(Result):
     """Nelson–Aalen cumulative hazard with Aalen's variance and log-scale interval."""
 
     label: str
@@ -340,7 +338,7 @@ class CumulativeHazard(Result, LevelFromConf):
     variance: np.ndarray
     lower: np.ndarray
     upper: np.ndarray
-    conf: float
+    level: float
     follow_up: float
     n_events: float
 
@@ -411,8 +409,8 @@ class SegmentCurves(Result):
 
 
 # --------------------------------------------------------------------------- entry points
-def kaplan_meier(table: StartStop, *, conf: float = 0.95, ci: str = "log-log",
-                 label: str = "all customers") -> RetentionCurve:
+def kaplan_meier(table: StartStop, *, level: float | None = None, ci: str = "log-log",
+                 label: str = "all customers", conf: float | None = None) -> RetentionCurve:
     """Kaplan–Meier retention curve with Greenwood standard errors.
 
     .. math::
@@ -429,8 +427,9 @@ def kaplan_meier(table: StartStop, *, conf: float = 0.95, ci: str = "log-log",
     Parameters
     ----------
     table : StartStop
-    conf : float
-        Level of the pointwise intervals (default 0.95).
+    level : float
+        Level of the pointwise intervals (default 0.95); ``conf=`` is accepted as its
+        older name.
     ci : {"log-log", "log", "linear"}
         Interval scale; log-log (default) keeps limits inside (0, 1).
     label : str
@@ -438,11 +437,12 @@ def kaplan_meier(table: StartStop, *, conf: float = 0.95, ci: str = "log-log",
     """
     where = f"Kaplan–Meier ({label})"
     table = _check_table(table, where)
-    z = _check_conf(conf, ci, where)
-    return _km(table, z, float(conf), ci, label, _exits(table))
+    level = resolve_level(level, conf, where)
+    z = _level_z(level, ci, where)
+    return _km(table, z, float(level), ci, label, _exits(table))
 
 
-def _km(table: StartStop, z: float, conf: float, ci: str, label: str,
+def _km(table: StartStop, z: float, level: float, ci: str, label: str,
         exits: np.ndarray | None) -> RetentionCurve:
     rt = risk_table(table.start, table.stop, table.churned, table.weight, exits=exits)
     surv, gw = K.product_limit(rt.at_risk, rt.events)
@@ -454,15 +454,15 @@ def _km(table: StartStop, z: float, conf: float, ci: str, label: str,
     return RetentionCurve(
         label=label, times=rt.times, at_risk=rt.at_risk, events=rt.events,
         censored=rt.censored, survival=surv, se=surv * np.sqrt(gw), lower=lower, upper=upper,
-        greenwood=gw, conf=conf, ci=ci, n_rows=table.n_rows,
+        greenwood=gw, level=level, ci=ci, n_rows=table.n_rows,
         n_customers=_count_customers(table),
         n_events=n_events, follow_up=float(table.stop.max()),
         first_entry=float(table.start.min()), warnings=tuple(warnings),
     )
 
 
-def nelson_aalen(table: StartStop, *, conf: float = 0.95,
-                 label: str = "all customers") -> CumulativeHazard:
+def nelson_aalen(table: StartStop, *, level: float | None = None,
+                 label: str = "all customers", conf: float | None = None) -> CumulativeHazard:
     """Nelson–Aalen cumulative hazard of churn with Aalen's variance.
 
     :math:`\\hat H(t) = \\sum_{t_j \\le t} d_j / n_j`, variance
@@ -472,13 +472,14 @@ def nelson_aalen(table: StartStop, *, conf: float = 0.95,
     """
     where = f"Nelson–Aalen ({label})"
     table = _check_table(table, where)
-    z = _check_conf(conf, "log", where)
+    level = resolve_level(level, conf, where)
+    z = _level_z(level, "log", where)
     rt = risk_table(table.start, table.stop, table.churned, table.weight, exits=_exits(table))
     h, var = K.cumulative_hazard(rt.at_risk, rt.events)
     se = np.sqrt(var)
     ratio = np.divide(z * se, h, out=np.zeros_like(h), where=h > 0)
     return CumulativeHazard(label, rt.times, rt.at_risk, rt.events, h, var, h * np.exp(-ratio),
-                            h * np.exp(ratio), float(conf), float(table.stop.max()),
+                            h * np.exp(ratio), float(level), float(table.stop.max()),
                             float(rt.events.sum()))
 
 
@@ -496,8 +497,8 @@ def spell_start_codes(table: StartStop, by: str) -> tuple[np.ndarray, tuple[str,
     return codes[head], levels, "spell start"
 
 
-def curves_by(table: StartStop, by: str, *, conf: float = 0.95,
-              ci: str = "log-log") -> SegmentCurves:
+def curves_by(table: StartStop, by: str, *, level: float | None = None,
+              ci: str = "log-log", conf: float | None = None) -> SegmentCurves:
     """Kaplan–Meier curve for each value of column ``by``.
 
     Any categorical (or numeric, by distinct value) column of the table. Each
@@ -509,20 +510,21 @@ def curves_by(table: StartStop, by: str, *, conf: float = 0.95,
     """
     where = f"curves by {by!r}"
     table = _check_table(table, where)
-    z = _check_conf(conf, ci, where)
+    level = resolve_level(level, conf, where)
+    z = _level_z(level, ci, where)
     codes, levels, basis = spell_start_codes(table, by)
     exits = _exits(table)
     curves: dict[str, RetentionCurve] = {}
     warnings: list[str] = []
     lean = _without_covariates(table)
-    for code, level in enumerate(levels):
+    for code, value in enumerate(levels):
         mask = codes == code
         if not mask.any():
             continue
         sub = lean.take(mask)
-        c = _km(sub, z, float(conf), ci, f"{by} = {level}",
+        c = _km(sub, z, float(level), ci, f"{by} = {value}",
                 None if exits is None else exits[mask])
-        curves[level] = c
+        curves[value] = c
         warnings.extend(c.warnings)
     missing = codes < 0
     n_missing = float(table.weight[missing].sum())
@@ -535,7 +537,7 @@ def curves_by(table: StartStop, by: str, *, conf: float = 0.95,
 
 # --------------------------------------------------------------------------- cohort table
 @dataclass(frozen=True, eq=False)
-class CohortTable(Result, LevelFromConf):
+class CohortTable(Result):
     """Cohort × month retention: Kaplan–Meier per signup cohort, read at whole months.
 
     Matrices have one row per cohort (``cohorts``, 'YYYY-MM') and one column per
@@ -570,7 +572,7 @@ class CohortTable(Result, LevelFromConf):
     churn_rate: np.ndarray
     churn_rate_lower: np.ndarray
     churn_rate_upper: np.ndarray
-    conf: float
+    level: float
     ci: str
     as_of_basis: str
     warnings: tuple[str, ...] = ()
@@ -603,8 +605,9 @@ class CohortTable(Result, LevelFromConf):
                 f"{int(obs.sum())} observable cells")
 
 
-def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
-                     ci: str = "log-log", cohort: str = "cohort") -> CohortTable:
+def cohort_retention(table: StartStop, *, months: int = 24, level: float | None = None,
+                     ci: str = "log-log", cohort: str = "cohort",
+                     conf: float | None = None) -> CohortTable:
     """Cohort × months-since-start retention table built from Kaplan–Meier curves.
 
     Each cell is the Kaplan–Meier retention of that signup cohort at tenure
@@ -642,7 +645,8 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
     """
     where = "cohort retention"
     table = _check_table(table, where)
-    z = _check_conf(conf, ci, where)
+    level = resolve_level(level, conf, where)
+    z = _level_z(level, ci, where)
     if not (isinstance(months, (int, np.integer)) and months >= 1):
         raise ModelError(where, f"months must be a positive whole number, got {months!r}",
                          "e.g. months=24")
@@ -678,11 +682,11 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
             reach = last_day - float(start_day[mask].min())
         else:
             reach = float(sub.stop.max())
-        entered[code] = _cohort_km_cells(out, code, sub, ex, reach, grid, z, float(conf), ci,
+        entered[code] = _cohort_km_cells(out, code, sub, ex, reach, grid, z, float(level), ci,
                                          levels[code], warnings)
         _cohort_monthly_churns(out, code, sub, reach, edges, months)
     rows = np.array(keep_rows, dtype=np.int64)
-    rate_lo, rate_hi = _churn_rate_limits(out, float(conf))
+    rate_lo, rate_hi = _churn_rate_limits(out, float(level))
     missing = codes < 0
     if missing.any():
         warnings.append(f"{int(missing.sum())} rows have no cohort and are left out")
@@ -691,7 +695,7 @@ def cohort_retention(table: StartStop, *, months: int = 24, conf: float = 0.95,
         started=started[rows], entered_at=entered[rows], retention=out["retention"][rows],
         lower=out["lower"][rows], upper=out["upper"][rows], at_risk=out["at_risk"][rows],
         churns=out["churns"][rows], exposure=out["exposure"][rows], churn_rate=out["rate"][rows],
-        churn_rate_lower=rate_lo[rows], churn_rate_upper=rate_hi[rows], conf=float(conf), ci=ci,
+        churn_rate_lower=rate_lo[rows], churn_rate_upper=rate_hi[rows], level=float(level), ci=ci,
         as_of_basis=basis, warnings=tuple(warnings),
     )
 
@@ -719,9 +723,9 @@ def _cohort_codes(table: StartStop, cohort: str, where: str
 
 def _cohort_km_cells(out: dict[str, np.ndarray], code: int, sub: StartStop,
                      ex: np.ndarray | None, reach: float, grid: np.ndarray, z: float,
-                     conf: float, ci: str, label: str, warnings: list[str]) -> float:
+                     level: float, ci: str, label: str, warnings: list[str]) -> float:
     """Fill one cohort's retention, limits and at-risk cells; returns its entry tenure."""
-    c = _km(sub, z, conf, ci, label, ex)
+    c = _km(sub, z, level, ci, label, ex)
     s = _step_lookup(c.times, c.survival, grid, 1.0)
     lo = _step_lookup(c.times, c.lower, grid, 1.0)
     hi = _step_lookup(c.times, c.upper, grid, 1.0)
@@ -754,10 +758,10 @@ def _cohort_monthly_churns(out: dict[str, np.ndarray], code: int, sub: StartStop
     out["rate"][code] = np.where(open_, churns / np.where(expo > 0, expo, 1.0), np.nan)
 
 
-def _churn_rate_limits(out: dict[str, np.ndarray], conf: float
+def _churn_rate_limits(out: dict[str, np.ndarray], level: float
                        ) -> tuple[np.ndarray, np.ndarray]:
     """Exact Poisson (Garwood 1936) limits of the monthly churn rates; NaN where no rate."""
-    alpha = 1.0 - conf
+    alpha = 1.0 - level
     d = out["churns"]
     e = out["exposure"]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -769,7 +773,7 @@ def _churn_rate_limits(out: dict[str, np.ndarray], conf: float
 
 # --------------------------------------------------------------------------- time grid
 @dataclass(frozen=True, eq=False)
-class RetentionGrid(Result, LevelFromConf):
+class RetentionGrid(Result):
     """Retention read off a curve at chosen tenures, with intervals and numbers at risk.
 
     Points past the curve's last observed tenure are NaN and listed in
@@ -783,7 +787,7 @@ class RetentionGrid(Result, LevelFromConf):
     lower: np.ndarray
     upper: np.ndarray
     at_risk: np.ndarray
-    conf: float
+    level: float
     ci: str
     warnings: tuple[str, ...] = ()
 
@@ -831,7 +835,7 @@ def retention_grid(curve: RetentionCurve, months: Sequence[float] | None = GRID_
     n = np.where(np.isfinite(s), curve.at_risk_at(d), np.nan)
     warn = tuple(f"{curve.label}: {x:g} days is past the last observed tenure "
                  f"({curve.follow_up:g} days)" for x in d[~np.isfinite(s)])
-    return RetentionGrid(curve.label, m, d, s, lo, hi, n, curve.conf, curve.ci, warn)
+    return RetentionGrid(curve.label, m, d, s, lo, hi, n, curve.level, curve.ci, warn)
 
 
 # --------------------------------------------------------------------------- comparisons
@@ -983,7 +987,7 @@ def compare_groups(table: StartStop, by: str, *, strata: str | None = None,
 
 
 @dataclass(frozen=True, eq=False)
-class RestrictedMeanDifference(Result, LevelFromConf):
+class RestrictedMeanDifference(Result):
     """Difference in restricted mean tenure between two groups (``other`` − ``reference``).
 
     Independent groups: ``se = sqrt(se_ref^2 + se_other^2)``, normal interval
@@ -999,7 +1003,7 @@ class RestrictedMeanDifference(Result, LevelFromConf):
     lower: float
     upper: float
     p_value: float
-    conf: float
+    level: float
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([
@@ -1010,13 +1014,14 @@ class RestrictedMeanDifference(Result, LevelFromConf):
 
     def summary(self) -> str:
         return (f"Within {self.horizon:g} days, {self.other.label} stays {self.difference:+.1f} "
-                f"days vs {self.reference.label} ({self.conf:.0%} CI {self.lower:+.1f} to "
+                f"days vs {self.reference.label} ({self.level:.0%} CI {self.lower:+.1f} to "
                 f"{self.upper:+.1f}, p = {self.p_value:.3g})")
 
 
 def rmst_difference(table: StartStop, by: str, horizon: float, *,
                     levels: tuple[str, str] | None = None,
-                    conf: float = 0.95) -> RestrictedMeanDifference:
+                    level: float | None = None,
+                    conf: float | None = None) -> RestrictedMeanDifference:
     """Restricted mean tenure of two groups up to ``horizon`` days and their difference.
 
     ``levels = (reference, other)``; default: the column's two values in
@@ -1026,7 +1031,8 @@ def rmst_difference(table: StartStop, by: str, horizon: float, *,
     """
     where = f"restricted mean difference by {by!r}"
     table = _check_table(table, where)
-    curves = curves_by(table, by, conf=conf)
+    level = resolve_level(level, conf, where)
+    curves = curves_by(table, by, level=level)
     if levels is None:
         if len(curves) != 2:
             raise ModelError(where, f"column {by!r} has {len(curves)} groups with data",
@@ -1042,7 +1048,7 @@ def rmst_difference(table: StartStop, by: str, horizon: float, *,
     b = oth.restricted_mean(horizon)
     diff = b.mean - a.mean
     se = math.hypot(a.se, b.se)
-    z = float(stats.norm.isf((1.0 - conf) / 2.0))
+    z = float(stats.norm.isf((1.0 - level) / 2.0))
     pval = float(2 * stats.norm.sf(abs(diff) / se)) if se > 0 else math.nan
     return RestrictedMeanDifference(by, a, b, float(horizon), diff, se, diff - z * se,
-                                    diff + z * se, pval, float(conf))
+                                    diff + z * se, pval, float(level))
