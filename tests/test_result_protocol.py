@@ -346,3 +346,13 @@ def test_curves_take_level_and_conf_alike(whas, curve_fn):
     np.testing.assert_array_equal(a.upper, b.upper)
     with pytest.raises(ModelError, match="both level"):
         curve_fn(whas, level=0.9, conf=0.9)
+
+
+def test_renewal_takes_level_and_conf_alike(whas):
+    from retain.errors import ModelError
+
+    a, b = fit_renewal(whas, level=0.9), fit_renewal(whas, conf=0.9)
+    assert a.level == b.level == 0.9 and fit_renewal(whas).level == 0.95
+    np.testing.assert_array_equal(a.project(6).lower, b.project(6).lower)
+    with pytest.raises(ModelError, match="conf must be between 0 and 1, got 1.5"):
+        fit_renewal(whas, conf=1.5)

@@ -43,7 +43,7 @@ from retain.errors import ConvergenceError, DataError, ModelError
 from retain.estimates import Estimates, RetentionPrediction, check_level, z_value
 from retain.kernels import renewal as R
 from retain.kernels.newton import MAX_LOG_STEP, hessian_objective, newton_maximize
-from retain.results import LevelFromConf, Result
+from retain.results import Result, resolve_level
 from retain.units import DAYS_PER_MONTH
 
 __all__ = [
@@ -196,7 +196,7 @@ def renewal_counts(table: StartStop, *, period_days: float = DAYS_PER_MONTH,
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True, eq=False)
-class RenewalProjection(Result, LevelFromConf):
+class RenewalProjection(Result):
     """Projected survival S(t), retention rates r_t and survivors per ``cohort_size``.
 
     ``observed`` marks periods the fit saw; the rest are projections.
@@ -214,7 +214,7 @@ class RenewalProjection(Result, LevelFromConf):
     observed: np.ndarray
     observed_survival: np.ndarray
     period_days: float | None
-    conf: float
+    level: float
     warnings: tuple[str, ...] = ()
 
     def to_frame(self) -> pd.DataFrame:
@@ -227,14 +227,14 @@ class RenewalProjection(Result, LevelFromConf):
     def summary(self) -> str:
         last = len(self.periods) - 1
         text = (f"{self.label}: of {self.cohort_size:g} customers, {self.survivors[last]:.0f} "
-                f"expected after {int(self.periods[last])} renewals ({self.conf:.0%} CI "
+                f"expected after {int(self.periods[last])} renewals ({self.level:.0%} CI "
                 f"{self.lower[last] * self.cohort_size:.0f} to "
                 f"{self.upper[last] * self.cohort_size:.0f})")
         return text + ("; " + "; ".join(self.warnings) if self.warnings else "")
 
 
 @dataclass(frozen=True, eq=False)
-class RenewalFit(Result, LevelFromConf):
+class RenewalFit(Result):
     """A fitted shifted-beta-geometric model.
 
     ``alpha`` and ``beta`` are the Beta mixing distribution's parameters;
@@ -251,13 +251,13 @@ class RenewalFit(Result, LevelFromConf):
     n_customers: float
     n_periods: int
     period_days: float | None
-    conf: float
+    level: float
     iterations: int
     warnings: tuple[str, ...] = ()
 
     @property
     def _z(self) -> float:
-        return float(stats.norm.isf((1.0 - self.conf) / 2.0))
+        return float(stats.norm.isf((1.0 - self.level) / 2.0))
 
     @property
     def intervals(self) -> pd.DataFrame:
@@ -272,7 +272,7 @@ class RenewalFit(Result, LevelFromConf):
         """(log alpha, log beta) with their covariance, read as alpha and beta."""
         return Estimates(model="shifted-beta-geometric", names=("alpha", "beta"),
                          estimate=np.log([self.alpha, self.beta]), cov=self.cov,
-                         scale=("log alpha", "log beta"), level=self.conf)
+                         scale=("log alpha", "log beta"), level=self.level)
 
     @property
     def mean_churn_probability(self) -> float:
@@ -296,7 +296,7 @@ class RenewalFit(Result, LevelFromConf):
         Intervals at ``level`` (default the fit's). A warning says how many
         periods past the observed ones it reaches.
         """
-        lv = self.conf if level is None else check_level(level, "renewal projection")
+        lv = self.level if level is None else check_level(level, "renewal projection")
         if isinstance(periods, (int, np.integer)):
             if periods < 1:
                 raise DataError("renewal projection", "periods must be >= 1", "pass e.g. 12")
@@ -349,7 +349,7 @@ class RenewalFit(Result, LevelFromConf):
         pr = self.project(periods.tolist(), level=level)
         return RetentionPrediction(
             model="shifted-beta-geometric", times=t, survival=pr.survival, lower=pr.lower,
-            upper=pr.upper, level=pr.conf, extrapolated=periods > self.n_periods,
+            upper=pr.upper, level=pr.level, extrapolated=periods > self.n_periods,
             cumulative_hazard=-np.log(pr.survival), follow_up=self.n_periods * unit,
             profile={"segment": self.label}, warnings=pr.warnings)
 
@@ -402,7 +402,7 @@ def _dlogS(alpha: float, beta: float, t: int) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------- fitting
-def _fit_counts(counts: RenewalCounts, conf: float, where: str) -> RenewalFit:
+def _fit_counts(counts: RenewalCounts, level: float, where: str) -> RenewalFit:
     if counts.churned.sum() <= 0:
         raise ModelError(where, "no customer was lost at any renewal",
                          "the sBG model needs at least one churn; use a longer history")
@@ -445,7 +445,7 @@ def _fit_counts(counts: RenewalCounts, conf: float, where: str) -> RenewalFit:
     return RenewalFit(label=counts.label, alpha=a, beta=b, cov=cov, loglik=float(ll),
                       counts=counts, n_customers=float(counts.at_risk[0]),
                       n_periods=counts.n_periods, period_days=counts.period_days,
-                      conf=float(conf), iterations=len(history), warnings=tuple(warnings))
+                      level=float(level), iterations=len(history), warnings=tuple(warnings))
 
 
 def _negative_definite(hess: np.ndarray) -> bool:
@@ -456,14 +456,11 @@ def _negative_definite(hess: np.ndarray) -> bool:
     return True
 
 
-def _check_conf(conf: float, where: str) -> None:
-    if not (isinstance(conf, (int, float)) and 0.0 < float(conf) < 1.0):
-        raise ModelError(where, f"conf must be between 0 and 1, got {conf!r}", "use e.g. 0.95")
 
 
 def fit_renewal(source: StartStop | Sequence[float] | Sequence[Sequence[float]], *,
-                period_days: float = DAYS_PER_MONTH, conf: float = 0.95,
-                label: str = "all customers") -> RenewalFit:
+                period_days: float = DAYS_PER_MONTH, level: float | None = None,
+                label: str = "all customers", conf: float | None = None) -> RenewalFit:
     """Fit the shifted-beta-geometric model by maximum likelihood.
 
     Parameters
@@ -474,20 +471,20 @@ def fit_renewal(source: StartStop | Sequence[float] | Sequence[Sequence[float]],
         different lengths (each contributes only the periods it was observed).
     period_days : float
         Length of a renewal period in days for a table (default one month).
-    conf : float
-        Interval level.
+    level : float
+        Interval level (default 0.95); ``conf=`` is accepted as its older name.
 
     Returns
     -------
     RenewalFit: ``project(periods)``, ``retention_rates(t)``, ``derl(discount, n)``.
     """
     where = f"renewal model ({label})"
-    _check_conf(conf, where)
+    level = resolve_level(level, conf, where)
     if isinstance(source, StartStop):
         counts = renewal_counts(source, period_days=period_days, label=label)
     else:
         counts = _counts_from_survivors(source, label)
-    return _fit_counts(counts, conf, where)
+    return _fit_counts(counts, level, where)
 
 
 @dataclass(frozen=True, eq=False)
@@ -515,7 +512,8 @@ class RenewalSegments(Result):
 
 
 def fit_renewal_by(table: StartStop, by: str, *, period_days: float = DAYS_PER_MONTH,
-                   conf: float = 0.95) -> RenewalSegments:
+                   level: float | None = None, conf: float | None = None
+                   ) -> RenewalSegments:
     """:func:`fit_renewal` for each level of ``by`` (e.g. ``"plan"`` or ``"cohort"``).
 
     A level that cannot be fitted (no churn, or every customer lost at the
@@ -524,21 +522,22 @@ def fit_renewal_by(table: StartStop, by: str, *, period_days: float = DAYS_PER_M
     from retain.models.curves import spell_start_codes
 
     where = f"renewal model by {by!r}"
+    level = resolve_level(level, conf, where)
     if not isinstance(table, StartStop):
         raise DataError(where, f"expected a StartStop table, got {type(table).__name__}",
                         "build one with StartStop.from_parquet / from_frame")
     codes, levels, _ = spell_start_codes(table, by)
     fits: dict[str, RenewalFit] = {}
     skipped: dict[str, str] = {}
-    for code, level in enumerate(levels):
+    for code, value in enumerate(levels):
         mask = codes == code
         if not mask.any():
             continue
         try:
-            fits[level] = fit_renewal(table.take(mask), period_days=period_days, conf=conf,
-                                      label=f"{by} = {level}")
+            fits[value] = fit_renewal(table.take(mask), period_days=period_days, level=level,
+                                      label=f"{by} = {value}")
         except ModelError as exc:
-            skipped[level] = exc.rule
+            skipped[value] = exc.rule
     return RenewalSegments(by, fits, skipped)
 
 
@@ -590,7 +589,8 @@ class RenewalBacktest(Result):
 
 def backtest_renewal(source: StartStop | Sequence[float] | Sequence[Sequence[float]],
                      train_periods: int, *, period_days: float = DAYS_PER_MONTH,
-                     conf: float = 0.95, label: str = "all customers") -> RenewalBacktest:
+                     level: float | None = None, label: str = "all customers",
+                     conf: float | None = None) -> RenewalBacktest:
     """Fit on renewals 1..k only and compare the projection with later observations.
 
     The training data are what was known when only k renewals had been seen:
@@ -599,7 +599,7 @@ def backtest_renewal(source: StartStop | Sequence[float] | Sequence[Sequence[flo
     Kaplan–Meier; n_t / n_0 for one cohort).
     """
     where = f"renewal backtest ({label})"
-    _check_conf(conf, where)
+    level = resolve_level(level, conf, where)
     k = int(train_periods)
     if isinstance(source, StartStop):
         full = renewal_counts(source, period_days=period_days, label=label)
@@ -614,7 +614,7 @@ def backtest_renewal(source: StartStop | Sequence[float] | Sequence[Sequence[flo
                          "hold out at least one observed renewal")
     if not isinstance(source, StartStop):
         train = full.truncated(k)
-    fit = _fit_counts(train, conf, where)
+    fit = _fit_counts(train, level, where)
     proj = fit.project(full.n_periods)
     obs = full.observed_survival
     return RenewalBacktest(label, k, fit, proj.periods, obs, proj.survival, proj.lower,
