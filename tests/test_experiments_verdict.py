@@ -14,7 +14,7 @@ from sksurv.datasets import load_whas500
 from retain.data.config import ExperimentSpec
 from retain.data.table import StartStop
 from retain.decisions.experiments import experiment_verdict, select_experiment
-from retain.errors import DataError
+from retain.errors import DataError, ModelError
 from retain.models.cox import fit_cox
 from retain.models.curves import compare_groups, rmst_difference
 from retain.paths import DEMO_DIR
@@ -84,6 +84,19 @@ def test_hand_verdict_revenue_and_interim() -> None:
     assert any(w.startswith("interim analysis: the planned 365-day horizon is reached on "
                             "2026-03-31") for w in early.warnings)
     assert early.to_frame()["status"].tolist() == ["interim"]
+
+
+def test_level_and_its_older_name_conf() -> None:
+    """level= and conf= give the same verdict (same seed); a level below 0.5 or both
+    names at once are one-line errors."""
+    a = experiment_verdict(_hand_table(), SPEC, as_of="2026-11-30", n_boot=20, level=0.9)
+    b = experiment_verdict(_hand_table(), SPEC, as_of="2026-11-30", n_boot=20, conf=0.9)
+    assert a.level == b.level == a.revenue[0].level == 0.9
+    assert a.revenue[0].lower == b.revenue[0].lower
+    with pytest.raises(ModelError, match=r"level must be in \[0.5, 1\), got 0.4"):
+        experiment_verdict(_hand_table(), SPEC, as_of="2026-11-30", level=0.4)
+    with pytest.raises(ModelError, match="both level"):
+        experiment_verdict(_hand_table(), SPEC, as_of="2026-11-30", level=0.9, conf=0.9)
 
 
 def test_selection_errors() -> None:

@@ -55,7 +55,7 @@ from retain.models.curves import (
     curves_by,
     rmst_difference,
 )
-from retain.results import Result, to_jsonable
+from retain.results import Result, resolve_level, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 #: |standardised difference| above this flags an unbalanced attribute (common practice;
@@ -85,7 +85,7 @@ class RevenueComparison:
     lower: float
     upper: float
     se: float
-    conf: float
+    level: float
     method: str
 
 
@@ -129,7 +129,7 @@ class ExperimentVerdict(Result):
     revenue: tuple[RevenueComparison, ...]
     balance: pd.DataFrame
     power: dict[str, Any]
-    conf: float
+    level: float
     warnings: tuple[str, ...] = ()
     missing: Any = None  # MissingCovariates of the adjusted Cox fit (rows left out)
 
@@ -137,7 +137,7 @@ class ExperimentVerdict(Result):
         out = {k: to_jsonable(getattr(self, k)) for k in (
             "name", "arm", "control", "treatments", "selection", "as_of",
             "planned_horizon_days", "analysis_horizon_days", "interim", "arms", "adjusted",
-            "revenue", "balance", "power", "conf", "warnings", "missing")}
+            "revenue", "balance", "power", "level", "warnings", "missing")}
         out["logrank"] = self.logrank.to_dict()
         out["rmst"] = [to_jsonable({"treatment": r.other.label, "difference": r.difference,
                                     "lower": r.lower, "upper": r.upper, "se": r.se,
@@ -372,7 +372,7 @@ def revenue_per_customer(table: StartStop, price: str, horizon_days: float, *,
 
 
 def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
-                            treatments: Sequence[str], covariates: Sequence[str], conf: float,
+                            treatments: Sequence[str], covariates: Sequence[str], level: float,
                             missing: str = ModelConfig.missing
                             ) -> tuple[tuple[AdjustedHazardRatio, ...], list[str], Any]:
     head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
@@ -381,7 +381,7 @@ def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
                     else sub.column(name)[head]) for name in (arm, *covariates)}
     table = sub.with_columns(**fixed)
     try:
-        fit = fit_cox(table, [arm, *covariates], reference={arm: control}, conf=conf,
+        fit = fit_cox(table, [arm, *covariates], reference={arm: control}, level=level,
                       missing=missing)
     except ModelError as exc:
         return (), [f"no adjusted hazard ratio: {exc.message}"], None
@@ -439,7 +439,7 @@ def _treatments_present(sub: StartStop, acol: Categorical, spec: ExperimentSpec,
 
 def _revenue_and_rmst(sub: StartStop, arm: str, arm_of_row: np.ndarray, control: str,
                       treatments: Sequence[str], curves: SegmentCurves, analysis: float, *,
-                      price: str, conf: float, n_boot: int, seed: int, warnings: list[str]
+                      price: str, level: float, n_boot: int, seed: int, warnings: list[str]
                       ) -> tuple[list[RestrictedMeanDifference], list[RevenueComparison],
                                  dict[str, tuple[float, np.ndarray]]]:
     """Restricted-mean and revenue differences of each treatment arm against the control,
@@ -455,20 +455,20 @@ def _revenue_and_rmst(sub: StartStop, arm: str, arm_of_row: np.ndarray, control:
         limit = min(curves[control].known_until, curves[t].known_until)
         h = min(analysis, limit)
         try:
-            rmst.append(rmst_difference(pair, arm, h, levels=(control, t), conf=conf))
+            rmst.append(rmst_difference(pair, arm, h, levels=(control, t), level=level))
         except ModelError as exc:
             warnings.append(f"no restricted-mean difference for {t}: {exc.message}")
         c_est, c_rep = per_arm[control]
         t_est, t_rep = per_arm[t]
         diff_rep = t_rep - c_rep
-        lo, hi = percentile_interval(diff_rep, conf)
-        clo, chi = percentile_interval(c_rep, conf)
-        tlo, thi = percentile_interval(t_rep, conf)
+        lo, hi = percentile_interval(diff_rep, level)
+        clo, chi = percentile_interval(c_rep, level)
+        tlo, thi = percentile_interval(t_rep, level)
         revenue.append(RevenueComparison(
             control=control, treatment=t, horizon_days=analysis, control_revenue=c_est,
             control_lower=clo, control_upper=chi, treatment_revenue=t_est, treatment_lower=tlo,
             treatment_upper=thi, difference=t_est - c_est, lower=lo, upper=hi,
-            se=float(np.std(diff_rep, ddof=1)), conf=conf,
+            se=float(np.std(diff_rep, ddof=1)), level=level,
             method=(f"price x months at risk to {analysis:g} days, Kaplan-Meier weighted "
                     f"(Lin et al. 1997); percentile interval over {n_boot} bootstrap "
                     "resamples of customers within each arm")))
@@ -477,7 +477,7 @@ def _revenue_and_rmst(sub: StartStop, arm: str, arm_of_row: np.ndarray, control:
 
 def _arm_rows(sub: StartStop, arm_of_row: np.ndarray, control: str, treatments: Sequence[str],
               curves: SegmentCurves, analysis: float,
-              per_arm: dict[str, tuple[float, np.ndarray]], conf: float) -> pd.DataFrame:
+              per_arm: dict[str, tuple[float, np.ndarray]], level: float) -> pd.DataFrame:
     """One row per arm: customers, churns, retention and revenue per customer at the
     analysis horizon, with intervals."""
     rows = []
@@ -486,7 +486,7 @@ def _arm_rows(sub: StartStop, arm_of_row: np.ndarray, control: str, treatments: 
         s_h = float(c.at(analysis)[0]) if analysis <= c.follow_up else math.nan
         lo_h, hi_h = (float(x[0]) for x in c.interval_at(analysis))
         est, rep = per_arm[a]
-        rlo, rhi = percentile_interval(rep, conf)
+        rlo, rhi = percentile_interval(rep, level)
         rows.append({"arm": a, "role": "control" if a == control else "treatment",
                      "customers": float(np.sum(sub.weight[(arm_of_row == a) &
                                                           sub.last_of_spell])),
@@ -534,13 +534,14 @@ def experiment_verdict(
     *,
     as_of: dt.date | str | None = None,
     price: str = PRICE_COLUMN,
-    conf: float = 0.95,
+    level: float | None = None,
     target_hazard_ratio: float | None = None,
     power: float | None = None,
     alpha: float = 0.05,
     n_boot: int = DEFAULT_BOOT,
     seed: int = DEFAULT_SEED,
     missing: str = ModelConfig.missing,
+    conf: float | None = None,
 ) -> ExperimentVerdict:
     """Verdict on one pricing experiment (see the module docstring for what it holds).
 
@@ -556,6 +557,9 @@ def experiment_verdict(
         date (a table prepared elsewhere), nothing is interim.
     price : str
         Numeric column with the monthly price on each row.
+    level : float
+        Level of every interval, in [0.5, 1) (default 0.95); ``conf=`` is accepted as
+        its older name.
     target_hazard_ratio, power, alpha
         The effect the experiment was sized for (default: the spec's
         ``target_hazard_ratio``; ``power`` defaults to the spec's); with a target, a warning is
@@ -580,8 +584,10 @@ def experiment_verdict(
         power = spec.power
     if not table.has_customers:
         raise DataError(where, "the table has no customer_id", "use the uncompressed table")
-    if not 0.5 <= conf < 1.0:
-        raise ModelError(where, f"conf must be in [0.5, 1), got {conf!r}", "use 0.95")
+    level = resolve_level(level, conf, where)
+    if level < 0.5:
+        raise ModelError(where, f"{'conf' if conf is not None else 'level'} must be in [0.5, 1), "
+                         f"got {level!r}", "use 0.95")
     arm, control = spec.arm, spec.control
     sub, selection = select_experiment(table, spec)
     acol = sub.column(arm)
@@ -591,22 +597,22 @@ def experiment_verdict(
 
     planned, analysis, interim = _horizons(spec, as_of_d, float(sub.stop.max()), warnings)
 
-    curves = curves_by(sub, arm, conf=conf)
+    curves = curves_by(sub, arm, level=level)
     warnings.extend(curves.warnings)
     logrank = compare_groups(sub, arm)
     warnings.extend(logrank.warnings)
     covariates = spec.covariates
     adjusted, cox_warn, dropped = _adjusted_hazard_ratios(sub, arm, control, treatments,
-                                                          covariates, conf, missing)
+                                                          covariates, level, missing)
     warnings.extend(cox_warn)
 
     # per-arm tables
     head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
     arm_of_row = acol.values()[head]
     rmst, revenue, per_arm = _revenue_and_rmst(sub, arm, arm_of_row, control, treatments,
-                                               curves, analysis, price=price, conf=conf,
+                                               curves, analysis, price=price, level=level,
                                                n_boot=n_boot, seed=seed, warnings=warnings)
-    arms = _arm_rows(sub, arm_of_row, control, treatments, curves, analysis, per_arm, conf)
+    arms = _arm_rows(sub, arm_of_row, control, treatments, curves, analysis, per_arm, level)
 
     balance = balance_table(sub, arm, control, treatments, covariates) if covariates else \
         pd.DataFrame(columns=["attribute", "kind", control, *treatments, "unbalanced"])
@@ -623,4 +629,5 @@ def experiment_verdict(
         as_of=as_of_d, planned_horizon_days=planned,
         analysis_horizon_days=analysis, interim=interim, arms=arms, curves=curves,
         logrank=logrank, adjusted=adjusted, rmst=tuple(rmst), revenue=tuple(revenue),
-        balance=balance, power=power_info, conf=conf, warnings=tuple(warnings), missing=dropped)
+        balance=balance, power=power_info, level=level, warnings=tuple(warnings),
+        missing=dropped)

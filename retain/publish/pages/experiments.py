@@ -53,7 +53,7 @@ def experiment_verdict_text(v: Any) -> str:
             parts.append(f"{t}: no adjusted hazard ratio could be computed")
             continue
         ratio = (f"(hazard ratio {adj.hazard_ratio:.2f}, "
-                 f"{interval_text(adj.lower, adj.upper, _two, v.conf)})")
+                 f"{interval_text(adj.lower, adj.upper, _two, v.level)})")
         if adj.lower > 1:
             what = f"customers on {t} churned faster than on {v.control} {ratio}"
         elif adj.upper < 1:
@@ -66,7 +66,7 @@ def experiment_verdict_text(v: Any) -> str:
             clear = "" if (rv.lower > 0 or rv.upper < 0) else ", not a clear difference"
             what += (f"; revenue per assigned customer over {rv.horizon_days:g} days was "
                      f"{num(abs(rv.difference), 2)} {sign} "
-                     f"({interval_text(rv.lower, rv.upper, _money, rv.conf)}{clear})")
+                     f"({interval_text(rv.lower, rv.upper, _money, rv.level)}{clear})")
         parts.append(what)
     return f"{status} at {v.analysis_horizon_days:g} days: " + "; ".join(parts) + "."
 
@@ -75,12 +75,13 @@ def _experiment_facts(key: str, v: Any) -> list[Fact]:
     facts = []
     for a in v.adjusted:
         facts.append(Fact(f"Hazard ratio, {a.treatment} vs {v.control}", f"{a.hazard_ratio:.2f}",
-                          f"{interval_text(a.lower, a.upper, _two, v.conf)}; adjusted for "
+                          f"{interval_text(a.lower, a.upper, _two, v.level)}; adjusted for "
                           f"{', '.join(a.covariates) or 'nothing'}",
                           f"experiment-{key}-hr-{slug(a.treatment)}", a.hazard_ratio))
     for r in v.revenue:
         facts.append(Fact(f"Revenue per customer, {r.treatment} − {r.control}",
-                          num(r.difference, 2), f"{interval_text(r.lower, r.upper, _money, r.conf)}"
+                          num(r.difference, 2),
+                          f"{interval_text(r.lower, r.upper, _money, r.level)}"
                           f" over {r.horizon_days:g} days",
                           f"experiment-{key}-revenue-{slug(r.treatment)}", r.difference))
     facts.append(Fact("Log-rank test", p_text(v.logrank.p_value), f"χ² {v.logrank.statistic:.1f} "
@@ -101,10 +102,10 @@ def _experiment_section(name: str, v: Any) -> Section:
     bullets += list(v.warnings)
     figs = (
         curves_figure(f"experiment-{key}-curves", f"Retention by arm ({name})",
-                      prose.EXPERIMENT_CURVES_GUIDE.format(level=level_text(v.conf)),
+                      prose.EXPERIMENT_CURVES_GUIDE.format(level=level_text(v.level)),
                       v.curves.items(), series_title=v.arm),
         Figure(key=f"experiment-{key}-comparison", title="Treatment against control",
-               guide=prose.EXPERIMENT_COMPARISON_GUIDE.format(level=level_text(v.conf)),
+               guide=prose.EXPERIMENT_COMPARISON_GUIDE.format(level=level_text(v.level)),
                table=v.to_frame()),
         Figure(key=f"experiment-{key}-arms", title="Arms", guide=prose.EXPERIMENT_ARMS_GUIDE,
                table=v.arms),
