@@ -183,27 +183,12 @@ def resolve_level(level: float | None, conf: float | None, where: str,
     """
     if level is not None and conf is not None:
         raise error(where, f"both level={level!r} and conf={conf!r} given",
-                         "give only level= (conf= is its older name)")
+                    "give only level= (conf= is its older name)")
     name, value = ("conf", conf) if conf is not None else ("level", level)
     if value is None:
         return float(default)
     if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) \
             or not 0.0 < float(value) < 1.0:
         raise error(where, f"{name} must be between 0 and 1, got {value!r}",
-                         f"use e.g. {name}=0.95")
+                    f"use e.g. {name}=0.95")
     return float(value)
-
-
-class LevelFromConf:
-    """Mixin for results whose confidence level is stored as the field ``conf``.
-
-    ``level`` reads it, so every result offers the one name ``level`` (the
-    pages print the level the result carries).
-    """
-
-    conf: float
-
-    @property
-    def level(self) -> float:
-        """The confidence level of the result's intervals (e.g. 0.95)."""
-        return float(self.conf)

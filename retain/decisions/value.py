@@ -50,7 +50,7 @@ from retain.models.value_curves import (
     curve_from_model,
     curve_from_renewal,
 )
-from retain.results import Result, to_jsonable
+from retain.results import Result, resolve_level, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 CAUTION = (
@@ -617,7 +617,8 @@ def residual_value(
 
 
 def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = ValueConfig.curve, *,
-                   min_events: float = 5.0, conf: float = 0.95
+                   min_events: float = 5.0, level: float | None = None,
+                   conf: float | None = None
                    ) -> tuple[dict[str, SurvivalCurve], tuple[str, ...]]:
     """One retention curve per segment (spells grouped by their starting values).
 
@@ -627,8 +628,10 @@ def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = ValueC
     segment, monthly periods) or ``cox`` (one Cox model with the ``by``
     columns, read at spell start, as covariates; each segment's profile).
     Segments with fewer than ``min_events`` churns, or whose fit fails, are
-    left out with a warning.
+    left out with a warning. ``level`` is the level of the fits' intervals (default
+    0.95; ``conf=`` is accepted as its older name).
     """
+    level = resolve_level(level, conf, "lifetime value curves")
     if curve not in CURVES:
         raise ConfigError("[value] curve", f"unknown curve {curve!r}",
                           f"allowed values: {', '.join(CURVES)}")
@@ -645,12 +648,12 @@ def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = ValueC
         fixed = {name: (table.column(name).take(head) if table.is_categorical(name)
                         else table.column(name)[head]) for name in by}
         try:
-            fit = fit_cox(table.with_columns(**fixed), list(by), conf=conf)
+            fit = fit_cox(table.with_columns(**fixed), list(by), level=level)
         except RetainError as exc:
             raise ModelError("lifetime value (cox curve)", exc.rule, exc.fix) from exc
         fixed_table = table.with_columns(**fixed)
         try:
-            tail_fit = fit_weibull(fixed_table, list(by), conf=conf)
+            tail_fit = fit_weibull(fixed_table, list(by), level=level)
         except RetainError as exc:
             raise ModelError("lifetime value (cox curve)", f"the Weibull tail failed: {exc.rule}",
                              exc.fix) from exc
@@ -666,15 +669,15 @@ def segment_curves(table: StartStop, by: Sequence[str] = (), curve: str = ValueC
             continue
         try:
             if curve == "weibull":
-                curves[seg] = curve_from_model(fit_weibull(sub, conf=conf))
+                curves[seg] = curve_from_model(fit_weibull(sub, level=level))
             elif curve == "exponential":
-                curves[seg] = curve_from_model(fit_exponential(sub, conf=conf))
+                curves[seg] = curve_from_model(fit_exponential(sub, level=level))
             elif curve == "km_weibull_tail":
-                km = kaplan_meier(sub, conf=conf, label=seg)
+                km = kaplan_meier(sub, level=level, label=seg)
                 curves[seg] = curve_from_kaplan_meier(
-                    km, curve_from_model(fit_weibull(sub, conf=conf)))
+                    km, curve_from_model(fit_weibull(sub, level=level)))
             else:
-                curves[seg] = curve_from_renewal(fit_renewal(sub, conf=conf, label=seg))
+                curves[seg] = curve_from_renewal(fit_renewal(sub, level=level, label=seg))
         except RetainError as exc:
             warnings.append(f"segment {seg!r}: not valued ({exc.message})")
     if not curves:
