@@ -33,7 +33,7 @@ import pandas as pd
 from scipy import stats
 
 from retain.errors import ModelError
-from retain.results import DEFAULT_LEVEL, Result, to_jsonable
+from retain.results import DEFAULT_LEVEL, Result, resolve_level, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 #: the confidence level used when a caller names none
@@ -44,11 +44,7 @@ __all__ = ["DEFAULT_LEVEL", "Estimates", "RetentionPrediction", "check_level", "
 
 def check_level(level: float, where: str = "interval") -> float:
     """``level`` as a float strictly between 0 and 1, or a one-line error."""
-    if isinstance(level, bool) or not isinstance(level, (int, float, np.floating)) \
-            or not 0.0 < float(level) < 1.0:
-        raise ModelError(where, f"the level must be between 0 and 1, got {level!r}",
-                         "use e.g. 0.95")
-    return float(level)
+    return resolve_level(level, None, where)
 
 
 def z_value(level: float) -> float:

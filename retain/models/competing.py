@@ -30,10 +30,10 @@ from scipy import stats
 
 from retain.data.table import CAUSES, Categorical, StartStop
 from retain.errors import DataError, ModelError
-from retain.estimates import DEFAULT_LEVEL, Estimates
+from retain.estimates import Estimates
 from retain.kernels.incidence import aalen_johansen, risk_and_events
 from retain.models._segments import by_names, segment_codes
-from retain.results import Result
+from retain.results import DEFAULT_LEVEL, Result, resolve_level
 from retain.units import DAYS_PER_MONTH
 
 UNSPECIFIED = "unspecified"
@@ -130,7 +130,7 @@ def cumulative_incidence(
     table: StartStop,
     *,
     by: str | Sequence[str] | None = None,
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     horizons: Sequence[float] = DEFAULT_HORIZONS,
 ) -> CumulativeIncidence:
     """Aalen–Johansen cumulative incidence of each churn cause, optionally by segment.
@@ -154,9 +154,7 @@ def cumulative_incidence(
     if not isinstance(table, StartStop):
         raise DataError("cumulative_incidence", f"needs a StartStop, not {type(table).__name__}",
                         "build one with StartStop.from_parquet / from_frame")
-    if not 0.0 < level < 1.0:
-        raise DataError("cumulative_incidence", f"level must be between 0 and 1, not {level!r}",
-                        "use e.g. 0.95")
+    level = resolve_level(level, None, "cumulative_incidence", error=DataError)
     kind, causes, warnings = _kinds(table)
     if not causes:
         raise ModelError(table.source, "there are no churns", "cumulative incidence needs churns")

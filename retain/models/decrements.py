@@ -53,7 +53,7 @@ from retain.kernels.graduation import (
     whittaker_henderson,
 )
 from retain.models._segments import ALL, by_names, duckdb_input, segment_codes
-from retain.results import Result
+from retain.results import DEFAULT_LEVEL, Result, resolve_level
 from retain.units import DAYS_PER_MONTH
 
 RADIX = 10_000.0
@@ -180,7 +180,7 @@ def decrement_table(
     axis: str = "tenure",
     months: int | None = None,
     cause_split: bool = True,
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     engine: str = "auto",
     con: duckdb.DuckDBPyConnection | None = None,
     band_edges: Sequence[float] | None = None,
@@ -222,9 +222,7 @@ def decrement_table(
     if axis not in AXES:
         raise DataError("decrement_table", f"axis must be one of {', '.join(AXES)}, not {axis!r}",
                         "use 'tenure' or 'calendar'")
-    if not 0.0 < level < 1.0:
-        raise DataError("decrement_table", f"level must be between 0 and 1, not {level!r}",
-                        "use e.g. 0.95")
+    level = resolve_level(level, None, "decrement_table", error=DataError)
     if months is not None and (int(months) != months or months < 1):
         raise DataError("decrement_table", f"months must be a whole number >= 1, not {months!r}",
                         "or leave it out for every month")

@@ -47,7 +47,7 @@ from retain.models.decrements import (
     exposure_by_band,
     poisson_interval,
 )
-from retain.results import Result
+from retain.results import DEFAULT_LEVEL, Result, resolve_level
 from retain.units import DAYS_PER_MONTH
 
 TENURE_MONTH = "tenure_month"
@@ -166,7 +166,7 @@ def actual_vs_expected(
     basis: Any,
     *,
     by: str | Sequence[str] = (),
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     credibility: bool = False,
     full_credibility: float | None = None,
     engine: str = "auto",
@@ -193,9 +193,7 @@ def actual_vs_expected(
         (= (z_0.95 / 0.05)², rounded as usually quoted; common practice).
     engine : ``"auto"``, ``"duckdb"``, ``"numpy"``
     """
-    if not 0.0 < level < 1.0:
-        raise DataError("actual_vs_expected", f"level must be between 0 and 1, not {level!r}",
-                        "use e.g. 0.95")
+    level = resolve_level(level, None, "actual_vs_expected", error=DataError)
     if not callable(getattr(basis, "expected_events", None)):
         raise ModelError("actual_vs_expected", f"a {type(basis).__name__} cannot serve as a basis",
                          "pass a fitted model or decrement table with expected_events(table)")
