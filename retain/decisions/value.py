@@ -50,7 +50,7 @@ from retain.models.value_curves import (
     curve_from_model,
     curve_from_renewal,
 )
-from retain.results import Result, resolve_level, to_jsonable
+from retain.results import DEFAULT_LEVEL, Result, resolve_level, to_jsonable
 from retain.units import DAYS_PER_MONTH
 
 CAUTION = (
@@ -269,7 +269,7 @@ def lifetime_value(
     segment: str = "all",
     customers: int = 0,
     margin_basis: str | None = None,
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
 ) -> LifetimeValue:
@@ -373,7 +373,7 @@ def value_sensitivity(
     annual_discount_rates: Sequence[float] = (0.0, 0.05, 0.10, 0.15, 0.20),
     horizons_months: Sequence[int] = (12, 24, 36, 60, 120),
     segment: str = "all",
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
 ) -> ValueSensitivity:
@@ -548,7 +548,7 @@ def residual_value(
     annual_discount_rate: float = ValueConfig.annual_discount_rate,
     horizon_months: int | None = ValueConfig.horizon_months,
     as_of: dt.date | str | None = None,
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
 ) -> BaseValue:
@@ -713,7 +713,7 @@ def value_by_segment(
     *,
     curves: Mapping[str, SurvivalCurve] | None = None,
     as_of: dt.date | str | None = None,
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
 ) -> SegmentValues:
@@ -758,7 +758,7 @@ def base_value_by_segment(
     *,
     curves: Mapping[str, SurvivalCurve] | None = None,
     as_of: dt.date | str | None = None,
-    level: float = 0.95,
+    level: float = DEFAULT_LEVEL,
     n_draws: int = DEFAULT_DRAWS,
     seed: int = DEFAULT_SEED,
 ) -> BaseValue:
