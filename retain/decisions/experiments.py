@@ -528,6 +528,19 @@ def _power_info(arms: pd.DataFrame, control: str, treatments: Sequence[str], pow
 # ---------------------------------------------------------------- verdict
 
 
+def _balance(sub: StartStop, arm: str, control: str, treatments: tuple[str, ...],
+             covariates: tuple[str, ...], warnings: list[str]) -> pd.DataFrame:
+    """The arms' balance on the adjustment covariates (empty without them); warns when an
+    attribute's |standardised difference| passes BALANCE_LIMIT."""
+    balance = balance_table(sub, arm, control, treatments, covariates) if covariates else \
+        pd.DataFrame(columns=["attribute", "kind", control, *treatments, "unbalanced"])
+    if not balance.empty and balance["unbalanced"].any():
+        bad = ", ".join(balance.loc[balance["unbalanced"], "attribute"])
+        warnings.append(f"arms are not balanced on {bad} (|standardised difference| > "
+                        f"{BALANCE_LIMIT}); read the adjusted hazard ratio")
+    return balance
+
+
 def experiment_verdict(
     table: StartStop,
     spec: ExperimentSpec | Mapping[str, Any],
@@ -614,13 +627,7 @@ def experiment_verdict(
                                                n_boot=n_boot, seed=seed, warnings=warnings)
     arms = _arm_rows(sub, arm_of_row, control, treatments, curves, analysis, per_arm, level)
 
-    balance = balance_table(sub, arm, control, treatments, covariates) if covariates else \
-        pd.DataFrame(columns=["attribute", "kind", control, *treatments, "unbalanced"])
-    if not balance.empty and balance["unbalanced"].any():
-        bad = ", ".join(balance.loc[balance["unbalanced"], "attribute"])
-        warnings.append(f"arms are not balanced on {bad} (|standardised difference| > "
-                        f"{BALANCE_LIMIT}); read the adjusted hazard ratio")
-
+    balance = _balance(sub, arm, control, treatments, covariates, warnings)
     power_info = _power_info(arms, control, treatments, power, alpha, target_hazard_ratio,
                              warnings)
 

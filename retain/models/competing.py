@@ -203,7 +203,8 @@ def cumulative_incidence(
 
 def _loglog_interval(f: np.ndarray, se: np.ndarray, z: float) -> tuple[np.ndarray, np.ndarray]:
     """F^{exp(±z se / (F |log F|))}; where F is 0 or 1 the bounds equal F."""
-    with np.errstate(divide="ignore", invalid="ignore"):
+    # a tiny F with a large se gives exp(z s) = inf: F ** inf = 0 is the right limit
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         ok = (f > 0) & (f < 1) & (se > 0)
         s = np.where(ok, se / (f * np.abs(np.log(np.where(ok, f, 0.5)))), 0.0)
         lower = np.where(ok, f ** np.exp(z * s), f)
