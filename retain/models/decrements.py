@@ -384,8 +384,8 @@ def exposure_by_band(con: duckdb.DuckDBPyConnection, axis: str, n_bands: int) ->
     """
     if axis == "tenure":
         run_step(con, "models/exposure_tenure",
-                 {"days_per_month": DAYS_PER_MONTH, "n_bands": n_bands},
-                 create="exposure_bands")
+                 {"days_per_month": DAYS_PER_MONTH, "n_bands": n_bands, "by_edges": False,
+                  "edges": []}, create="exposure_bands")
     else:
         run_step(con, "models/exposure_calendar", create="exposure_bands")
     return run_step(con, "models/exposure_running").df()
@@ -401,7 +401,9 @@ def _duckdb_counts(source: Any, names: tuple[str, ...], axis: str, months: int |
         where = duckdb_input(con, source, names, need_start_date=axis == "calendar")
         facts = check_input(con, where)
         if user_edges is not None:
-            run_step(con, "models/exposure_bands", {"edges": [float(e) for e in user_edges]},
+            run_step(con, "models/exposure_tenure",
+                     {"days_per_month": DAYS_PER_MONTH, "n_bands": user_edges.shape[0] - 1,
+                      "by_edges": True, "edges": [float(e) for e in user_edges]},
                      create="exposure_bands")
             raw = run_step(con, "models/exposure_running").df()
         else:
