@@ -38,6 +38,7 @@ from retain.data.table import Categorical, StartStop
 from retain.errors import ConfigError, DataError, ModelError, RetainError
 from retain.kernels import discount as kd
 from retain.kernels.risksets import first_of_spell
+from retain.models._segments import column_codes
 from retain.models.cox import fit_cox
 from retain.models.curves import kaplan_meier
 from retain.models.parametric import fit_exponential, fit_weibull
@@ -425,14 +426,9 @@ def segment_labels(table: StartStop, by: Sequence[str]) -> np.ndarray:
         if table.has_customers else np.arange(table.n_rows)
     parts = []
     for name in by:
-        col = table.column(name)
-        if isinstance(col, Categorical):
-            vals = col.values()
-            txt = np.array(["(missing)" if v is None else str(v) for v in vals], dtype=object)
-        else:
-            txt = np.array([("(missing)" if not math.isfinite(x) else f"{x:g}")
-                            for x in col], dtype=object)
-        parts.append(txt[head])
+        # the one labelling of a column (retain.models._segments); -1 reads "(missing)"
+        codes, levels = column_codes(table.column(name))
+        parts.append(np.array((*levels, "(missing)"), dtype=object)[codes[head]])
     out = parts[0]
     for p in parts[1:]:
         out = out + ", " + p
