@@ -15,6 +15,13 @@ Three promises of the build:
   previous site as it was and raises :class:`~retain.errors.BuildError`.
 * **Deterministic.** The same results give byte-identical files: no clock
   times (only the as-of date), stable ordering, explicit chart names.
+
+``results.json`` holds results, not per-row diagnostics: every long table in it
+(a list of at least :data:`TABLE_ROWS` records, or a group of equally long
+arrays in one object) is written to ``data/results/<where>.parquet`` and
+replaced by a reference (:func:`split_tables`); :func:`read_results` puts the
+tables back. So results.json grows with the number of segments and options,
+not with the number of customers.
 """
 
 from __future__ import annotations
@@ -35,6 +42,8 @@ from typing import Any
 import jinja2
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
 from markupsafe import Markup
 
 from retain.errors import BuildError, RetainError
@@ -54,6 +63,15 @@ TABLE_FILES = frozenset({
     "quarantine.csv", "reconciliation.csv", "reconciliation.json",
 })
 BUNDLE_NAME = "vega-bundle.js"
+#: a list of records, or a group of arrays, at least this long leaves results.json
+#: for a Parquet file: below it a table is a result a reader looks at (hazard
+#: ratios, AIC, one row per segment or month), at or above it a per-time or
+#: per-churn diagnostic
+TABLE_ROWS = 200
+#: where the tables taken out of results.json go, relative to the site folder
+RESULTS_TABLES = "data/results"
+#: the keys of a reference that stands in results.json where a table was
+REFERENCE_KEYS = frozenset({"parquet", "rows", "columns", "as"})
 STATIC_FILES = ("style.css", "site.js")
 
 
@@ -380,9 +398,7 @@ def _write_all(content: SiteContent, root: Path, templates: Path,
                                  "this is a bug in retain: figure keys must be unique")
             seen.add(fig.key)
             (data / f"{fig.key}.csv").write_text(csv_text(fig.download), encoding="utf-8")
-    (root / "results.json").write_text(
-        json.dumps(content.results, indent=1, ensure_ascii=False, allow_nan=False) + "\n",
-        encoding="utf-8")
+    write_results(content.results, root)
     template = env.get_template("page.html")
     nav = [(p.filename, p.label, p.group, p.slug) for p in content.pages]
     for page in content.pages:
@@ -392,3 +408,143 @@ def _write_all(content: SiteContent, root: Path, templates: Path,
         (root / page.filename).write_text(html, encoding="utf-8")
     (root / MARKER).write_text("written by retain build; replaced as a whole on rebuild\n",
                                encoding="utf-8")
+
+
+# ------------------------------------------------------------------ results.json
+
+
+def write_results(results: dict[str, Any], root: Path) -> dict[str, pa.Table]:
+    """Write ``root/results.json`` and its long tables as Parquet; return the tables by file.
+
+    The Parquet files are written with fixed settings (zstd level 3, no
+    statistics, no pandas metadata, nothing clock-dependent), so the same
+    results give the same bytes.
+    """
+    small, tables = split_tables(results)
+    if tables:
+        (root / RESULTS_TABLES).mkdir(parents=True, exist_ok=True)
+    for rel, table in tables.items():
+        pq.write_table(table, root / rel, compression="zstd", compression_level=3,
+                       write_statistics=False, use_dictionary=False)
+    (root / "results.json").write_text(
+        json.dumps(small, indent=1, ensure_ascii=False, allow_nan=False) + "\n",
+        encoding="utf-8")
+    return tables
+
+
+def split_tables(results: dict[str, Any], min_rows: int = TABLE_ROWS
+                 ) -> tuple[dict[str, Any], dict[str, pa.Table]]:
+    """Take the long tables out of a JSON-ready ``results``: (what stays, tables by file).
+
+    Two shapes leave: a list of at least ``min_rows`` records (dicts with the
+    same keys in the same order and scalar values), and the arrays of at least
+    ``min_rows`` scalars in one object that share a length (a curve's time,
+    survival, se, ...: one file, one column each). Each is replaced by a
+    reference ``{"parquet": "data/results/<where>.parquet", "rows": n,
+    "columns": [...], "as": "records" | "column"}``; ``"column"`` means the
+    array is the one named column. A table whose values Arrow cannot type
+    (mixed text and numbers) stays where it is. ``results`` is not changed.
+    """
+    tables: dict[str, pa.Table] = {}
+
+    def file_for(path: tuple[str, ...]) -> str:
+        stem = ".".join(re.sub(r"[^A-Za-z0-9_-]+", "-", part).strip("-") or "x"
+                        for part in path if part not in ("outcomes", "value"))[:120]
+        name, k = f"{RESULTS_TABLES}/{stem}.parquet", 1
+        while name in tables:
+            k += 1
+            name = f"{RESULTS_TABLES}/{stem}-{k}.parquet"
+        return name
+
+    def walk(value: Any, path: tuple[str, ...]) -> Any:
+        if isinstance(value, list):
+            table = _records_table(value, min_rows)
+            if table is not None:
+                rel = file_for(path)
+                tables[rel] = table
+                return {"parquet": rel, "rows": table.num_rows,
+                        "columns": table.column_names, "as": "records"}
+            return [walk(v, (*path, str(i))) for i, v in enumerate(value)]
+        if not isinstance(value, dict):
+            return value
+        out = {k: walk(v, (*path, k)) for k, v in value.items()
+               if not _scalar_array(v, min_rows)}
+        arrays = {k: v for k, v in value.items() if _scalar_array(v, min_rows)}
+        built = {}
+        for n in sorted({len(v) for v in arrays.values()}):
+            group = {k: v for k, v in arrays.items() if len(v) == n}
+            table = _arrays_table(group)
+            if table is None:
+                out.update({k: walk(v, (*path, k)) for k, v in group.items()})
+            else:
+                built[n] = (group, table)
+        for n, (group, table) in built.items():  # several lengths: one file each
+            rel = file_for(path if len(built) == 1 else (*path, f"n{n}"))
+            tables[rel] = table
+            for k in group:
+                out[k] = {"parquet": rel, "rows": n, "columns": [k], "as": "column"}
+        return {k: out[k] for k in value}  # the keys in their order
+
+    return walk(results, ()), tables
+
+
+def read_results(site: str | Path) -> dict[str, Any]:
+    """results.json of the site folder ``site`` with its Parquet tables put back in place."""
+    root = Path(site)
+    cache: dict[str, pa.Table] = {}
+
+    def table(rel: str) -> pa.Table:
+        if rel not in cache:
+            cache[rel] = pq.read_table(root / rel)
+        return cache[rel]
+
+    def walk(value: Any) -> Any:
+        if is_reference(value):
+            t = table(value["parquet"])
+            if value["as"] == "column":
+                return t.column(value["columns"][0]).to_pylist()
+            return t.select(value["columns"]).to_pylist()
+        if isinstance(value, dict):
+            return {k: walk(v) for k, v in value.items()}
+        if isinstance(value, list):
+            return [walk(v) for v in value]
+        return value
+
+    return walk(json.loads((root / "results.json").read_text(encoding="utf-8")))
+
+
+def is_reference(value: Any) -> bool:
+    """True for the object that stands in results.json where a table was taken out."""
+    return isinstance(value, dict) and set(value) == REFERENCE_KEYS
+
+
+def _is_scalar(v: Any) -> bool:
+    return v is None or isinstance(v, (bool, int, float, str))
+
+
+def _scalar_array(v: Any, min_rows: int) -> bool:
+    return isinstance(v, list) and len(v) >= min_rows and all(map(_is_scalar, v))
+
+
+def _records_table(rows: list[Any], min_rows: int) -> pa.Table | None:
+    if len(rows) < min_rows or not all(isinstance(r, dict) for r in rows):
+        return None
+    keys = list(rows[0])
+    if not keys or any(list(r) != keys or not all(map(_is_scalar, r.values())) for r in rows):
+        return None
+    return _arrays_table({k: [r[k] for r in rows] for k in keys})
+
+
+def _arrays_table(columns: dict[str, list[Any]]) -> pa.Table | None:
+    """An Arrow table of the columns, or None when a column has no one Arrow type that
+    gives back the same JSON values (text mixed with numbers, booleans with numbers)."""
+    arrays = []
+    for values in columns.values():
+        kinds = {type(v) for v in values if v is not None}
+        if len(kinds) > 1 and not kinds <= {int, float}:
+            return None
+        try:
+            arrays.append(pa.array(values, type=pa.float64() if kinds == {int, float} else None))
+        except (pa.ArrowInvalid, pa.ArrowTypeError, OverflowError):
+            return None
+    return pa.table(arrays, names=list(columns))
