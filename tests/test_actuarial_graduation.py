@@ -15,12 +15,15 @@ from scipy import stats
 from retain.data.table import StartStop
 from retain.errors import DataError
 from retain.kernels.graduation import (
+    chi_square_test,
     choose_smoothing,
     difference_matrix,
     gcv_score,
     grouping_of_signs_test,
     hat_trace,
     signs_test,
+    smoothing_range,
+    ubre_score,
     whittaker_henderson,
 )
 from retain.models.decrements import decrement_table, graduate
@@ -74,9 +77,12 @@ def test_gcv_from_its_definition():
         want = m * np.sum(W * (U - v) ** 2) / (m - np.trace(a)) ** 2
         assert gcv_score(U, W, h, 2) == pytest.approx(want, rel=1e-10)
         assert hat_trace(W, h, 2) == pytest.approx(np.trace(a), rel=1e-10)
-    h, g = choose_smoothing(U, W, 2)
-    grid = [gcv_score(U, W, 10 ** e, 2) for e in np.linspace(-4, 10, 300)]
-    assert g <= min(grid) + 1e-15
+    c = choose_smoothing(U, W, 2)
+    lo, hi = c.log10_range
+    grid = [gcv_score(U, W, 10 ** e, 2) for e in np.linspace(lo, hi, 300)]
+    assert c.criterion == "GCV" and c.position == "interior"
+    assert c.score <= min(grid) + 1e-15
+    assert lo < math.log10(c.h) < hi
 
 
 def test_signs_test_matches_scipy_binomtest():
@@ -146,3 +152,121 @@ def test_graduate_by_segment_and_errors():
         graduate(dec, smoothing=-1.0)
     with pytest.raises(DataError, match="needs a DecrementTable"):
         graduate(dec.frame)
+
+
+# ---------------------------------------------------------------- choice of h, degrees of freedom
+def test_three_points_hand_worked():
+    """Three points, order 2: K = k' with k = (1, -2, 1), so by Sherman–Morrison
+    (W + h k k')^-1 = W^-1 - h W^-1 k k' W^-1 / (1 + h s), s = k' W^-1 k, and
+        tr A = 3 - h s / (1 + h s),   u - v = h W^-1 k (k'u) / (1 + h s),
+        Σ w (u - v)^2 = h^2 (k'u)^2 s / (1 + h s)^2.
+    With t = h s / (1 + h s): GCV = 3 (k'u)^2 / s whatever h (one residual direction),
+    and UBRE / σ² = t^2 (k'u)^2 / (3 s σ²) + 1 - 2 t / 3, lowest at t = s σ² / (k'u)^2.
+    w = (1, 2, 4): s = 1 + 4/2 + 1/4 = 3.25; u = (0.1, 0.3, 0.2): k'u = -0.3.
+    σ² = 0.75 (k'u)^2 / s = 0.0675 / 3.25 puts the optimum at t = 3/4, h = 3/s = 0.9231,
+    tr A = 2.25 (inside the range t = 1/2 .. 0.99 below)."""
+    w = np.array([1.0, 2.0, 4.0])
+    u = np.array([0.1, 0.3, 0.2])
+    s, ku = 3.25, -0.3
+    sigma2 = 0.75 * ku ** 2 / s
+    for h in (0.1, 1.0, 7.0):
+        t = h * s / (1 + h * s)
+        assert hat_trace(w, h, 2) == pytest.approx(3 - t, rel=1e-12)
+        assert gcv_score(u, w, h, 2) == pytest.approx(3 * ku ** 2 / s, rel=1e-9)
+        assert ubre_score(u, w, h, 2, sigma2) == pytest.approx(
+            t ** 2 * ku ** 2 / (3 * s * sigma2) + 1 - 2 * t / 3, rel=1e-12)
+    c = choose_smoothing(u, w, 2, scale=sigma2, criterion="UBRE")
+    assert c.criterion == "UBRE" and c.position == "interior"
+    assert c.h == pytest.approx(3 / s, rel=1e-3)
+    assert hat_trace(w, c.h, 2) == pytest.approx(2.25, abs=1e-3)
+    # the range runs from tr A = m - 1/2 to tr A = order + 0.01: t = 1/2 and t = 0.99
+    lo, hi = smoothing_range(w, 2)
+    assert 10 ** lo == pytest.approx(1 / s, rel=1e-2)
+    assert 10 ** hi == pytest.approx(99 / s, rel=1e-2)
+
+
+def test_chi_square_without_degrees_of_freedom_has_no_p():
+    """dof <= 0: nothing left to test, p is NaN (not 0 or 1); dof > 0: scipy's chi2.sf."""
+    a, e = np.array([3.0, 5.0, 2.0]), np.array([2.5, 4.0, 3.0])
+    x2 = 0.25 / 2.5 + 1 / 4 + 1 / 3
+    assert chi_square_test(a, e, 0.0)[0] == pytest.approx(x2)
+    assert math.isnan(chi_square_test(a, e, 0.0)[1])
+    assert math.isnan(chi_square_test(a, e, -5.9)[1])
+    assert chi_square_test(a, e, 1.5)[1] == pytest.approx(stats.chi2.sf(x2, 1.5), rel=1e-12)
+
+
+def test_no_smoothing_reports_no_chi_square_test():
+    """h = 0 keeps the crude rates: tr A = m (hand: A = I), so months - tr A = 0 and the
+    chi-square p is not given; the summary says why."""
+    dec = decrement_table(rows_from_rates(np.full(6, 0.1), 500, 3), months=6)
+    g = graduate(dec, smoothing=0.0)
+    t = g.tests.iloc[0]
+    assert t["effective_parameters"] == 6 and t["chi_square_dof"] == 0
+    assert math.isnan(t["chi_square_p"])
+    assert "chi-square test not shown" in g.summary()
+    assert any("not positive" in w for w in g.warnings)
+
+
+def test_already_smooth_rates_get_heavy_smoothing():
+    """Constant monthly q = 0.04 and 20,000 customers: the crude rates scatter only by
+    Poisson noise around a straight line, so the choice sits at or near the polynomial end
+    (few effective parameters), the chi-square test has positive degrees of freedom and does
+    not reject (fixed seed)."""
+    dec = decrement_table(rows_from_rates(np.full(24, 0.04), 20000, 5), months=24)
+    g = graduate(dec, order=2)
+    t = g.tests.iloc[0]
+    assert t["effective_parameters"] < 4
+    assert t["chi_square_dof"] > 18 and 0.01 < t["chi_square_p"] < 1
+    assert t["smoothing"] > 100
+
+
+def _open_data_table(loader):
+    sksurv_datasets = pytest.importorskip("sksurv.datasets")
+    _, y = getattr(sksurv_datasets, loader)()
+    event, time = y.dtype.names
+    return decrement_table(StartStop(np.zeros(len(y)), y[time].astype(float),
+                                     y[event].astype(int)))
+
+
+def test_veterans_no_longer_interpolates():
+    """Veterans' lung cancer trial (Kalbfleisch and Prentice; as shipped by
+    scikit-survival), 137 patients by month of follow-up: GCV keeps falling towards the
+    crude rates (h at the bottom of any range, 32.9 effective parameters for 27 months
+    with expected deaths, a negative chi-square df). The choice now falls back to the
+    Poisson UBRE, which is lowest at the straight-line end: the graduation is then the
+    weighted least-squares line (numpy.polyfit as the reference), with positive df."""
+    dec = _open_data_table("load_veterans_lung_cancer")
+    g = graduate(dec, order=2)
+    t = g.tests.iloc[0]
+    assert t["criterion"] == "UBRE" and t["optimum"] == "polynomial"
+    assert t["effective_parameters"] < 2.1 and t["chi_square_dof"] > 25
+    assert 0 <= t["chi_square_p"] <= 1
+    f = g.frame
+    pos = f["exposure"] > 0
+    x = f["month"][pos].to_numpy(float)
+    w = f["exposure"][pos].to_numpy(float)
+    line = np.polyval(np.polyfit(x, f["q_crude"][pos], 1, w=np.sqrt(w / w.mean())), x)
+    np.testing.assert_allclose(f["q_graduated"][pos].clip(lower=1e-12),
+                               np.clip(line, 1e-12, None), atol=2e-3)
+    assert any("smooth end" in w for w in g.warnings)
+
+
+def test_whas500_choice_is_interior():
+    """Worcester heart attack study (Hosmer, Lemeshow and May; scikit-survival's whas500),
+    500 patients: GCV has an interior minimum (checked on a fine grid over the range), the
+    effective parameters are well below the months and the chi-square p is reported."""
+    dec = _open_data_table("load_whas500")
+    g = graduate(dec, order=2)
+    t = g.tests.iloc[0]
+    assert t["criterion"] == "GCV" and t["optimum"] == "interior"
+    seg = dec.segment(dec.segments[0])
+    e = seg["exposure"].to_numpy(float)
+    pos = e > 0
+    w = np.where(pos, e / e[pos].mean(), 0.0)
+    u0 = np.where(pos, seg["q"].to_numpy(float), 0.0)
+    lo, hi = smoothing_range(w, 2)
+    assert lo < math.log10(t["smoothing"]) < hi
+    grid = [gcv_score(u0, w, 10 ** x, 2) for x in np.linspace(lo, hi, 200)]
+    assert t["gcv"] <= min(grid) + 1e-15
+    assert t["effective_parameters"] < 0.5 * t["months"]
+    assert 0 < t["chi_square_p"] < 1

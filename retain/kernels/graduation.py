@@ -13,10 +13,14 @@ h → ∞, v tends to the weighted least-squares polynomial of degree z − 1.
 
 Generalised cross-validation (Craven and Wahba, 1979) picks h by minimising
 GCV(h) = m Σ w (u − v)² / (m − tr A(h))², A(h) = (W + h KᵀK)⁻¹ W, m the number
-of points with w > 0.
+of points with w > 0, over the range of h in which the fit still changes (tr A from
+m − ½ down to order + 0.01). When GCV has no interior minimum on that range and the
+error variance is known, the unbiased risk estimate (UBRE) is used instead.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg, optimize, special, stats
@@ -67,28 +71,101 @@ def gcv_score(u: np.ndarray, w: np.ndarray, h: float, order: int) -> float:
     return m * rss / max(m - edf, 1e-12) ** 2
 
 
-def choose_smoothing(u: np.ndarray, w: np.ndarray, order: int,
-                     log10_range: tuple[float, float] = (-4.0, 10.0)) -> tuple[float, float]:
-    """h minimising GCV: a grid over log10 h, then a bounded refinement. Returns (h, GCV)."""
-    grid = np.linspace(*log10_range, 57)
-    scores = np.array([gcv_score(u, w, 10.0 ** g, order) for g in grid])
+def ubre_score(u: np.ndarray, w: np.ndarray, h: float, order: int, scale: float) -> float:
+    """Unbiased risk estimate for a known error variance σ² = ``scale`` per unit weight
+    (Craven and Wahba, 1979; Wahba 1990, §4.7), divided by σ²:
+    U(h) / σ² = Σ w (u − v)² / (m σ²) − 1 + 2 tr A(h) / m."""
+    v = whittaker_henderson(u, w, h, order)
+    pos = w > 0
+    m = float(pos.sum())
+    rss = float(np.sum(w[pos] * (u[pos] - v[pos]) ** 2))
+    return rss / (m * scale) - 1.0 + 2.0 * hat_trace(w, h, order) / m
+
+
+def _log10_h_for_edf(w: np.ndarray, order: int, target: float) -> float:
+    """log10 h at which tr A(h) = target (tr A falls monotonically from m to order);
+    bisection on log10 h between −12 and 16."""
+    lo, hi = -12.0, 16.0
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        if hat_trace(w, 10.0 ** mid, order) > target:
+            lo = mid
+        else:
+            hi = mid
+        if hi - lo < 1e-3:
+            break
+    return 0.5 * (lo + hi)
+
+
+def smoothing_range(w: np.ndarray, order: int) -> tuple[float, float]:
+    """The search range of log10 h taken from the data: from the h that leaves half a
+    parameter of smoothing (tr A = m − ½, almost the crude rates) to the h within 0.01 of
+    the polynomial limit (tr A = order + 0.01). Outside it the fit no longer changes."""
+    m = float((w > 0).sum())
+    return _log10_h_for_edf(w, order, m - 0.5), _log10_h_for_edf(w, order, order + 0.01)
+
+
+@dataclass(frozen=True)
+class SmoothingChoice:
+    """The chosen h, its criterion value, which criterion (``"GCV"`` or ``"UBRE"``), the
+    log10 h search range, and where the optimum lies: ``"interior"``, ``"crude"`` (the
+    lower end: no smoothing) or ``"polynomial"`` (the upper end: degree order − 1)."""
+
+    h: float
+    score: float
+    criterion: str
+    log10_range: tuple[float, float]
+    position: str
+
+
+def _minimise_on(score, lo: float, hi: float) -> tuple[float, float, str]:
+    """A grid in log10 h on [lo, hi] (both ends and the quarter-decades between them), then
+    a bounded refinement between the neighbours of the best grid point. Returns
+    (log10 h, score, position)."""
+    steps = np.linspace(-12.0, 16.0, 113)
+    grid = np.concatenate(([lo], steps[(steps > lo) & (steps < hi)], [hi]))
+    scores = np.array([score(g) for g in grid])
     i = int(np.argmin(scores))
-    lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.shape[0] - 1)]
-    if hi > lo:
-        res = optimize.minimize_scalar(lambda g: gcv_score(u, w, 10.0 ** g, order),
-                                       bounds=(lo, hi), method="bounded",
-                                       options={"xatol": 1e-4})
-        if res.fun <= scores[i]:
-            return float(10.0 ** res.x), float(res.fun)
-    return float(10.0 ** grid[i]), float(scores[i])
+    if i == 0:
+        return float(grid[0]), float(scores[0]), "crude"
+    if i == grid.shape[0] - 1:
+        return float(grid[-1]), float(scores[-1]), "polynomial"
+    res = optimize.minimize_scalar(score, bounds=(grid[i - 1], grid[i + 1]), method="bounded",
+                                   options={"xatol": 1e-4})
+    if res.fun <= scores[i]:
+        return float(res.x), float(res.fun), "interior"
+    return float(grid[i]), float(scores[i]), "interior"
+
+
+def choose_smoothing(u: np.ndarray, w: np.ndarray, order: int,
+                     scale: float | None = None, criterion: str = "auto") -> SmoothingChoice:
+    """h minimising GCV over the data's range of h (``smoothing_range``).
+
+    GCV estimates the error variance from the fit itself; when it keeps falling towards
+    the crude rates (no interior minimum: it would interpolate) and the variance per unit
+    weight is known (``scale``, e.g. Poisson: the overall rate over the mean exposure),
+    the unbiased risk estimate with that variance is minimised instead. The result says
+    whether the optimum is interior or at an end of the range. ``criterion="UBRE"``
+    (with ``scale``) skips GCV."""
+    lo, hi = smoothing_range(w, order)
+    g, val, position = lo, gcv_score(u, w, 10.0 ** lo, order), "crude"
+    if criterion != "UBRE":
+        g, val, position = _minimise_on(lambda x: gcv_score(u, w, 10.0 ** x, order), lo, hi)
+        criterion = "GCV"
+    if position == "crude" and scale is not None and scale > 0:
+        g, val, position = _minimise_on(lambda x: ubre_score(u, w, 10.0 ** x, order, scale),
+                                        lo, hi)
+        criterion = "UBRE"
+    return SmoothingChoice(float(10.0 ** g), val, criterion, (lo, hi), position)
 
 
 # ---------------------------------------------------------------- adherence tests
 def chi_square_test(actual: np.ndarray, expected: np.ndarray, dof: float) -> tuple[float, float]:
-    """X² = Σ (A − E)² / E over points with E > 0; p = P(χ²_dof > X²)."""
+    """X² = Σ (A − E)² / E over points with E > 0; p = P(χ²_dof > X²), NaN when dof ≤ 0
+    (the graduation used as many parameters as there are points: nothing left to test)."""
     ok = expected > 0
     x2 = float(np.sum((actual[ok] - expected[ok]) ** 2 / expected[ok]))
-    return x2, float(stats.chi2.sf(x2, max(dof, 1e-9)))
+    return x2, float(stats.chi2.sf(x2, dof)) if dof > 0 else float("nan")
 
 
 def signs_test(deviation: np.ndarray) -> tuple[int, int, float]:

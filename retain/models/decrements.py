@@ -530,9 +530,11 @@ class Graduation(Result):
     m_graduated = −log(1 − q_graduated), expected = exposure · m_graduated,
     deviation = churns − expected, z = deviation / sqrt(expected).
 
-    ``tests``: per segment the smoothing parameter h (given or chosen by GCV),
-    the GCV score, the effective number of parameters tr A(h), and the tests:
-    chi-square (X², degrees of freedom = months − tr A(h), p), signs (positive
+    ``tests``: per segment the smoothing parameter h (given, or chosen by GCV — by
+    UBRE with the Poisson variance when GCV would interpolate), ``criterion``, ``optimum``
+    (interior, or the crude / polynomial end of the search range), the GCV score, the
+    effective degrees of freedom tr A(h), and the tests: chi-square (X², degrees of
+    freedom = months − tr A(h), p; p is NaN when those are not positive), signs (positive
     deviations, months, two-sided p), grouping of signs (Stevens 1939: groups,
     positives, negatives, one-sided p).
     """
@@ -551,11 +553,16 @@ class Graduation(Result):
     def summary(self) -> str:
         parts = []
         for row in self.tests.itertuples():
-            verdict = "adheres" if min(row.chi_square_p, row.signs_p, row.groups_p) >= 0.05 \
-                else "check adherence"
-            parts.append(f"{row.segment}: h = {row.smoothing:.3g}, chi-square p = "
-                         f"{row.chi_square_p:.3f}, signs p = {row.signs_p:.3f}, "
-                         f"groups p = {row.groups_p:.3f} ({verdict})")
+            shown = [p for p in (row.chi_square_p, row.signs_p, row.groups_p) if p == p]
+            verdict = "adheres" if min(shown) >= 0.05 else "check adherence"
+            chi = (f"chi-square p = {row.chi_square_p:.3f} on {row.chi_square_dof:.1f} df"
+                   if row.chi_square_dof > 0 else
+                   f"chi-square test not shown ({row.chi_square_dof:.1f} degrees of freedom "
+                   "left)")
+            parts.append(f"{row.segment}: h = {row.smoothing:.3g}, effective parameters "
+                         f"{row.effective_parameters:.1f} of {row.months} months, {chi}, "
+                         f"signs p = {row.signs_p:.3f}, groups p = {row.groups_p:.3f} "
+                         f"({verdict})")
         return (f"Whittaker-Henderson graduation of q, order {self.order}. " + "; ".join(parts)
                 + ".")
 
@@ -609,13 +616,23 @@ def graduate(
             continue
         w = np.where(pos, e / e[pos].mean(), 0.0)
         u0 = np.where(pos, u, 0.0)
+        d = seg["churns"].to_numpy(dtype=float)
+        criterion, position = "given", "given"
         if smoothing is None:
-            h, gcv = choose_smoothing(u0, w, order)
-            if h <= 10.0 ** -3.9 or h >= 10.0 ** 9.9:
-                warnings.append(f"segment {label!r}: cross-validation chose h = {h:.3g} at the "
-                                "edge of its search (" + ("the crude rates are already "
-                                "precise; no smoothing" if h < 1 else "a polynomial of degree "
-                                f"{order - 1} fits as well as any smoother curve") + ")")
+            # Poisson: Var(u_i) ≈ m_i / e_i, so the variance per unit weight w_i = e_i / ē is
+            # about the overall central rate over the mean exposure
+            scale = float(d[pos].sum() / e[pos].sum() / e[pos].mean())
+            choice = choose_smoothing(u0, w, order, scale=scale)
+            h, criterion, position = choice.h, choice.criterion, choice.position
+            gcv = gcv_score(u0, w, h, order)
+            if position == "polynomial":
+                warnings.append(f"segment {label!r}: {criterion} is lowest at the smooth end "
+                                f"of its range (h = {h:.3g}): a polynomial of degree "
+                                f"{order - 1} fits as well as any smoother curve")
+            elif position == "crude":
+                warnings.append(f"segment {label!r}: {criterion} is lowest at the rough end "
+                                f"of its range (h = {h:.3g}): the graduation stays close to "
+                                "the crude rates")
         else:
             h = float(smoothing)
             gcv = gcv_score(u0, w, h, order)
@@ -627,7 +644,6 @@ def graduate(
             v = np.clip(v, 0.0, 1.0 - 1e-12)
         m = -np.log1p(-v)
         expected = e * m
-        d = seg["churns"].to_numpy(dtype=float)
         dev = d - expected
         with np.errstate(divide="ignore", invalid="ignore"):
             z = np.where(expected > 0, dev / np.sqrt(expected), np.nan)
@@ -640,9 +656,15 @@ def graduate(
             "segment": label, "month": seg["month"], "label": seg["label"], "exposure": e,
             "churns": d, "q_crude": u, "q_graduated": v, "m_graduated": m,
             "expected": expected, "deviation": dev, "z": z}))
-        tests.append({"segment": label, "smoothing": h, "gcv": gcv, "effective_parameters": edf,
+        dof = float(use.sum()) - edf
+        if not dof > 0:
+            warnings.append(f"segment {label!r}: chi-square test not shown: its degrees of "
+                            f"freedom ({int(use.sum())} months − {edf:.1f} effective "
+                            f"parameters = {dof:.1f}) are not positive")
+        tests.append({"segment": label, "smoothing": h, "criterion": criterion,
+                      "optimum": position, "gcv": gcv, "effective_parameters": edf,
                       "months": int(use.sum()), "chi_square": x2,
-                      "chi_square_dof": float(use.sum()) - edf, "chi_square_p": p_chi,
+                      "chi_square_dof": dof, "chi_square_p": p_chi,
                       "signs_positive": n_pos, "signs_n": n_sig, "signs_p": p_sig,
                       "groups": groups, "groups_positive": n1, "groups_negative": n2,
                       "groups_p": p_grp})
