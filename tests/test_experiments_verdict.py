@@ -81,9 +81,40 @@ def test_hand_verdict_revenue_and_interim() -> None:
     assert not v.interim
     early = experiment_verdict(_hand_table(), SPEC, as_of="2025-12-31", n_boot=20)
     assert early.interim
+    # the last subject to sign up is c7 on 2025-03-28 (c5's second spell on 03-25 and c4
+    # outside the arms do not count): 2025-03-28 + 365 days = 2026-03-28, three days before
+    # the declared cohort's end + 365 (2026-03-31)
     assert any(w.startswith("interim analysis: the planned 365-day horizon is reached on "
-                            "2026-03-31") for w in early.warnings)
+                            "2026-03-28") for w in early.warnings)
     assert early.to_frame()["status"].tolist() == ["interim"]
+    assert not experiment_verdict(_hand_table(), SPEC, as_of="2026-03-29", n_boot=20).interim
+    assert experiment_verdict(_hand_table(), SPEC, as_of="2026-03-27", n_boot=20).interim
+
+
+def test_one_signup_day_followed_past_the_horizon_is_final() -> None:
+    """Hand-worked: cohort 2025-03 declared, but all four subjects signed up on 2025-03-01
+    and are followed to day 400 (past the 90-day horizon). The horizon is reached on
+    2025-03-01 + 90 days = 2025-05-30; an as-of date of 2025-06-15 comes after it (though
+    before the cohort's end + 90 = 2025-06-29), so the verdict is final; 2025-05-29 is
+    one day short, interim."""
+    rows = [(f"c{i}", 1, 0.0, 400.0, 0, "2025-03-01", arm, 10.0)
+            for i, arm in enumerate(["standard", "standard", "intro", "intro"])]
+    rows[0] = ("c0", 1, 0.0, 30.0, 1, "2025-03-01", "standard", 10.0)
+    rows[2] = ("c2", 1, 0.0, 60.0, 1, "2025-03-01", "intro", 10.0)
+    f = pd.DataFrame(rows, columns=["customer_id", "spell", "start", "stop", "churned",
+                                    "start_date", "arm", "price"])
+    f["start_date"] = pd.to_datetime(f["start_date"]).dt.date
+    f["cohort"] = "2025-03"
+    f["cause"] = np.where(f["churned"] == 1, "voluntary", "")
+    table = StartStop.from_frame(f)
+    spec = ExperimentSpec(name="one-day", arm="arm", control="standard", treatment=("intro",),
+                          cohorts=("2025-03",), horizon_days=90)
+    v = experiment_verdict(table, spec, as_of="2025-06-15", n_boot=20)
+    assert not v.interim and v.analysis_horizon_days == 90
+    assert not any(w.startswith("interim") for w in v.warnings)
+    early = experiment_verdict(table, spec, as_of="2025-05-29", n_boot=20)
+    assert early.interim
+    assert any("reached on 2025-05-30" in w for w in early.warnings)
 
 
 def test_level_and_its_older_name_conf() -> None:

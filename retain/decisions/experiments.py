@@ -281,13 +281,22 @@ def select_experiment(table: StartStop, spec: ExperimentSpec | Mapping[str, Any]
 # ---------------------------------------------------------------- pieces
 
 
-def _planned_end(spec: ExperimentSpec) -> dt.date | None:
+def _planned_end(spec: ExperimentSpec, sub: StartStop | None = None) -> dt.date | None:
+    """The day the planned horizon is reached: the last actual sign-up day among the
+    experiment's subjects plus ``horizon_days``; without start dates, the last day the
+    declared cohorts or ``signup_to`` allow."""
     last: dt.date | None = None
-    if spec.cohorts:
+    if sub is not None and sub.start_date is not None and sub.n_rows:
+        head = first_of_spell(sub.customer.codes, sub.spell, sub.start)
+        days = sub.start_date[head]
+        days = days[~np.isnat(days)]
+        if days.size:
+            last = dt.date.fromisoformat(str(days.max()))
+    if last is None and spec.cohorts:
         y, m = max(spec.cohorts).split("-")
         nxt = dt.date(int(y) + (int(m) == 12), int(m) % 12 + 1, 1)
         last = nxt - dt.timedelta(days=1)
-    elif spec.signup_to is not None:
+    elif last is None and spec.signup_to is not None:
         last = spec.signup_to
     if last is None:
         return None
@@ -399,12 +408,14 @@ def _adjusted_hazard_ratios(sub: StartStop, arm: str, control: str,
     return tuple(out), list(getattr(fit, "warnings", ())), fit.missing
 
 
-def _horizons(spec: ExperimentSpec, as_of: dt.date | None, follow: float,
+def _horizons(spec: ExperimentSpec, as_of: dt.date | None, sub: StartStop,
               warnings: list[str]) -> tuple[float, float, bool]:
     """(planned horizon, analysis horizon, interim): the analysis stops at the follow-up
-    reached; before the planned end (:func:`_planned_end`) the verdict is interim."""
+    reached; before the planned end (:func:`_planned_end`: last actual sign-up + horizon)
+    the verdict is interim."""
     planned = float(spec.horizon_days)
-    end = _planned_end(spec)
+    follow = float(sub.stop.max())
+    end = _planned_end(spec, sub)
     interim = bool(as_of is not None and end is not None and as_of < end)
     analysis = min(planned, follow)
     if interim:
@@ -565,8 +576,8 @@ def experiment_verdict(
     spec : ExperimentSpec
         From retain.toml ``[experiments.<name>]`` (or a mapping with its keys).
     as_of : date or "YYYY-MM-DD"
-        The data's as-of date; before the planned end (last signup day of the
-        experiment + horizon) the verdict is interim. None or blank: no as-of
+        The data's as-of date; before the planned end (the last actual sign-up day among
+        the experiment's subjects + horizon) the verdict is interim. None or blank: no as-of
         date (a table prepared elsewhere), nothing is interim.
     price : str
         Numeric column with the monthly price on each row.
@@ -608,7 +619,7 @@ def experiment_verdict(
     warnings: list[str] = []
     treatments = _treatments_present(sub, acol, spec, where, warnings)
 
-    planned, analysis, interim = _horizons(spec, as_of_d, float(sub.stop.max()), warnings)
+    planned, analysis, interim = _horizons(spec, as_of_d, sub, warnings)
 
     curves = curves_by(sub, arm, level=level)
     warnings.extend(curves.warnings)
