@@ -47,17 +47,18 @@ def test_mapping_with_text_dates_equals_the_spec(trial: StartStop) -> None:
 
 
 def test_interim_is_decided_on_dates(trial: StartStop) -> None:
-    """Hand-worked: last signup day 2025-03-31 + 365 days = 2026-03-31. An as-of date one
-    day earlier is interim, that day itself is not; the verdict keeps a date and its JSON
-    the "YYYY-MM-DD" text."""
+    """Hand-worked: the last actual signup day is 2025-03-10 (every patient; the declared
+    window runs to 2025-03-31) + 365 days = 2026-03-10. An as-of date one day earlier is
+    interim, that day itself is not; the verdict keeps a date and its JSON the
+    "YYYY-MM-DD" text."""
     spec = ExperimentSpec(name="t", arm="arm", control="0", signup_from=dt.date(2025, 3, 1),
                           signup_to=dt.date(2025, 3, 31))
-    early = experiment_verdict(trial, spec, as_of=dt.date(2026, 3, 30), n_boot=20)
-    on_time = experiment_verdict(trial, spec, as_of=dt.date(2026, 3, 31), n_boot=20)
+    early = experiment_verdict(trial, spec, as_of=dt.date(2026, 3, 9), n_boot=20)
+    on_time = experiment_verdict(trial, spec, as_of=dt.date(2026, 3, 10), n_boot=20)
     assert early.interim and not on_time.interim
-    assert early.as_of == dt.date(2026, 3, 30)
-    assert early.to_dict()["as_of"] == "2026-03-30"
-    assert any("reached on 2026-03-31" in w for w in early.warnings)
+    assert early.as_of == dt.date(2026, 3, 9)
+    assert early.to_dict()["as_of"] == "2026-03-09"
+    assert any("reached on 2026-03-10" in w for w in early.warnings)
 
 
 def test_settings_errors_name_the_key() -> None:
