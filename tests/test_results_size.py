@@ -151,3 +151,19 @@ def test_results_files_are_the_same_bytes_on_rebuild(demo_sites, tmp_path):
                                for p in (site / RESULTS_TABLES).glob("*.parquet"))]
     for name in names:
         assert (again / name).read_bytes() == (site / name).read_bytes(), name
+
+
+def test_file_names_stay_in_their_folder_and_never_collide():
+    """Segment names are data: "../up", "a:b" and "a/b" become plain, distinct file names
+    inside data/results (hand-worked: "../up" -> "up"; "a:b" and "a/b" both -> "a-b", the
+    second gets "-2")."""
+    arrays = {"t": list(range(3))}
+    results = {"outcomes": {"curves": {"value": {"../up": arrays, "a:b": arrays,
+                                                 "a/b": arrays}}}}
+    small, tables = split_tables(results, min_rows=3)
+    names = [small["outcomes"]["curves"]["value"][k]["t"]["parquet"]
+             for k in ("../up", "a:b", "a/b")]
+    assert names == [f"{RESULTS_TABLES}/curves.up.parquet",
+                     f"{RESULTS_TABLES}/curves.a-b.parquet",
+                     f"{RESULTS_TABLES}/curves.a-b-2.parquet"]
+    assert sorted(tables) == sorted(names)
