@@ -51,6 +51,18 @@ INTERVALS = ("log-log", "log", "linear")
 GRID_MONTHS = (1, 3, 6, 12, 24)
 
 
+def reading_day(months: Sequence[float] | np.ndarray | float) -> np.ndarray:
+    """The tenure day on which a figure "at k months" is read: ⌊k × DAYS_PER_MONTH⌋, the
+    last whole day within k months of 30.4375 days. So 12 months is day 365, and a year
+    of follow-up (365 days) observes it; 1, 3, 6 and 24 months are days 30, 91, 182, 730.
+    The one month convention for retention at fixed months."""
+    m = np.atleast_1d(np.asarray(months, dtype=np.float64))
+    return np.floor(m * DAYS_PER_MONTH + 1e-9)
+
+
+TWELVE_MONTHS_DAYS = float(reading_day(12)[0])  # 365.0
+
+
 # --------------------------------------------------------------------------- helpers
 def _check_table(table: object, where: str) -> StartStop:
     if not isinstance(table, StartStop):
@@ -232,6 +244,15 @@ class RetentionCurve(Result):
         hi[bad] = np.nan
         return lo, hi
 
+    def at_months(self, months: Sequence[float] | np.ndarray | float) -> np.ndarray:
+        """Retention at k months, read on :func:`reading_day` (12 months: day 365)."""
+        return self.at(reading_day(months))
+
+    def interval_at_months(self, months: Sequence[float] | np.ndarray | float
+                           ) -> tuple[np.ndarray, np.ndarray]:
+        """Pointwise limits at k months, read on :func:`reading_day`."""
+        return self.interval_at(reading_day(months))
+
     def at_risk_at(self, days: Sequence[float] | np.ndarray | float) -> np.ndarray:
         """Weighted number at risk at the given tenures (from the curve's own counts).
 
@@ -314,7 +335,7 @@ class RetentionCurve(Result):
         })
 
     def summary(self) -> str:
-        yr = 12 * DAYS_PER_MONTH
+        yr = TWELVE_MONTHS_DAYS
         parts = [f"Kaplan–Meier retention, {self.label}: {self.n_customers} customers, "
                  f"{self.n_events:g} churns over {self.n_rows} rows"]
         if self.follow_up >= yr:
@@ -808,7 +829,7 @@ class RetentionGrid(Result):
 
 def retention_grid(curve: RetentionCurve, months: Sequence[float] | None = GRID_MONTHS, *,
                    days: Sequence[float] | None = None) -> RetentionGrid:
-    """Retention at fixed tenures: months (× DAYS_PER_MONTH) or, if given, days.
+    """Retention at fixed tenures: months (read on :func:`reading_day`) or, if given, days.
 
     Parameters
     ----------
@@ -826,7 +847,7 @@ def retention_grid(curve: RetentionCurve, months: Sequence[float] | None = GRID_
         m = d / DAYS_PER_MONTH
     else:
         m = np.asarray(months if months is not None else GRID_MONTHS, dtype=np.float64)
-        d = m * DAYS_PER_MONTH
+        d = reading_day(m) if m.ndim == 1 else m * DAYS_PER_MONTH
     if d.ndim != 1 or d.size == 0 or not np.all(np.isfinite(d)) or np.any(d < 0):
         raise ModelError("retention grid", "tenures must be a non-empty list of numbers >= 0",
                          "e.g. months=(1, 3, 6, 12)")
