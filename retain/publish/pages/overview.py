@@ -20,7 +20,6 @@ from retain.publish.pages.shared import (
     num,
     pct,
 )
-from retain.units import DAYS_PER_YEAR
 
 
 def overview_page(run: Any) -> Page:
@@ -46,8 +45,8 @@ def overview_page(run: Any) -> Page:
         facts.append(Fact("Median lifetime", months_text(med.days),
                           interval_text(med.lower, med.upper, months_text, med.level),
                           "median-days", med.days))
-        s12 = float(c.at(DAYS_PER_YEAR)[0])
-        lo, hi = (float(x[0]) for x in c.interval_at(DAYS_PER_YEAR))
+        s12 = float(c.at_months(12)[0])
+        lo, hi = (float(x[0]) for x in c.interval_at_months(12))
         facts.append(Fact("Retained at 12 months", pct(s12),
                           interval_text(lo, hi, pct, c.level) if math.isfinite(s12) else
                           "not yet observed", "retention-12m", s12))
