@@ -55,8 +55,9 @@ def stderr_progress(args: argparse.Namespace) -> Callable[[str, int, float], Non
     return show
 
 
-def print_reconciliation(prepared) -> None:  # noqa: ANN001 - retain.data.prepare.Prepared
-    """The reconciliation table and every unknown event value, on stdout."""
+def print_reconciliation(prepared, *, demo: bool = False) -> None:  # noqa: ANN001
+    """The reconciliation table (of a retain.data.prepare.Prepared) and every unknown event
+    value, on stdout; ``demo`` says that the demo log's defects are there on purpose."""
     rec = prepared.reconciliation
     frame = rec.to_frame()
     labels = [f"{o}: {r}" if r else o for o, r, _ in frame.itertuples(index=False)]
@@ -72,6 +73,9 @@ def print_reconciliation(prepared) -> None:  # noqa: ANN001 - retain.data.prepar
         print("Unknown event values (map them in [events] map or list them in [events] ignore):")
         for value, n in prepared.unknown_events.items():
             print(f"  {value!r}: {n:,} rows")
+        if demo:
+            print("  (the demo log carries these defects on purpose, to show the quarantine "
+                  "and the data-quality page; your own log needs none of them)")
 
 
 def _load(config_path: Path):  # noqa: ANN202 - retain.data.config.Config
@@ -203,7 +207,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     out = _output_folder(args, config)
     check_target((out / "site").resolve())  # before any work
     prepared = _prepare(args, config.path, config)
-    print_reconciliation(prepared)
+    print_reconciliation(prepared, demo=True)
     print_written(_write(prepared, out))
     index = _build_site(args, prepared, out / "site")
     print(index)
@@ -216,9 +220,10 @@ def _build_site(args: argparse.Namespace, prepared, out: Path) -> Path:  # noqa:
 
     quiet = getattr(args, "quiet", False)
 
-    def show(step: str) -> None:
+    def show(step: str, count: str, seconds: float) -> None:
+        # the columns of prepare's lines (stderr_progress): step, count, seconds
         if not quiet:
-            print(f"  {step}", file=sys.stderr, flush=True)
+            print(f"  {step:<16} {count:>17} {seconds:8.2f} s", file=sys.stderr, flush=True)
 
     index, run = build_from_config(prepared.config, out, prepared=prepared, progress=show)
     skipped = [name for name, outcome in run.outcomes.items() if outcome.skipped]
@@ -227,7 +232,7 @@ def _build_site(args: argparse.Namespace, prepared, out: Path) -> Path:  # noqa:
             print(f"retain: warning: {name} failed and its page says why: {outcome.error}",
                   file=sys.stderr)
     if skipped and not quiet:
-        print(f"retain: not set up in the project file (their pages say which key turns them "
+        print(f"retain: not set up in the project file (the overview says which key turns each "
               f"on): {', '.join(skipped)}", file=sys.stderr)
     return index
 

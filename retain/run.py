@@ -13,6 +13,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import math
+import time
 import traceback
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -42,7 +43,22 @@ BASE_VALUE_DRAWS = 200  # parameter draws for the base's interval (the residual 
 
 class NotSetUp(RetainError):
     """A step the project file does not ask for (no covariates, no margin): recorded as
-    skipped with the key that would turn it on, never as a failure."""
+    skipped with the key that would turn it on, never as a failure.
+
+    ``NotSetUp.again(message)`` is the same refusal, word for word, for a step that
+    needs one that was not set up (the Cox checks after the Cox fit)."""
+
+    _again: str = ""
+
+    @classmethod
+    def again(cls, message: str) -> NotSetUp:
+        exc = cls("", "")
+        exc._again = message
+        return exc
+
+    @property
+    def message(self) -> str:
+        return self._again or super().message
 
 
 @dataclass(frozen=True)
@@ -260,19 +276,57 @@ def book_summary(table: StartStop, window_days: float = DAYS_PER_YEAR) -> BookSu
 
 
 # --------------------------------------------------------------------------- the run
+#: a progress callback: the step's name, what it counted ("12,040 rows", "3 segments" or
+#: ""), and the seconds it took; called once each step has finished
+Progress = Callable[[str, str, float], None]
+
+
+def _quiet(_step: str, _count: str, _seconds: float) -> None:
+    return None
+
+
+def step_count(value: Any) -> str:
+    """What a finished step's progress line counts: the rows a fit or table read, the
+    segments of a split, the bands of a decrement table; blank where no count fits."""
+    def count(n: int, unit: str) -> str:
+        return f"{n:,} {unit if n != 1 else unit.removesuffix('s')}"
+
+    kind = type(value).__name__
+    if isinstance(value, BookSummary):
+        return count(value.rows, "rows")
+    if kind == "DecrementTable":
+        return count(int(value.frame["label"].nunique()), "bands")
+    if kind == "SegmentCurves":
+        return count(len(value), "segments")
+    for attr in ("values", "segments"):  # value by segment, value of the base
+        part = getattr(value, attr, None)
+        if isinstance(part, (list, tuple)):
+            return count(len(part), "segments")
+    n = getattr(value, "n_rows", None)
+    if isinstance(n, (int, np.integer)):
+        return count(int(n), "rows")
+    if isinstance(value, pd.DataFrame):
+        return count(len(value), "rows")
+    return ""
+
+
 def run_table(table: StartStop, options: RunOptions, *, prepared: Any = None,
-              progress: Callable[[str], None] | None = None) -> RunResults:
+              progress: Progress | None = None) -> RunResults:
     """Run every model and decision on a prepared start-stop table.
 
     Steps that need a module not present in this installation, or a column the
-    table lacks, record why in their outcome; the rest still run.
+    table lacks, record why in their outcome; the rest still run. ``progress`` hears
+    of each step once it has finished (:data:`Progress`).
     """
-    say = progress or (lambda _msg: None)
+    say = progress or _quiet
     out: dict[str, Outcome] = {}
 
     def step(name: str, fn: Callable[[], Any]) -> Outcome:
-        say(name)
+        t0 = time.perf_counter()
         out[name] = attempt(name, fn)
+        o = out[name]
+        say(name, step_count(o.value) if o.ok else ("not set up" if o.skipped else "failed"),
+            time.perf_counter() - t0)
         _drop_rows(out, ran=name)
         return out[name]
 
@@ -306,15 +360,16 @@ def _drop_rows(out: dict[str, Outcome], ran: str) -> None:
 def options_from_config(config: Config) -> RunOptions:
     """The parts of a loaded ``retain.toml`` that say what to run and show."""
     src = config.source
-    name = src.path.name if src.path is not None else f"{src.duckdb}:{src.table}"
+    name = (src.path.name if src.path is not None else
+            f"{src.duckdb}:{src.table}" if src.duckdb is not None else "table in memory")
     return RunOptions(
-        title=f"Retention review: {name}", source=str(name), as_of=config.window.as_of,
-        segments=config.segments.by, model=config.model, value=config.value,
-        experiments={e.name: e for e in config.experiments})
+        title=config.project.name or f"Retention review: {name}", source=str(name),
+        as_of=config.window.as_of, segments=config.segments.by, model=config.model,
+        value=config.value, experiments={e.name: e for e in config.experiments})
 
 
 def run_config(config: Any, *, prepared: Any = None,
-               progress: Callable[[str], None] | None = None) -> RunResults:
+               progress: Progress | None = None) -> RunResults:
     """Prepare the event log that ``config`` describes, then run every model on it.
 
     A failure to prepare the data raises (there is nothing to publish without
@@ -324,14 +379,16 @@ def run_config(config: Any, *, prepared: Any = None,
     if prepared is None:
         from retain.data.prepare import prepare
 
-        (progress or (lambda _msg: None))("prepare")
+        t0 = time.perf_counter()
         prepared = prepare(config)
+        (progress or _quiet)("prepare", f"{prepared.table.n_rows:,} rows",
+                             time.perf_counter() - t0)
     return run_table(prepared.table, options_from_config(config), prepared=prepared,
                      progress=progress)
 
 
 def build_from_config(config: Any, out_dir: Any, *, prepared: Any = None,
-                      progress: Callable[[str], None] | None = None) -> tuple[Any, RunResults]:
+                      progress: Progress | None = None) -> tuple[Any, RunResults]:
     """One run of the whole flow, published: returns (path of index.html, the run)."""
     from pathlib import Path
 
@@ -340,8 +397,11 @@ def build_from_config(config: Any, out_dir: Any, *, prepared: Any = None,
 
     check_target(Path(out_dir).resolve())  # refuse a wrong --out before the models run
     run = run_config(config, prepared=prepared, progress=progress)
-    (progress or (lambda _msg: None))("site")
-    return build_site(site_content(run), out_dir), run
+    t0 = time.perf_counter()
+    content = site_content(run)
+    index = build_site(content, out_dir)
+    (progress or _quiet)("site", f"{len(content.pages):,} pages", time.perf_counter() - t0)
+    return index, run
 
 
 def _model_steps(table: StartStop, options: RunOptions,
@@ -366,7 +426,7 @@ def _model_steps(table: StartStop, options: RunOptions,
         def run() -> Any:
             first = done[name]
             if first.skipped:
-                raise NotSetUp(name, "not set up", first.error or "")
+                raise NotSetUp.again(first.error or "")
             if not first.ok:
                 raise ModelError(name, "the step this one needs failed", first.error or "")
             return what(first.value)
@@ -402,9 +462,11 @@ def _model_steps(table: StartStop, options: RunOptions,
          after(step_names.DECREMENTS, lambda d: _actual_vs_expected(table, d, options))),
         *([(step_names.DECREMENTS_BANDS, lambda: decrements.decrement_table(
             table, band_edges=model.decrement_edges))] if model.decrement_edges else []),
-        (step_names.INCIDENCE, lambda: competing.cumulative_incidence(table)),
-        (step_names.CAUSE_COX, lambda: _need_covariates(cov) or competing.cause_specific_cox(
-            table, cov, strata=strata, reference=ref, missing=miss)),
+        (step_names.INCIDENCE,
+         lambda: _need_two_causes(table) or competing.cumulative_incidence(table)),
+        (step_names.CAUSE_COX, lambda: _need_two_causes(table) or _need_covariates(cov)
+         or competing.cause_specific_cox(table, cov, strata=strata, reference=ref,
+                                         missing=miss)),
     ]
     steps += _decision_steps(table, options, done)
     return steps
@@ -415,6 +477,21 @@ def _need_covariates(cov: list[str]) -> None:
         raise NotSetUp("[model] covariates", "no covariates are named, so there is no "
                        "hazard-ratio model", 'add covariates = ["plan", ...] to [model] in the '
                        "project file")
+
+
+def _need_two_causes(table: StartStop) -> None:
+    """Refuse the split by cause when every churn has the same cause (or none churned).
+
+    The table's ``cause`` comes from ``[columns] reason`` and, without it, from payment
+    trouble (a churn while a payment has failed is involuntary, else voluntary): with
+    neither, every churn is voluntary and there is nothing to split.
+    """
+    codes = table.cause.codes[table.churned == 1]
+    if np.unique(codes).size < 2:
+        raise NotSetUp("[columns] reason", "every churn has the same cause, so there is no "
+                       "split by cause", "name the cancellation-reason column as reason in "
+                       "[columns], or map the log's payment events (payment_failed, "
+                       "payment_recovered) in [events]")
 
 
 def _need_margin(spec: ValueConfig) -> None:
@@ -441,7 +518,7 @@ def _finance_table(done: dict[str, Outcome]) -> pd.DataFrame:
 
     new, base = done[step_names.VALUE_SEGMENTS], done[step_names.VALUE_BASE]
     if new.skipped:
-        raise NotSetUp(step_names.VALUE_FINANCE, "not set up", new.error or "")
+        raise NotSetUp.again(new.error or "")
     if not (new.ok or base.ok):
         raise ModelError("finance file", "neither value figure could be computed",
                          new.error or base.error or "")
@@ -466,6 +543,8 @@ def _decision_steps(table: StartStop, options: RunOptions,
                 table, spec, by, as_of=options.as_of, n_draws=BASE_VALUE_DRAWS)),
             (step_names.VALUE_FINANCE, lambda: _finance_table(done)),
         ]
+    else:  # recorded as not set up, so the site says which key turns value on
+        steps.append((step_names.VALUE_ALL, lambda: _need_margin(ValueConfig())))
     price = (spec or ValueConfig()).price_column
     for name, exp in options.experiments.items():
         steps.append((step_names.experiment(name), lambda exp=exp: experiments.experiment_verdict(

@@ -8,8 +8,8 @@ later; a censored patient starts ``time`` days before the as-of date instead, so
 the as-of date censors them at their own time. The Kaplan–Meier curve of the
 prepared table must then equal scikit-survival's ``kaplan_meier_estimator``.
 
-Steps the project file does not ask for (no covariates, no margin) are recorded
-as "not set up" with the key that turns them on, never as failures.
+Steps the project file does not ask for (no covariates, no margin, no second churn
+cause) are recorded as "not set up" with the key that turns them on, never as failures.
 """
 
 from __future__ import annotations
@@ -71,10 +71,17 @@ def test_steps_not_asked_for_are_skipped_not_failed(veterans_log) -> None:
     config = _project(frame)
     prepared = prepare(config)
     run = run_table(prepared.table, options_from_config(config), prepared=prepared)
-    for name in ("cox", "cox:ph", "cause-cox"):
+    for name in ("cox", "cox:ph"):
         outcome = run.get(name)
         assert outcome.skipped, (name, outcome)
-        assert "[model] covariates" in outcome.error
+        assert outcome.error.startswith("[model] covariates: ")  # the same line, word for word
+    # no reason column and no payment events: every death is one cause, so no split by cause
+    for name in ("incidence", "cause-cox"):
+        outcome = run.get(name)
+        assert outcome.skipped, (name, outcome)
+        assert outcome.error.startswith("[columns] reason: ")
+    # no [value] margin: lifetime value is not set up, with the keys that turn it on
+    assert run.get("value:all").skipped and "margin_rate" in run.get("value:all").error
     assert run.get("km").ok and run.get("fit:weibull").ok
     failed = [k for k, o in run.outcomes.items() if not o.ok and not o.skipped]
     assert failed == []

@@ -230,6 +230,13 @@ class OutputConfig:
 
 
 @dataclass(frozen=True)
+class ProjectConfig:
+    """What the project is called: ``name`` titles the site (None: the log file's name)."""
+
+    name: str | None = None
+
+
+@dataclass(frozen=True)
 class Config:
     """A validated retain.toml."""
 
@@ -247,6 +254,7 @@ class Config:
     engine: EngineConfig
     output: OutputConfig
     check: CheckConfig = field(default_factory=CheckConfig)
+    project: ProjectConfig = field(default_factory=ProjectConfig)
 
     def attribute(self, name: str) -> AttributeSpec:
         for a in self.attributes:
@@ -456,8 +464,8 @@ def _timezones() -> frozenset[str]:
         con.close()
 
 
-_SECTIONS = ("source", "columns", "events", "reasons", "window", "attributes", "segments",
-             "model", "value", "experiments", "engine", "output", "check")
+_SECTIONS = ("project", "source", "columns", "events", "reasons", "window", "attributes",
+             "segments", "model", "value", "experiments", "engine", "output", "check")
 
 
 def load_config(path: str | Path) -> Config:
@@ -530,10 +538,12 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
     output = _output(_Section(file, "output", data.get("output", {}), ("dir", "compress")), base)
     check = _check(_Section(file, "check", data.get("check", {}),
                             ("max_unparseable_share", "max_unknown_event_share")))
+    named = ProjectConfig(name=_Section(file, "project", data.get("project", {}),
+                                        ("name",)).text("name"))
     return Config(path=path, source=source, columns=columns, events=events, reasons=reasons,
                   window=window, attributes=attributes, segments=segments, model=model,
                   value=value, experiments=experiments, engine=engine, output=output,
-                  check=check)
+                  check=check, project=named)
 
 
 def _source(s: _Section, base: Path) -> SourceConfig:

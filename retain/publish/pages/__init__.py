@@ -36,7 +36,10 @@ __all__ = [
     "quality_page", "site_content", "strict_pages", "value_page",
 ]
 
-PAGE_BUILDERS: tuple[Callable[[Any], Page], ...] = (
+# A builder returns None for a page the project file does not ask for (value without a
+# margin, causes with one cause): the page leaves the navigation and the overview lists
+# the one line that says how to turn it on.
+PAGE_BUILDERS: tuple[Callable[[Any], Page | None], ...] = (
     overview_page, curves_page, cohorts_page, hazards_page, fit_page, value_page,
     experiments_page, quality_page, decrements_page, expected_page, causes_page,
 )
@@ -48,9 +51,9 @@ def strict_pages() -> bool:
     return os.environ.get(STRICT_ENV, "").strip() not in ("", "0")
 
 
-def _build_page(builder: Callable[[Any], Page], run: Any, strict: bool) -> Page:
-    """A page, or, if assembling it fails, a page that names the cause (the site still
-    builds). With ``strict`` the exception is raised instead."""
+def _build_page(builder: Callable[[Any], Page | None], run: Any, strict: bool) -> Page | None:
+    """A page (None when left out), or, if assembling it fails, a page that names the cause
+    (the site still builds). With ``strict`` the exception is raised instead."""
     try:
         return builder(run)
     except Exception as exc:  # noqa: BLE001 - one broken page must not hide the others
@@ -84,6 +87,7 @@ def site_content(run: Any, *, strict: bool | None = None) -> SiteContent:
     exception inside a page builder raise instead of becoming an error page.
     """
     strict = strict_pages() if strict is None else strict
-    pages = tuple(_build_page(builder, run, strict) for builder in PAGE_BUILDERS)
+    built = (_build_page(builder, run, strict) for builder in PAGE_BUILDERS)
+    pages = tuple(page for page in built if page is not None)
     return SiteContent(title=run.options.title, as_of=run.options.to_dict()["as_of"],
                        pages=pages, results=run.to_dict(), source=run.options.source)

@@ -15,7 +15,9 @@ from retain.publish.pages import prose
 from retain.publish.pages.shared import (
     failure_section,
     interval_text,
+    left_out,
     level_text,
+    not_set_up_section,
     num,
     pct,
 )
@@ -46,8 +48,10 @@ def decrements_page(run: Any) -> Page:
     elif grad.kind != "absent":
         notes.append(f"graduation: {grad.error}")
     chart_frame = pd.concat(chart_parts, ignore_index=True)
-    shown = seg[["label", "in_force", "exposure", "churns", "churns_voluntary",
-                 "churns_involuntary", "m", "q", "q_lower", "q_upper", "survivors"]]
+    by_cause = (["churns_voluntary", "churns_involuntary"]
+                if "cause-split" not in left_out(run) else [])
+    shown = seg[["label", "in_force", "exposure", "churns", *by_cause, "m", "q", "q_lower",
+                 "q_upper", "survivors"]]
     if grad.ok:
         g = grad.value.to_frame()
         g = g[g["segment"] == seg["segment"].iloc[0]]
@@ -180,7 +184,12 @@ def _cause_cox_section(run: Any) -> Section:
                        table=frame, csv=hr),))
 
 
-def causes_page(run: Any) -> Page:
+def causes_page(run: Any) -> Page | None:
+    """The page of churn by cause, or None when every churn has the same cause (the page
+    is left out and the overview says how to record a second cause)."""
+    off = left_out(run)
+    if "cause-split" in off:
+        return None
     o = run.get(step.INCIDENCE)
     title = "Cumulative incidence by cause"
     if not o.ok:
@@ -209,7 +218,11 @@ def causes_page(run: Any) -> Page:
                                  lower="lower", upper="upper"),
         table=over, csv=frame)
     sections = [Section(title, intro=ci.summary(), facts=tuple(facts), bullets=ci.warnings,
-                        figures=(fig,)), _cause_cox_section(run)]
+                        figures=(fig,))]
+    if "cause-hazard-ratios" in off:
+        sections.append(not_set_up_section([off["cause-hazard-ratios"]]))
+    else:
+        sections.append(_cause_cox_section(run))
     return Page("causes", "Churn by cause", prose.CAUSES_LEAD, tuple(sections),
                 cautions=prose.ACTUARIAL_CAUTIONS[:1],
                 assumptions=(f"method: {ci.method}", f"intervals: {ci.interval}"),

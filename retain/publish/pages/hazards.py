@@ -17,7 +17,9 @@ from retain.publish.pages.shared import (
     failure_section,
     hazard_frame,
     interval_text,
+    left_out,
     level_text,
+    not_set_up_section,
     num,
     p_text,
     term_frame,
@@ -30,7 +32,8 @@ FIT_TABLE_MONTHS = (1, 3, 6, 12, 18, 24, 36)
 
 # --------------------------------------------------------------------------- hazards
 def hazards_page(run: Any) -> Page:
-    sections: list[Section] = [_cox_section(run)]
+    off = left_out(run).get("hazard-ratios")
+    sections: list[Section] = [] if off else [_cox_section(run)]
     w = run.get(step.WEIBULL_COVARIATES)
     title = "Weibull model: shape and time ratios"
     if not w.ok:
@@ -59,6 +62,8 @@ def hazards_page(run: Any) -> Page:
         sections.append(Section(title, intro=shape.reading + " " + relation + ".",
                                 facts=facts, figures=tuple(figs),
                                 bullets=tuple(fit.warnings)))
+    if off:
+        sections.append(not_set_up_section([off]))
     return Page("hazards", "Hazards", prose.HAZARDS_LEAD, tuple(sections), nav_label="Hazards")
 
 
@@ -134,7 +139,8 @@ def _fit_curves_section(run: Any) -> Section:
                                    "retention": f.retention}))
     cox_curve = _cox_population_curve(run)
     if isinstance(cox_curve, str):
-        notes.append(f"Cox: {cox_curve}")
+        if not run.get(step.COX_CURVE).skipped:  # no Cox model asked for: no Cox curve
+            notes.append(f"Cox: {cox_curve}")
     else:
         parts.append(cox_curve)
         notes.append(prose.COX_CURVE_NOTE)

@@ -15,8 +15,10 @@ from retain.publish.pages.shared import (
     failure_section,
     hazard_frame,
     interval_text,
+    left_out,
     level_text,
     months_text,
+    not_set_up_section,
     num,
     pct,
 )
@@ -53,13 +55,20 @@ def overview_page(run: Any) -> Page:
     sections.append(Section(
         "The book at a glance", facts=tuple(facts),
         failure=None if (book.ok and km.ok) else (book.error or km.error)))
-    sections.append(_hazard_words(run))
+    off = left_out(run)
+    if "hazard-ratios" not in off:
+        sections.append(_hazard_words(run))
     if km.ok:
         fig = curves_figure("overview-retention", "Retention of all customers",
                             prose.OVERVIEW_RETENTION_GUIDE.format(
                                 level=level_text(km.value.level)),
                             [("all customers", km.value)])
         sections.append(Section("Retention curve", figures=(fig,)))
+    # what the project file leaves out here and the pages it leaves out (value, causes)
+    lines = not_set_up_section(off[k] for k in ("hazard-ratios", "lifetime-value", "cause-split")
+                               if k in off)
+    if lines is not None:
+        sections.append(lines)
     return Page("overview", "Overview", prose.OVERVIEW_LEAD, tuple(sections),
                 nav_label="Overview")
 

@@ -61,11 +61,53 @@ def p_text(p: float) -> str:
 
 
 def failure_section(title: str, outcome: Any, intro: str = "") -> Section:
-    """The section of a step that failed (a :class:`retain.run.Outcome`), or (said as a
-    note, not an alert) one that the project file does not ask for."""
+    """The section of a step that failed (a :class:`retain.run.Outcome`), or (one line,
+    not an alert) one that the project file does not ask for."""
     if outcome.skipped:
-        return Section(title=title, intro=f"Not set up: {outcome.error}")
+        return Section(title=title, intro=not_set_up_line(title, outcome))
     return Section(title=title, intro=intro, failure=outcome.error or "this part was not run")
+
+
+# What a page leaves out when the project file does not ask for it, and how each is named
+# in the one line that says how to turn it on.
+LEFT_OUT = {
+    "hazard-ratios": "The Cox model of hazard ratios",
+    "lifetime-value": "Lifetime value",
+    "cause-split": "Churn by cause",
+    "cause-hazard-ratios": "The Cox model of each cause",
+}
+NOT_SET_UP_TITLE = "Not set up in the project file"
+
+
+def not_set_up_line(topic: str, outcome: Any) -> str:
+    """One line: ``topic`` is not set up, and the key that turns it on (the fix of the
+    step's :class:`retain.run.NotSetUp` message, "where: rule -- fix")."""
+    error = outcome.error or ""
+    what, _, fix = error.rpartition(" -- ")
+    reason = what.partition(": ")[2]
+    text = f"{topic} is not set up" + (f" ({reason})" if reason else "")
+    return f"{text}: {fix or error}".rstrip(".") + "."
+
+
+def left_out(run: Any) -> dict[str, str]:
+    """What the site leaves out because the project file does not ask for it: key of
+    :data:`LEFT_OUT` -> the one line saying how to turn it on."""
+    from retain import step_names as step
+
+    outcomes = {"hazard-ratios": step.COX, "lifetime-value": step.VALUE_ALL,
+                "cause-split": step.INCIDENCE, "cause-hazard-ratios": step.CAUSE_COX}
+    out = {}
+    for key, name in outcomes.items():
+        o = run.get(name)
+        if o.skipped:
+            out[key] = not_set_up_line(LEFT_OUT[key], o)
+    return out
+
+
+def not_set_up_section(lines: Iterable[str]) -> Section | None:
+    """The one section that lists what a page leaves out (None when nothing is)."""
+    lines = tuple(lines)
+    return Section(NOT_SET_UP_TITLE, bullets=lines, anchor="not-set-up") if lines else None
 
 
 def as_frame(result: Any) -> pd.DataFrame:

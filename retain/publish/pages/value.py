@@ -8,20 +8,27 @@ from retain import step_names as step
 from retain.publish import charts
 from retain.publish.content import Fact, Figure, Page, Section
 from retain.publish.pages import prose
-from retain.publish.pages.shared import failure_section, interval_text, levels_text, num
+from retain.publish.pages.shared import (
+    failure_section,
+    interval_text,
+    left_out,
+    levels_text,
+    num,
+)
 
 
-def value_page(run: Any) -> Page:
+def value_page(run: Any) -> Page | None:
+    """The value page, or None when the project file sets no margin (the page is left
+    out and the overview says which key turns it on)."""
+    if "lifetime-value" in left_out(run):
+        return None
     spec = run.options.to_dict()["value"]  # the [value] keys as results.json has them
     sections: list[Section] = []
     assumptions: list[str] = []
     if spec:
-        margin = (f"margin per month {spec['margin_per_month']:g}"
-                  if spec.get("margin_per_month") is not None else
-                  f"margin per month = {spec.get('margin_rate')} × the segment's mean monthly "
-                  f"{spec.get('price') or 'price'}")
+        margin = _margin_text(spec)
         rate = 100 * float(spec.get("annual_discount_rate", 0))
-        assumptions += [margin, f"annual discount rate {rate:g} %",
+        assumptions += [*margin, f"annual discount rate {rate:g} %",
                         f"horizon {spec.get('horizon_months')} months",
                         f"retention curve: {spec.get('curve')} model fitted per segment"]
     allv = run.get(step.VALUE_ALL)
@@ -49,6 +56,16 @@ def value_page(run: Any) -> Page:
     cautions = prose.MONEY_CAUTIONS + ((from_caution,) if from_caution else ())
     return Page("value", "Value", prose.VALUE_LEAD, tuple(sections), cautions=cautions,
                 assumptions=tuple(assumptions), nav_label="Value")
+
+
+def _margin_text(spec: dict[str, Any]) -> list[str]:
+    """How the margin is set, as an assumption line (none when no margin is set)."""
+    if spec.get("margin_per_month") is not None:
+        return [f"margin per month {spec['margin_per_month']:g}"]
+    if spec.get("margin_rate") is not None:
+        return [f"margin per month = {spec['margin_rate']:g} × the segment's mean monthly "
+                f"{spec.get('price') or 'price'}"]
+    return []
 
 
 def _segments_section(sv: Any) -> Section:
