@@ -36,7 +36,8 @@ def project(source: Any, *, columns: Mapping[str, str], events: Mapping[str, Any
         project file"), e.g. ``events={"map": {"signup": "start", "cancel": "end"}}``
         and ``attributes={"plan": {"kind": "categorical", "varies": True}}``.
     **sections : mapping
-        Any other section: segments, model, value, experiments, engine, output, check.
+        Any other section: project, segments, model, value, experiments, engine, output,
+        check.
 
     Returns
     -------
