@@ -249,6 +249,7 @@ def test_veterans_no_longer_interpolates():
     np.testing.assert_allclose(f["q_graduated"][pos].clip(lower=1e-12),
                                np.clip(line, 1e-12, None), atol=2e-3)
     assert any("smooth end" in w for w in g.warnings)
+    assert f"effective parameters 2.0 of {t['months']} months, chi-square p = " in g.summary()
 
 
 def test_whas500_choice_is_interior():
