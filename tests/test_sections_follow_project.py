@@ -123,6 +123,9 @@ def test_bare_project_leaves_out_value_causes_and_cox(bare, tmp_path) -> None:
     assert not (index.parent / "value.html").exists()
     assert not (index.parent / "causes.html").exists()
     assert "value.html" not in html and "causes.html" not in html
+    overview = index.read_text(encoding="utf-8")
+    assert overview.count("Lifetime value is not set up") == 1
+    assert overview.count("Churn by cause is not set up") == 1
 
 
 def test_without_reason_column_every_churn_has_one_cause(bare) -> None:
@@ -229,3 +232,17 @@ def test_build_prints_progress_lines_like_prepare(tmp_path, capsys) -> None:
     assert re.search(rf"^  book +{N_PATIENTS} rows +\d+\.\d\d s$", err, re.M)
     assert re.search(r"^  site +\d+ pages +\d+\.\d\d s$", err, re.M)
     assert re.search(r"^  cox +not set up +\d+\.\d\d s$", err, re.M)
+
+
+def test_a_run_set_up_in_python_without_value_says_how_to_turn_it_on(bare) -> None:
+    from retain.run import RunOptions
+
+    run, _ = bare
+    plain = run_table(run.table, RunOptions())  # no value mapping at all
+    assert plain.get("value:all").skipped
+    assert "margin_per_month" in plain.get("value:all").error
+    assert [k for k in plain.outcomes if k.startswith("value")] == ["value:all"]
+    content = site_content(plain, strict=True)
+    assert "value" not in _pages(content)
+    assert any(line.startswith("Lifetime value is not set up")
+               for line in _not_set_up(_pages(content)["overview"]))
