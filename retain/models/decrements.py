@@ -559,7 +559,10 @@ class Graduation(Result):
                    if row.chi_square_dof > 0 else
                    f"chi-square test not shown ({row.chi_square_dof:.1f} degrees of freedom "
                    "left)")
-            parts.append(f"{row.segment}: h = {row.smoothing:.3g}, effective parameters "
+            where = {"interior": "inside its search range"}.get(
+                row.optimum, f"at the {row.optimum} end of its search range")
+            how = "" if row.criterion == "given" else f" (by {row.criterion}, {where})"
+            parts.append(f"{row.segment}: h = {row.smoothing:.3g}{how}, effective parameters "
                          f"{row.effective_parameters:.1f} of {row.months} months, {chi}, "
                          f"signs p = {row.signs_p:.3f}, groups p = {row.groups_p:.3f} "
                          f"({verdict})")
