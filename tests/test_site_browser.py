@@ -216,12 +216,13 @@ def test_experiment_verdict_matches_the_fit(visits, demo):
 
 
 def test_cohort_table_leaves_unobservable_cells_empty(visits, demo):
-    """Blank cells in the heat table are exactly the NaN cells of the cohort result."""
+    """Blank cells in the heat table are exactly the NaN cells of the cohort result (the
+    first two columns are the cohort and where its observation began)."""
     _, run = demo
     ct = run.value("cohorts")
     cells = visits["cohorts.html"].page.eval_on_selector_all(
         "#fig-cohorts-retention table tbody tr",
-        "rows => rows.map(r => Array.from(r.children).slice(1).map(c => c.textContent))")
+        "rows => rows.map(r => Array.from(r.children).slice(2).map(c => c.textContent))")
     assert len(cells) == len(ct.cohorts)
     blank = [[c == "" for c in row] for row in cells]
     nan = [[not math.isfinite(x) for x in row] for row in ct.retention]

@@ -27,6 +27,9 @@ GRID = "#e6e3da"
 HEIGHT = 300
 FIXED_WIDTH = 520  # charts with long labels on the left get a fixed plot width
 SIGNIFICANT = 6
+SOLID = (1, 0)  # dash patterns of data lines and of model lines
+DASHED = (6, 3)
+DOTTED = (2, 4)  # legend of a series drawn as dots
 
 
 def _round(value: Any) -> Any:
@@ -157,8 +160,9 @@ def lines_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str,
     """
     data = _Datasets(name)
     levels = list(dict.fromkeys(frame[series].astype(str)))
+    legend = _line_legend()
     color = alt.Color(f"{series}:N", scale=_series_scale(levels), title=series_title,
-                      legend=alt.Legend(columns=2))
+                      legend=legend)
     scale_y = alt.Scale(domain=y_domain) if y_domain else alt.Scale(zero=False)
     enc_x = alt.X(f"{x}:Q", title=x_title)
     enc_y = alt.Y(f"{y}:Q", title=y_title, axis=alt.Axis(format=y_format), scale=scale_y)
@@ -173,11 +177,11 @@ def lines_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str,
     line_data = base
     if points:
         line_data = base.transform_filter(alt.datum[series] != points)
-    stroke: Any = alt.Undefined
-    if dashed:
-        dash_levels = [lv for lv in levels if lv != points]
-        stroke = alt.StrokeDash(f"{series}:N", title=series_title, scale=alt.Scale(
-            domain=dash_levels, range=[[6, 3] if dashed.get(lv) else [1, 0] for lv in dash_levels]))
+    # one dash pattern per series (solid unless ``dashed``; the dotted series is drawn as
+    # dots), on the same field and title as the colour, so Vega-Lite draws one legend
+    # whose symbols look like the marks themselves
+    stroke = alt.StrokeDash(f"{series}:N", title=series_title, legend=legend, scale=alt.Scale(
+        domain=levels, range=[list(_dash(lv, dashed, points)) for lv in levels]))
     if any(lv != points for lv in levels):
         layers.append(line_data.mark_line(interpolate="step-after" if step else "linear")
                       .encode(x=enc_x, y=enc_y, color=color, strokeDash=stroke, tooltip=tip))
@@ -185,6 +189,18 @@ def lines_chart(frame: pd.DataFrame, name: str, *, x: str, y: str, series: str,
         layers.append(base.transform_filter(alt.datum[series] == points).mark_point(
             filled=True, size=34).encode(x=enc_x, y=enc_y, color=color, tooltip=tip))
     return finish(alt.layer(*layers).properties(height=HEIGHT), name, data)
+
+
+def _dash(level: str, dashed: dict[str, bool] | None, points: str | None) -> tuple[int, ...]:
+    if level == points:
+        return DOTTED
+    return DASHED if (dashed or {}).get(level) else SOLID
+
+
+def _line_legend() -> alt.Legend:
+    """A legend whose symbols are short strokes in each series' colour and dash pattern."""
+    return alt.Legend(columns=2, symbolType="stroke", symbolOpacity=1, symbolStrokeWidth=2.5,
+                      symbolSize=400)
 
 
 def forest_chart(frame: pd.DataFrame, name: str, *, label: str = "term",
@@ -247,22 +263,35 @@ def interval_bars(frame: pd.DataFrame, name: str, *, label: str, estimate: str,
 
 
 def heat_chart(frame: pd.DataFrame, name: str, *, row: str, column: str, value: str,
-               row_title: str, column_title: str, value_title: str) -> dict[str, Any]:
-    """A cohort x month grid coloured by retention; missing cells stay blank."""
+               row_title: str, column_title: str, value_title: str,
+               outlined: str | None = None, rows: list[str] | None = None) -> dict[str, Any]:
+    """A cohort x month grid coloured by retention; missing cells stay blank.
+
+    ``rows`` fixes the row order and keeps rows with no observable cell (a cohort
+    that has not reached its first month yet) as an empty row; ``outlined`` names a
+    true/false column whose true cells get a dark outline (cohorts observed from
+    part-way through their life).
+    """
     data = _Datasets(name)
-    rows = list(dict.fromkeys(frame[row].astype(str)))
+    rows = list(rows) if rows is not None else list(dict.fromkeys(frame[row].astype(str)))
     shown = frame[np.isfinite(frame[value].to_numpy(dtype=float))]
     base = alt.Chart(data(shown))
+    enc_x = alt.X(f"{column}:O", title=column_title, axis=alt.Axis(labelAngle=0))
+    enc_y = alt.Y(f"{row}:O", sort=rows, title=row_title or None, scale=alt.Scale(domain=rows))
     rect = base.mark_rect().encode(
-        x=alt.X(f"{column}:O", title=column_title, axis=alt.Axis(labelAngle=0)),
-        y=alt.Y(f"{row}:O", sort=rows, title=row_title or None),
+        x=enc_x, y=enc_y,
         color=alt.Color(f"{value}:Q", title=value_title,
                         scale=alt.Scale(scheme="viridis", domain=[0, 1]),
                         legend=alt.Legend(format="%", orient="right", titleLimit=200)),
         tooltip=[alt.Tooltip(f"{row}:O"), alt.Tooltip(f"{column}:O"),
                  alt.Tooltip(f"{value}:Q", format=".1%")])
+    layers = [rect]
+    if outlined is not None:
+        layers.append(base.transform_filter(alt.datum[outlined]).mark_rect(
+            filled=False, stroke=INK, strokeWidth=1.6, strokeDash=[3, 2]).encode(
+            x=enc_x, y=enc_y))
     height = max(120, 16 * len(rows))
-    return finish(rect.properties(height=height), name, data)
+    return finish(alt.layer(*layers).properties(height=height), name, data)
 
 
 def loglog_chart(points: pd.DataFrame, lines: pd.DataFrame, name: str, *,

@@ -53,6 +53,13 @@ COHORTS_GUIDE = (
     "age. Blank cells cannot be observed: the cohort has not reached that tenure by the "
     "as-of date, or (for cohorts that began before the observation window) its customers "
     "were not yet under observation at that tenure.")
+COHORTS_OUTLINE_GUIDE = ("Cells with a dashed outline belong to cohorts that signed up before "
+                         "the observation window began.")
+COHORTS_TRUNCATED = (
+    "{count} ({first} to {last}) signed up before the observation window began and are "
+    "outlined: their customers are counted only from the day the window opened (up to "
+    "{days} into their life), so those cells are retention among customers still "
+    "subscribed then, not retention from signup.")
 
 # --------------------------------------------------------------------------- hazards
 HAZARDS_LEAD = ("What raises or lowers the risk of churn at any tenure, from the "
@@ -147,8 +154,13 @@ NO_RECONCILIATION = ("This run started from a start-stop table prepared elsewher
                      "is no event-log reconciliation to show.")
 TABLE_INTRO = ("What the models were fitted on: one row per customer, spell and interval "
                "with constant attributes.")
-RECONCILIATION_GUIDE = ("Rows read from the event log, by what happened to them. Rows in = "
-                        "rows used + rows quarantined.")
+RECONCILIATION_GUIDE = ("Rows read from the event log, by what happened to them; the rows "
+                        "in are the sum of the other lines.")
+RECONCILIATION_IDENTITY = (
+    "Rows in ({rows_in}) = rows used ({used}) + outside the window ({outside}) + ignored "
+    "({ignored}) + quarantined ({quarantined}).")
+RECONCILIATION_TABLE = ("Start-stop table: {rows} rows, {customers} customers, {spells} "
+                        "spells, {churns} churns.")
 QUARANTINE_GUIDE = (
     "Up to {sample} rows per reason, with their original values; the CSV holds every "
     "quarantined row. Fix the source or the mapping in retain.toml and run again.")

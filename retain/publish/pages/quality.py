@@ -37,7 +37,13 @@ def quality_page(run: Any) -> Page:
 
 def _reconciliation_section(rec: Any) -> Section:
     frame = as_frame(rec)
-    return Section("Reconciliation", intro=rec.summary(),
+    identity = prose.RECONCILIATION_IDENTITY.format(
+        rows_in=num(rec.rows_in), used=num(rec.used), outside=num(rec.outside_window),
+        ignored=num(rec.ignored), quarantined=num(rec.quarantined))
+    made = prose.RECONCILIATION_TABLE.format(
+        rows=num(rec.n_intervals), customers=num(rec.n_customers), spells=num(rec.n_spells),
+        churns=num(rec.n_churns))
+    return Section("Reconciliation", intro=f"Read from {rec.source}. {identity} {made}",
                    figures=(Figure(key="quality-reconciliation",
                                    title="Rows in, used and set aside",
                                    guide=prose.RECONCILIATION_GUIDE,
