@@ -753,7 +753,8 @@ def _cohort_km_cells(out: dict[str, np.ndarray], code: int, sub: StartStop,
     n_at = at_risk_at(sub.start, sub.stop, sub.weight, grid)
     if c.first_entry > 0:
         warnings.append(f"cohort {label} entered observation at tenure "
-                        f"{c.first_entry:g} days: its cells are retention conditional on "
+                        f"{c.first_entry:g} day{'' if c.first_entry == 1 else 's'}: its cells "
+                        "are retention conditional on "
                         "being active then")
     # observable: reachable by the last day, after entry, someone at risk (or all gone)
     seen = ((grid <= reach + 1e-9) & (grid > c.first_entry)
