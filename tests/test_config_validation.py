@@ -90,7 +90,7 @@ BASE = toml_text(extra=EXTRA)
 CASES = [
     ("unknown section",
      BASE + "\n[extras]\nx = 1\n",
-     "retain.toml: unknown section [extras] -- allowed sections: source, columns, events, "
+     "retain.toml: unknown section [extras] -- allowed sections: project, source, columns, events, "
      "reasons, window, attributes, segments, model, value, experiments, engine, output, "
      "check"),
     ("unknown key",

@@ -570,6 +570,22 @@ class Graduation(Result):
                 + ".")
 
 
+def _check_graduation_inputs(decrements: Any, order: int, smoothing: float | None) -> None:
+    """The checks of :func:`graduate`'s arguments (one line each)."""
+    if not isinstance(decrements, DecrementTable):
+        raise DataError("graduate", f"needs a DecrementTable, not {type(decrements).__name__}",
+                        "build one with decrement_table()")
+    if decrements.band_edges is not None:
+        raise ModelError("graduate", "the table is on user bands of unequal width",
+                         "graduate a table by tenure month (decrement_table without band_edges)")
+    if order not in (2, 3):
+        raise DataError("graduate", f"order must be 2 or 3, not {order!r}",
+                        "2 smooths towards a line, 3 towards a quadratic")
+    if smoothing is not None and not (np.isfinite(smoothing) and smoothing >= 0):
+        raise DataError("graduate", f"smoothing must be a number >= 0, not {smoothing!r}",
+                        "or leave it out to choose it by cross-validation")
+
+
 def graduate(
     decrements: DecrementTable,
     *,
@@ -595,18 +611,7 @@ def graduate(
     are interpolated. Whittaker (1923), Henderson (1924); GCV: Craven and Wahba
     (1979); tests: e.g. Benjamin and Pollard (1980), ch. 13; Stevens (1939).
     """
-    if not isinstance(decrements, DecrementTable):
-        raise DataError("graduate", f"needs a DecrementTable, not {type(decrements).__name__}",
-                        "build one with decrement_table()")
-    if decrements.band_edges is not None:
-        raise ModelError("graduate", "the table is on user bands of unequal width",
-                         "graduate a table by tenure month (decrement_table without band_edges)")
-    if order not in (2, 3):
-        raise DataError("graduate", f"order must be 2 or 3, not {order!r}",
-                        "2 smooths towards a line, 3 towards a quadratic")
-    if smoothing is not None and not (np.isfinite(smoothing) and smoothing >= 0):
-        raise DataError("graduate", f"smoothing must be a number >= 0, not {smoothing!r}",
-                        "or leave it out to choose it by cross-validation")
+    _check_graduation_inputs(decrements, order, smoothing)
     frames, tests, warnings = [], [], []
     for label in decrements.segments:
         seg = decrements.segment(label)
