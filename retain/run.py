@@ -406,7 +406,7 @@ def build_from_config(config: Any, out_dir: Any, *, prepared: Any = None,
 
 def _model_steps(table: StartStop, options: RunOptions,
                  done: dict[str, Outcome]) -> list[tuple[str, Callable[[], Any]]]:
-    from retain.models import competing, cox, curves, decrements, parametric
+    from retain.models import competing, cox, curves, decrements, parametric, tenure_effects
 
     model = options.model
     cov = list(model.covariates)
@@ -454,6 +454,8 @@ def _model_steps(table: StartStop, options: RunOptions,
         (step_names.LOGLOG, lambda: parametric.loglog_diagnostic(table, first_segment)),
         (step_names.COX, cox_fit),
         (step_names.COX_PH, from_cox(lambda f: f.proportional_hazards_test())),
+        (step_names.COX_TENURE, after(step_names.COX_PH, lambda ph: tenure_effects.tenure_effects(
+            done[step_names.COX].value, ph.table, cuts))),
         (step_names.COX_CONCORDANCE, from_cox(lambda f: f.concordance())),
         (step_names.COX_CURVE, from_cox(lambda f: f.segment_retention(f.fitted_table, grid))),
         (step_names.DECREMENTS, lambda: decrements.decrement_table(table)),

@@ -19,6 +19,7 @@ WEIBULL_COVARIATES = "weibull"  # Weibull model with the project's covariates
 LOGLOG = "loglog"  # log(−log) check of the Weibull shape
 COX = "cox"  # Cox proportional-hazards model
 COX_PH = "cox:ph"  # its Schoenfeld-residual test of proportional hazards
+COX_TENURE = "cox:tenure"  # hazard ratio by tenure band of each term that fails that test
 COX_CONCORDANCE = "cox:concordance"  # its concordance (Harrell's C)
 COX_CURVE = "cox:curve"  # its retention averaged over customers
 DECREMENTS = "decrements"  # decrement table by tenure month
@@ -45,7 +46,7 @@ def experiment(name: str) -> str:
 
 
 ALL = (BOOK, KM, COHORTS, EXPONENTIAL, WEIBULL, COMPARE, WEIBULL_COVARIATES, LOGLOG, COX,
-       COX_PH, COX_CONCORDANCE, COX_CURVE, DECREMENTS, GRADUATION, ACTUAL_VS_EXPECTED,
+       COX_PH, COX_TENURE, COX_CONCORDANCE, COX_CURVE, DECREMENTS, GRADUATION, ACTUAL_VS_EXPECTED,
        DECREMENTS_BANDS, INCIDENCE, CAUSE_COX, VALUE_ALL, VALUE_SEGMENTS, VALUE_BASE,
        VALUE_FINANCE)
 PREFIXES = (CURVES_PREFIX, EXPERIMENT_PREFIX)

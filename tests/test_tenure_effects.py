@@ -43,7 +43,7 @@ def fit(veterans):
 def _split_by_hand(frame: pd.DataFrame, edges: list[float]) -> pd.DataFrame:
     """Each row cut at the edges; the churn stays on the piece that holds the row's stop."""
     parts = []
-    for b, (lo, hi) in enumerate(zip(edges[:-1], edges[1:])):
+    for b, (lo, hi) in enumerate(zip(edges[:-1], edges[1:], strict=True)):
         piece = frame[(frame["start"] < hi) & (frame["stop"] > lo)].copy()
         piece["churned"] = np.where(piece["stop"] <= hi, piece["churned"], 0)
         piece["start"] = piece["start"].clip(lower=lo)
@@ -101,3 +101,48 @@ def test_band_labels_and_empty_bands(fit):
     # a cut past the last churn is dropped: one band fewer
     res = hazard_ratio_by_tenure(fit, "treatment", cuts=(90.0, 5000.0))
     assert len(res.bands) == 2 and res.hazard_ratio.shape == (1, 2)
+
+
+# --------------------------------------------------------------------------- the demo's page
+@pytest.fixture(scope="module")
+def demo_site(demo_prepared, tmp_path_factory):
+    from retain.data.config import load_config
+    from retain.paths import DEMO_DIR
+    from retain.publish.pages import site_content
+    from retain.publish.site import build_site
+    from retain.run import run_config
+
+    run = run_config(load_config(DEMO_DIR / "retain.toml"), prepared=demo_prepared)
+    out = tmp_path_factory.mktemp("tenure") / "site"
+    build_site(site_content(run, strict=True), out)
+    return run, out
+
+
+def test_demo_hazards_page_shows_each_failing_term_by_tenure(demo_site):
+    import html as html_lib
+
+    from retain import step_names
+
+    run, out = demo_site
+    ph = run.outcomes[step_names.COX_PH].value.table
+    cox = run.outcomes[step_names.COX].value
+    # a term fails when its own row (several columns: the term row; one column: that
+    # column's row) has p < 0.05, read straight from the test's table
+    failing, passing = [], []
+    for term, sl in cox.design.terms.items():
+        key = term if sl.stop - sl.start > 1 else cox.labels[sl.start]
+        p = float(ph.loc[ph["term"] == key, "p_value"].iloc[0])
+        (failing if p < 0.05 else passing).append(term)
+    assert failing, "the demo has terms that fail the test (global p about 0.004)"
+    page = html_lib.unescape((out / "hazards.html").read_text(encoding="utf-8"))
+    assert "Hazard ratios that change with tenure" in page
+    res = run.outcomes[step_names.COX_TENURE].value
+    assert list(res.averaged) == failing and list(res.held) == passing
+    for term in failing:
+        assert f"{term}: hazard ratio by tenure band" in page
+        e = next(e for e in res.effects if e.term == term)
+        for i, label in enumerate(e.labels):
+            hr = e.hazard_ratio[i]
+            assert f"{label}: {hr[0]:.2f} in months 0–3, {hr[1]:.2f} in 3–12, " \
+                   f"{hr[2]:.2f} after 12: " in page
+    assert "hold at every tenure" in page and all(t in page for t in passing)

@@ -36,7 +36,8 @@ def _months(days: float) -> str:
 
 def band_labels(edges: Sequence[float]) -> tuple[str, ...]:
     """"months 0–3", "months 3–12", "months 12+" for edges in days (the last band is open)."""
-    out = [f"months {_months(a)}–{_months(b)}" for a, b in zip(edges[:-2], edges[1:-1])]
+    out = [f"months {_months(a)}–{_months(b)}"
+           for a, b in zip(edges[:-2], edges[1:-1], strict=True)]
     out.append(f"months {_months(edges[-2])}+" if len(edges) > 2 else "all tenures")
     return tuple(out)
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 from typing import Any
 
 import numpy as np
@@ -34,6 +35,9 @@ FIT_TABLE_MONTHS = (1, 3, 6, 12, 18, 24, 36)
 def hazards_page(run: Any) -> Page:
     off = left_out(run).get("hazard-ratios")
     sections: list[Section] = [] if off else [_cox_section(run)]
+    tenure = None if off else _tenure_section(run)
+    if tenure is not None:
+        sections.append(tenure)
     w = run.get(step.WEIBULL_COVARIATES)
     title = "Weibull model: shape and time ratios"
     if not w.ok:
@@ -111,6 +115,68 @@ def cox_section(run: Any, cox: Any) -> Section:
                                    customers=num(cox.n_customers), churns=num(cox.n_events))
     return Section("Cox model: hazard ratios", intro=intro, facts=tuple(facts),
                    bullets=tuple(bullets), figures=tuple(figs))
+
+
+def _tenure_section(run: Any) -> Section | None:
+    """Under the proportional-hazards test: which headline ratios hold, and each failing
+    term's ratio by tenure band. None when the step did not run or no term fails."""
+    o = run.get(step.COX_TENURE)
+    if o.skipped:
+        return None
+    if not o.ok:
+        return failure_section(prose.TENURE_BANDS_TITLE, o)
+    res = o.value
+    if not res.averaged:
+        return None
+    intro = " ".join([prose.TENURE_HELD.format(terms=_and(res.held), alpha=res.alpha)
+                      if res.held else prose.TENURE_NONE_HELD,
+                      prose.TENURE_AVERAGED.format(terms=_and(res.averaged))])
+    figs = []
+    for e in res.effects:
+        lines = [_tenure_sentence(e, i) for i in range(len(e.labels))]
+        figs.append(Figure(
+            key="hazards-tenure-" + re.sub(r"[^a-z0-9]+", "-", e.term.lower()).strip("-"),
+            title=f"{e.term}: hazard ratio by tenure band",
+            guide=" ".join([*lines, prose.TENURE_BANDS_GUIDE.format(level=level_text(e.level))]),
+            table=_tenure_table(e), csv=e.to_frame()))
+    return Section(prose.TENURE_BANDS_TITLE, intro=intro, figures=tuple(figs))
+
+
+def _and(names: tuple[str, ...]) -> str:
+    return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
+
+
+def _tenure_table(e: Any) -> pd.DataFrame:
+    f = e.to_frame()
+    return pd.DataFrame({"compares": f["label"], "tenure band": f["band"],
+                         "hazard ratio": f["hazard_ratio"].round(3),
+                         "lower": f["lower"].round(3), "upper": f["upper"].round(3),
+                         "churns in band": f["events"].map(num),
+                         "single ratio": f["overall"].round(3)})
+
+
+def _tenure_sentence(e: Any, i: int) -> str:
+    """"plan Orchard vs Seedling: 0.62 in months 0–3, 0.78 in 3–12, 0.91 after 12: the effect
+    fades with tenure." """
+    months = [f"{d / DAYS_PER_MONTH:.3g}" for d in e.edges[:-1]]
+    hr = e.hazard_ratio[i]
+    parts = [f"{hr[0]:.2f} in months {months[0]}–{months[1]}" if len(hr) > 1
+             else f"{hr[0]:.2f}"]
+    parts += [f"{hr[b]:.2f} in {months[b]}–{months[b + 1]}" for b in range(1, len(hr) - 1)]
+    if len(hr) > 1:
+        parts.append(f"{hr[-1]:.2f} after {months[-1]}")
+    return f"{e.labels[i]}: {', '.join(parts)}: {prose.TENURE_TREND[_trend(hr)]}."
+
+
+def _trend(hr: np.ndarray) -> str:
+    """How the log ratio moves from the first band to the last: toward 1 (fades), away
+    from it (grows), across it (reverses), or by under 10 % (steady)."""
+    first, last = float(np.log(hr[0])), float(np.log(hr[-1]))
+    if first * last < 0 and min(abs(first), abs(last)) > 0.05:
+        return "reverses"
+    if abs(last - first) < 0.1:
+        return "steady"
+    return "fades" if abs(last) < abs(first) else "grows"
 
 
 # --------------------------------------------------------------------------- model fit

@@ -81,6 +81,22 @@ PH_TEST_GUIDE = (
 COX_INTRO = ("Cox proportional-hazards model ({ties} ties) on {rows} rows, {customers} "
              "customers and {churns} churns; each attribute is compared with its reference "
              "level.")
+TENURE_BANDS_TITLE = "Hazard ratios that change with tenure"
+TENURE_HELD = ("The headline ratios of {terms} hold at every tenure (their test passes, "
+               "p ≥ {alpha:g}).")
+TENURE_NONE_HELD = "No attribute passes the test: every headline ratio is an average over tenure."
+TENURE_AVERAGED = ("The headline ratios of {terms} are averages over tenure: below, each is "
+                   "estimated separately in each tenure band.")
+TENURE_BANDS_GUIDE = (
+    "The Cox model refitted with this attribute's ratio free to differ by tenure band (the "
+    "spells are cut at the band edges; the other attributes keep one ratio each). "
+    "Intervals are {level}; a band with few churns has a wide interval.")
+TENURE_TREND = {
+    "fades": "the effect fades with tenure",
+    "grows": "the effect grows with tenure",
+    "reverses": "the effect reverses with tenure",
+    "steady": "the ratio moves little from the first band to the last",
+}
 
 # --------------------------------------------------------------------------- model fit
 FIT_LEAD = ("Do the fitted models describe the data? Each is set against the Kaplan–Meier "
