@@ -146,3 +146,16 @@ def test_demo_hazards_page_shows_each_failing_term_by_tenure(demo_site):
             assert f"{label}: {hr[0]:.2f} in months 0–3, {hr[1]:.2f} in 3–12, " \
                    f"{hr[2]:.2f} after 12: " in page
     assert "hold at every tenure" in page and all(t in page for t in passing)
+
+
+def test_trend_words_hand_worked():
+    from retain.publish.pages.hazards import _trend
+
+    # log ratios: 0.62 -> -0.478, 0.91 -> -0.094: nearer 1 at the end, same side: fades
+    assert _trend(np.array([0.62, 0.78, 0.91])) == "fades"
+    # 17.7 -> 2.87, 23.8 -> 3.17: further from 1 by 0.30 (> 0.1): grows
+    assert _trend(np.array([17.7, 21.7, 23.8])) == "grows"
+    # 0.8 -> -0.223, 1.3 -> +0.262: crosses 1, both beyond 0.05: reverses
+    assert _trend(np.array([0.8, 1.0, 1.3])) == "reverses"
+    # 0.68 -> -0.386, 0.745 -> -0.294: moves 0.09 (< 0.1): steady
+    assert _trend(np.array([0.68, 0.75, 0.745])) == "steady"

@@ -121,7 +121,7 @@ def _tenure_section(run: Any) -> Section | None:
     """Under the proportional-hazards test: which headline ratios hold, and each failing
     term's ratio by tenure band. None when the step did not run or no term fails."""
     o = run.get(step.COX_TENURE)
-    if o.skipped:
+    if o.skipped or not run.get(step.COX_PH).ok:  # the Cox section already says why
         return None
     if not o.ok:
         return failure_section(prose.TENURE_BANDS_TITLE, o)
