@@ -186,6 +186,9 @@ class ValueConfig:
     annual_discount_rate: float = 0.10
     horizon_months: int = 60
     curve: str = "weibull"
+    currency: str | None = None  # e.g. "EUR", printed beside every money figure
+    decimals: int = 2  # per-customer money figures; totals of many customers show none
+    thousands: str = ","  # thousands separator ("." makes "," the decimal mark)
 
     @property
     def price_column(self) -> str:
@@ -531,7 +534,8 @@ def parse_config(data: dict[str, Any], path: Path) -> Config:
                              "decrement_edges")), names, categorical)
     value = _value(_Section(file, "value", data.get("value", {}),
                             ("price", "margin_rate", "margin_per_month", "annual_discount_rate",
-                             "horizon_months", "curve")), attributes)
+                             "horizon_months", "curve", "currency", "decimals",
+                             "thousands")), attributes)
     experiments = _experiments(file, data.get("experiments", {}), attributes, names)
     engine = _engine(_Section(file, "engine", data.get("engine", {}),
                               ("memory_limit", "threads", "temp_directory")), base)
@@ -891,7 +895,32 @@ def _value(s: _Section, attributes: tuple[AttributeSpec, ...]) -> ValueConfig:
                        horizon_months=s.number("horizon_months",
                                                default=ValueConfig.horizon_months, low=1,
                                                high=600, integer=True),
-                       curve=s.text("curve", default=ValueConfig.curve, allowed=CURVES))
+                       curve=s.text("curve", default=ValueConfig.curve, allowed=CURVES),
+                       currency=_currency(s), decimals=s.number(
+                           "decimals", default=ValueConfig.decimals, low=0, high=6,
+                           integer=True),
+                       thousands=_thousands(s))
+
+
+THOUSANDS = (",", ".", " ", "'", "")  # the thousands separators money figures may use
+
+
+def _currency(s: _Section) -> str | None:
+    code = s.text("currency")
+    if code is not None and (len(code) > 8 or any(c.isspace() for c in code)):
+        raise ConfigError(s.where("currency"), f"{code!r} is not a short currency code",
+                          'write a code of up to 8 characters without spaces, e.g. "EUR"')
+    return code
+
+
+def _thousands(s: _Section) -> str:
+    sep = s._get("thousands", False)
+    if sep is None:
+        return ValueConfig.thousands
+    if sep not in THOUSANDS:
+        raise ConfigError(s.where("thousands"), f"{sep!r} is not a thousands separator",
+                          'allowed values: ",", ".", " ", "\'", "" (none)')
+    return sep
 
 
 def _experiments(file: str, data: Any, attributes: tuple[AttributeSpec, ...],

@@ -41,6 +41,17 @@ def _text(value: Any) -> Any:
     return value.isoformat() if isinstance(value, dt.date) else value
 
 
+def with_currency(table: pd.DataFrame, currency: str | None) -> pd.DataFrame:
+    """The finance rows with a ``currency`` column after ``total_upper`` holding the code
+    (the rows as they are when no currency is set: the money is then in the log's price
+    units); the money columns stay plain numbers."""
+    if not currency:
+        return table
+    out = table.copy()
+    out.insert(out.columns.get_loc("total_upper") + 1, "currency", currency)
+    return out
+
+
 def finance_export(
     out_dir: str | Path,
     *,
@@ -48,6 +59,7 @@ def finance_export(
     base: BaseValue | None = None,
     as_of: dt.date | str | None = None,
     stem: str = "finance_value",
+    currency: str | None = None,
 ) -> FinanceExport:
     """Write one CSV and one JSON with every value figure and its assumptions.
 
@@ -55,9 +67,13 @@ def finance_export(
     builds them: ``figure`` is ``new customer`` (value of a new customer;
     ``total`` is blank) or ``active base`` (residual value; ``total`` is the
     segment's sum). Every assumption is a column, and the caution text is on
-    every row and at the top of the JSON.
+    every row and at the top of the JSON. ``currency`` (the ``[value] currency`` code,
+    e.g. "EUR") fills a ``currency`` column after ``total_upper`` and the JSON's
+    assumptions; with None there is no such column and the JSON says the money is in the
+    log's price units. The numbers stay plain numbers at full precision.
     """
     table = finance_table(new_customers=new_customers, base=base, as_of=as_of)
+    table = with_currency(table, currency)
     table["as_of"] = table["as_of"].map(_text)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
@@ -72,6 +88,7 @@ def finance_export(
     as_of = as_date(as_of, "finance export: as_of") or \
         (new_customers.as_of if new_customers else None) or (base.as_of if base else None)
     assumptions = {"as_of": _text(as_of), "timing": TIMING,
+                   "currency": currency or "in the log's price units",
                    "time_unit": f"month = {DAYS_PER_MONTH} days of tenure"}
     doc = {"caution": CAUTION, "assumptions": assumptions, "warnings": warnings,
            "rows": to_jsonable(table)}

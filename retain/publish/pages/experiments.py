@@ -9,10 +9,13 @@ from retain import step_names as step
 from retain.publish.content import Fact, Figure, Page, Section, slug
 from retain.publish.pages import prose
 from retain.publish.pages.shared import (
+    PRICE_UNITS,
     curves_figure,
     failure_section,
     interval_text,
     level_text,
+    money,
+    money_unit,
     num,
     p_text,
 )
@@ -20,10 +23,6 @@ from retain.publish.pages.shared import (
 
 def _two(x: float | None) -> str:
     return f"{x:.2f}"
-
-
-def _money(x: float | None) -> str:
-    return num(x, 2)
 
 
 def experiments_page(run: Any) -> Page:
@@ -37,14 +36,19 @@ def experiments_page(run: Any) -> Page:
         if not o.ok:
             sections.append(failure_section(title, o))
             continue
-        sections.append(_experiment_section(name, o.value))
+        sections.append(_experiment_section(name, o.value, run.options.value))
     return Page("experiments", "Experiments", prose.EXPERIMENTS_LEAD, tuple(sections),
                 cautions=(prose.VERDICT_CAUTION, prose.MONEY_CAUTIONS[1]),
                 nav_label="Experiments")
 
 
-def experiment_verdict_text(v: Any) -> str:
-    """One plain sentence per treatment arm: what happened, and how sure we are."""
+def experiment_verdict_text(v: Any, fmt: Any = None) -> str:
+    """One plain sentence per treatment arm: what happened, and how sure we are (money
+    as :func:`retain.publish.pages.shared.money` prints it by ``fmt``, the [value] keys)."""
+
+    def _money(x: float | None) -> str:
+        return money(x, fmt)
+
     parts = []
     status = "Interim verdict" if v.interim else "Verdict"
     for t in v.treatments:
@@ -65,13 +69,16 @@ def experiment_verdict_text(v: Any) -> str:
             sign = "more" if rv.difference > 0 else "less"
             clear = "" if (rv.lower > 0 or rv.upper < 0) else ", not a clear difference"
             what += (f"; revenue per assigned customer over {rv.horizon_days:g} days was "
-                     f"{num(abs(rv.difference), 2)} {sign} "
+                     f"{_money(abs(rv.difference))} {sign} "
                      f"({interval_text(rv.lower, rv.upper, _money, rv.level)}{clear})")
         parts.append(what)
     return f"{status} at {v.analysis_horizon_days:g} days: " + "; ".join(parts) + "."
 
 
-def _experiment_facts(key: str, v: Any) -> list[Fact]:
+def _experiment_facts(key: str, v: Any, fmt: Any = None) -> list[Fact]:
+    def _money(x: float | None) -> str:
+        return money(x, fmt)
+
     facts = []
     for a in v.adjusted:
         facts.append(Fact(f"Hazard ratio, {a.treatment} vs {v.control}", f"{a.hazard_ratio:.2f}",
@@ -80,16 +87,17 @@ def _experiment_facts(key: str, v: Any) -> list[Fact]:
                           f"experiment-{key}-hr-{slug(a.treatment)}", a.hazard_ratio))
     for r in v.revenue:
         facts.append(Fact(f"Revenue per customer, {r.treatment} − {r.control}",
-                          num(r.difference, 2),
+                          _money(r.difference),
                           f"{interval_text(r.lower, r.upper, _money, r.level)}"
-                          f" over {r.horizon_days:g} days",
+                          f" over {r.horizon_days:g} days"
+                          + (f", {PRICE_UNITS}" if money_unit(fmt) == PRICE_UNITS else ""),
                           f"experiment-{key}-revenue-{slug(r.treatment)}", r.difference))
     facts.append(Fact("Log-rank test", p_text(v.logrank.p_value), f"χ² {v.logrank.statistic:.1f} "
                       f"on {v.logrank.df} df", f"experiment-{key}-logrank", v.logrank.p_value))
     return facts
 
 
-def _experiment_section(name: str, v: Any) -> Section:
+def _experiment_section(name: str, v: Any, fmt: Any = None) -> Section:
     key = slug(name)
     power = v.power if isinstance(v.power, dict) else {}
     bullets = [f"Selection: {v.selection}."]
@@ -113,5 +121,6 @@ def _experiment_section(name: str, v: Any) -> Section:
                guide=prose.EXPERIMENT_BALANCE_GUIDE, table=v.balance),
     )
     return Section(f"Experiment {name}" + (" (interim)" if v.interim else ""),
-                   verdict=experiment_verdict_text(v), facts=tuple(_experiment_facts(key, v)),
+                   verdict=experiment_verdict_text(v, fmt),
+                   facts=tuple(_experiment_facts(key, v, fmt)),
                    bullets=tuple(bullets), figures=figs, anchor=f"experiment-{key}")

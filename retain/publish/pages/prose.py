@@ -133,13 +133,21 @@ VALUE_BASE_GUIDE = (
     "For each customer active on the as-of date: the expected discounted margin still to "
     "come, given the tenure already reached, summed by segment. Intervals cover model "
     "uncertainty only.")
+VALUE_DISCOUNT = (
+    "annual discount rate {annual} → monthly rate d = ({gross})^(1/12) − 1 = "
+    "{monthly}; month k's margin is received at the end of month k of tenure and discounted "
+    "by (1 + d)^−k")
+VALUE_BASE_INTRO = ("{customers} active customers are worth {total} in expected discounted "
+                    "margin {horizon}.")
+VALUE_MONEY = ("money figures {unit}: per-customer values with {decimals} decimals, totals "
+               "over many customers rounded to whole units")
 FINANCE_INTRO = ("One row per figure and segment, with every assumption and the caution on "
                  "each row, for finance systems.")
 FINANCE_GUIDE = (
     "The same figures as above in one file: 'new customer' rows give the value of one new "
     "customer, 'active base' rows the residual value of the segment's active customers. The "
-    "CSV also carries the interval method, margin basis, timing and the caution on every "
-    "row.")
+    "CSV also carries the interval method, margin basis, timing, the currency (when the "
+    "project file sets one) and the caution on every row; its numbers keep full precision.")
 
 # --------------------------------------------------------------------------- experiments
 EXPERIMENTS_LEAD = ("One section per declared experiment: did the treatment change "

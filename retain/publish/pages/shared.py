@@ -32,6 +32,34 @@ def num(x: float | None, digits: int = 0) -> str:
     return f"{x:,.{digits}f}"
 
 
+PRICE_UNITS = "in the log's price units"  # what money is in when no currency is set
+
+
+def money(x: float | None, fmt: Any = None, *, total: bool = False,
+          code: bool = True) -> str:
+    """A money figure as every page prints it, by the ``[value]`` keys ``currency``,
+    ``decimals`` and ``thousands`` (``fmt``: a mapping with them, or an object with them as
+    attributes; None or missing keys: "," and 2 decimals, no currency). ``total``: a sum
+    over many customers, shown without decimals. ``code``: put the currency after the
+    number ("225.43 EUR"); "," becomes the decimal mark when "." separates thousands."""
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    get = fmt.get if hasattr(fmt, "get") else (lambda k, d=None: getattr(fmt, k, d))
+    digits = 0 if total else int(get("decimals", 2) if fmt is not None else 2)
+    sep = get("thousands", ",") if fmt is not None else ","
+    currency = get("currency", None) if fmt is not None else None
+    text = f"{x:,.{digits}f}".replace(",", "\0").replace(".", "," if sep == "." else ".")
+    text = text.replace("\0", sep)
+    return f"{text} {currency}" if code and currency else text
+
+
+def money_unit(fmt: Any = None) -> str:
+    """What the money figures are in: "EUR", or "in the log's price units"."""
+    currency = (fmt.get("currency") if hasattr(fmt, "get") else getattr(fmt, "currency", None)
+                ) if fmt is not None else None
+    return currency or PRICE_UNITS
+
+
 def months_text(days: float | None) -> str:
     if days is None or not math.isfinite(days):
         return "not reached"
