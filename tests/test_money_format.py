@@ -192,3 +192,15 @@ def test_demo_value_page_shows_the_currency_beside_every_money_figure(tmp_path):
             assert len(ends) == 2 and all(e.endswith(" EUR") for e in ends), detail
     for title in ("Lifetime value of a new customer by", "Residual value of active customers"):
         assert any(t.startswith(title) and "EUR" in t for t in titles), (title, titles)
+
+
+def test_without_a_currency_the_pages_say_the_price_units():
+    run = run_table(small_table(), RunOptions(as_of="2026-11-30", segments=("plan",),
+                                              value={"price": "price", "margin_rate": 0.35}))
+    page = next(p for p in site_content(run).pages if p.slug == "value")
+    assert any(a.startswith(f"money figures {PRICE_UNITS}") for a in page.assumptions)
+    titles = [f.title for s in page.sections for f in s.figures]
+    assert sum(t.endswith(PRICE_UNITS) for t in titles) == 2, titles
+    facts = {f.key: f.text for s in page.sections for f in s.facts}
+    assert re.fullmatch(r"[\d,]+\.\d{2}", facts["ltv-all"])  # 2 decimals, no code
+    assert re.fullmatch(r"[\d,]+", facts["base-total"])
