@@ -204,3 +204,23 @@ def test_without_a_currency_the_pages_say_the_price_units():
     facts = {f.key: f.text for s in page.sections for f in s.facts}
     assert re.fullmatch(r"[\d,]+\.\d{2}", facts["ltv-all"])  # 2 decimals, no code
     assert re.fullmatch(r"[\d,]+", facts["base-total"])
+
+
+def test_experiment_revenue_figures_on_the_page_carry_the_code():
+    run = run_table(small_table(), RunOptions(
+        as_of="2026-11-30", segments=("plan",), value=VALUE,
+        experiments={"channels": {"arm": "channel", "control": "web",
+                                  "signup_from": "2024-01-01", "signup_to": "2025-12-31"}}))
+    page = next(p for p in site_content(run).pages if p.slug == "experiments")
+    facts = {f.key: f for s in page.sections for f in s.facts}
+    revenue = [f for k, f in facts.items() if "-revenue-" in k]
+    assert revenue, list(facts)
+    for f in revenue:
+        assert re.fullmatch(r"-?[\d,]+\.\d{2} EUR", f.text), f.text
+        ends = re.findall(r"-?[\d,]+\.\d+(?: EUR)?", f.detail.split("interval", 1)[1])
+        assert len(ends) == 2 and all(e.endswith(" EUR") for e in ends), f.detail
+    (table,) = [f for s in page.sections for f in s.figures if f.key.endswith("-comparison")]
+    assert table.title.endswith("(revenue in EUR)")
+    for col in ("revenue_difference", "revenue_lower", "revenue_upper"):
+        assert all(re.fullmatch(r"-?[\d,]+\.\d{2}", x) for x in table.table[col]), col
+    assert pd.api.types.is_float_dtype(table.csv["revenue_difference"])

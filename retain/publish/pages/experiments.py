@@ -97,6 +97,24 @@ def _experiment_facts(key: str, v: Any, fmt: Any = None) -> list[Fact]:
     return facts
 
 
+REVENUE_COLUMNS = ("revenue_difference", "revenue_lower", "revenue_upper")
+
+
+def _unit(fmt: Any) -> str:
+    unit = money_unit(fmt)
+    return unit if unit == PRICE_UNITS else f"in {unit}"
+
+
+def _revenue_table(frame: Any, fmt: Any) -> Any:
+    """The comparison as the page shows it: revenue columns as money text with the set
+    decimals (the CSV keeps the numbers)."""
+    out = frame.copy()
+    for col in REVENUE_COLUMNS:
+        if col in out:
+            out[col] = [money(x, fmt, code=False) for x in out[col]]
+    return out
+
+
 def _experiment_section(name: str, v: Any, fmt: Any = None) -> Section:
     key = slug(name)
     power = v.power if isinstance(v.power, dict) else {}
@@ -112,9 +130,10 @@ def _experiment_section(name: str, v: Any, fmt: Any = None) -> Section:
         curves_figure(f"experiment-{key}-curves", f"Retention by arm ({name})",
                       prose.EXPERIMENT_CURVES_GUIDE.format(level=level_text(v.level)),
                       v.curves.items(), series_title=v.arm),
-        Figure(key=f"experiment-{key}-comparison", title="Treatment against control",
+        Figure(key=f"experiment-{key}-comparison",
+               title=f"Treatment against control (revenue {_unit(fmt)})",
                guide=prose.EXPERIMENT_COMPARISON_GUIDE.format(level=level_text(v.level)),
-               table=v.to_frame()),
+               table=_revenue_table(v.to_frame(), fmt), csv=v.to_frame()),
         Figure(key=f"experiment-{key}-arms", title="Arms", guide=prose.EXPERIMENT_ARMS_GUIDE,
                table=v.arms),
         Figure(key=f"experiment-{key}-balance", title="Balance of pre-assignment attributes",
