@@ -224,3 +224,7 @@ def test_experiment_revenue_figures_on_the_page_carry_the_code():
     for col in ("revenue_difference", "revenue_lower", "revenue_upper"):
         assert all(re.fullmatch(r"-?[\d,]+\.\d{2}", x) for x in table.table[col]), col
     assert pd.api.types.is_float_dtype(table.csv["revenue_difference"])
+    (arms,) = [f for s in page.sections for f in s.figures if f.key.endswith("-arms")]
+    assert arms.title.endswith("(revenue in EUR)")
+    for col in ("revenue_per_customer", "revenue_lower", "revenue_upper"):
+        assert all(re.fullmatch(r"-?[\d,]+\.\d{2}", x) for x in arms.table[col]), col

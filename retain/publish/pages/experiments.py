@@ -97,7 +97,8 @@ def _experiment_facts(key: str, v: Any, fmt: Any = None) -> list[Fact]:
     return facts
 
 
-REVENUE_COLUMNS = ("revenue_difference", "revenue_lower", "revenue_upper")
+REVENUE_COLUMNS = ("revenue_difference", "revenue_per_customer", "revenue_lower",
+                   "revenue_upper")
 
 
 def _unit(fmt: Any) -> str:
@@ -106,8 +107,8 @@ def _unit(fmt: Any) -> str:
 
 
 def _revenue_table(frame: Any, fmt: Any) -> Any:
-    """The comparison as the page shows it: revenue columns as money text with the set
-    decimals (the CSV keeps the numbers)."""
+    """A comparison or arms table as the page shows it: revenue columns as money text with
+    the set decimals (the CSV keeps the numbers)."""
     out = frame.copy()
     for col in REVENUE_COLUMNS:
         if col in out:
@@ -134,8 +135,9 @@ def _experiment_section(name: str, v: Any, fmt: Any = None) -> Section:
                title=f"Treatment against control (revenue {_unit(fmt)})",
                guide=prose.EXPERIMENT_COMPARISON_GUIDE.format(level=level_text(v.level)),
                table=_revenue_table(v.to_frame(), fmt), csv=v.to_frame()),
-        Figure(key=f"experiment-{key}-arms", title="Arms", guide=prose.EXPERIMENT_ARMS_GUIDE,
-               table=v.arms),
+        Figure(key=f"experiment-{key}-arms", title=f"Arms (revenue {_unit(fmt)})",
+               guide=prose.EXPERIMENT_ARMS_GUIDE, table=_revenue_table(v.arms, fmt),
+               csv=v.arms),
         Figure(key=f"experiment-{key}-balance", title="Balance of pre-assignment attributes",
                guide=prose.EXPERIMENT_BALANCE_GUIDE, table=v.balance),
     )
