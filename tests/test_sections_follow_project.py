@@ -160,7 +160,7 @@ def test_payment_trouble_gives_two_causes_and_the_page(with_causes) -> None:
     shown = pages["decrements"].figures()[0].table
     assert "churns_involuntary" in shown.columns
     # margin per month given directly: the assumption says so, with no "None"
-    assert "margin per month 10" in pages["value"].assumptions
+    assert "margin per month 10.00" in pages["value"].assumptions
     assert not any("None" in a for a in pages["value"].assumptions)
 
 
