@@ -43,22 +43,8 @@ BASE_VALUE_DRAWS = 200  # parameter draws for the base's interval (the residual 
 
 class NotSetUp(RetainError):
     """A step the project file does not ask for (no covariates, no margin): recorded as
-    skipped with the key that would turn it on, never as a failure.
-
-    ``NotSetUp.again(message)`` is the same refusal, word for word, for a step that
-    needs one that was not set up (the Cox checks after the Cox fit)."""
-
-    _again: str = ""
-
-    @classmethod
-    def again(cls, message: str) -> NotSetUp:
-        exc = cls("", "")
-        exc._again = message
-        return exc
-
-    @property
-    def message(self) -> str:
-        return self._again or super().message
+    skipped with the key that would turn it on, never as a failure. A step that needs a
+    skipped one raises the same refusal again (:meth:`Outcome.refusal`)."""
 
 
 @dataclass(frozen=True)
@@ -71,6 +57,8 @@ class Outcome:
     # "retain" for a RetainError, "internal" for any other exception, "skipped" for a
     # step the project file does not ask for
     kind: str = ""
+    # a skipped step's refusal in its parts (where, rule, fix), for the pages' one line
+    refused: tuple[str, str, str] | None = None
 
     @property
     def ok(self) -> bool:
@@ -79,6 +67,11 @@ class Outcome:
     @property
     def skipped(self) -> bool:
         return self.kind == "skipped"
+
+    def refusal(self) -> NotSetUp:
+        """The refusal of a skipped step, to raise again word for word."""
+        where, rule, fix = self.refused or (self.name, "not set up", self.error or "")
+        return NotSetUp(where, rule, fix)
 
     def to_dict(self) -> dict[str, Any]:
         if not self.ok:
@@ -97,7 +90,8 @@ def attempt(name: str, step: Callable[[], Any]) -> Outcome:
     try:
         return Outcome(name, step())
     except NotSetUp as exc:
-        return Outcome(name, error=exc.message, kind="skipped")
+        return Outcome(name, error=exc.message, kind="skipped",
+                       refused=(exc.where, exc.rule, exc.fix))
     except RetainError as exc:
         return Outcome(name, error=exc.message, kind="retain")
     except Exception as exc:  # noqa: BLE001 - a bug must not take the site down
@@ -426,7 +420,7 @@ def _model_steps(table: StartStop, options: RunOptions,
         def run() -> Any:
             first = done[name]
             if first.skipped:
-                raise NotSetUp.again(first.error or "")
+                raise first.refusal()
             if not first.ok:
                 raise ModelError(name, "the step this one needs failed", first.error or "")
             return what(first.value)
@@ -520,7 +514,7 @@ def _finance_table(done: dict[str, Outcome]) -> pd.DataFrame:
 
     new, base = done[step_names.VALUE_SEGMENTS], done[step_names.VALUE_BASE]
     if new.skipped:
-        raise NotSetUp.again(new.error or "")
+        raise new.refusal()
     if not (new.ok or base.ok):
         raise ModelError("finance file", "neither value figure could be computed",
                          new.error or base.error or "")

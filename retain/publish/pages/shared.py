@@ -108,13 +108,11 @@ NOT_SET_UP_TITLE = "Not set up in the project file"
 
 
 def not_set_up_line(topic: str, outcome: Any) -> str:
-    """One line: ``topic`` is not set up, and the key that turns it on (the fix of the
-    step's :class:`retain.run.NotSetUp` message, "where: rule -- fix")."""
-    error = outcome.error or ""
-    what, _, fix = error.rpartition(" -- ")
-    reason = what.partition(": ")[2]
+    """One line: ``topic`` is not set up, why, and the key that turns it on (the parts of
+    the step's :class:`retain.run.NotSetUp` refusal)."""
+    _, reason, fix = outcome.refused or ("", "", outcome.error or "")
     text = f"{topic} is not set up" + (f" ({reason})" if reason else "")
-    return f"{text}: {fix or error}".rstrip(".") + "."
+    return f"{text}: {fix or outcome.error or ''}".rstrip(".") + "."
 
 
 def left_out(run: Any) -> dict[str, str]:
