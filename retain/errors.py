@@ -53,3 +53,15 @@ class ReconciliationError(RetainError):
 
 class BuildError(RetainError):
     """The site could not be built; the previous site is left untouched."""
+
+
+def internal_error_text(exc: BaseException) -> str:
+    """One line for an exception that is a bug in retain (not a :class:`RetainError`):
+    its type, message and the place it was raised, and a request to report it."""
+    import traceback
+
+    tb = traceback.extract_tb(exc.__traceback__)
+    at = f" (at {tb[-1].name}, {tb[-1].filename.rsplit('/', 1)[-1]}:{tb[-1].lineno})" \
+        if tb else ""
+    return (f"internal error {type(exc).__name__}: {exc}{at} -- this is a bug in retain; "
+            "please report it")

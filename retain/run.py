@@ -14,7 +14,6 @@ import dataclasses
 import datetime as dt
 import math
 import time
-import traceback
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -34,7 +33,7 @@ from retain.data.config import (
     value_settings,
 )
 from retain.data.table import StartStop
-from retain.errors import ConfigError, ModelError, RetainError
+from retain.errors import ConfigError, ModelError, RetainError, internal_error_text
 from retain.results import OneRowFrame, Result, to_jsonable
 from retain.units import DAYS_PER_MONTH, DAYS_PER_YEAR
 
@@ -95,11 +94,7 @@ def attempt(name: str, step: Callable[[], Any]) -> Outcome:
     except RetainError as exc:
         return Outcome(name, error=exc.message, kind="retain")
     except Exception as exc:  # noqa: BLE001 - a bug must not take the site down
-        tb = traceback.extract_tb(exc.__traceback__)
-        at = f" (at {tb[-1].name}, {tb[-1].filename.rsplit('/', 1)[-1]}:{tb[-1].lineno})" \
-            if tb else ""
-        return Outcome(name, error=f"internal error {type(exc).__name__}: {exc}{at} -- "
-                       "this is a bug in retain; please report it", kind="internal")
+        return Outcome(name, error=internal_error_text(exc), kind="internal")
 
 
 @dataclass(frozen=True, init=False)

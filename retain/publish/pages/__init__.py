@@ -15,11 +15,10 @@ page, write its builder in its group's module and list it in ``PAGE_BUILDERS``.
 from __future__ import annotations
 
 import os
-import traceback
 from collections.abc import Callable
 from typing import Any
 
-from retain.errors import RetainError
+from retain.errors import RetainError, internal_error_text
 from retain.publish.content import Page, Section, SiteContent
 from retain.publish.pages.actuarial import causes_page, decrements_page, expected_page
 from retain.publish.pages.curves import cohorts_page, curves_page
@@ -68,14 +67,7 @@ def error_page(name: str, exc: Exception) -> Page:
     A :class:`~retain.errors.RetainError` is a refusal with a reason and is shown as
     its one line; any other exception is a bug, shown with the place it was raised.
     """
-    if isinstance(exc, RetainError):
-        cause = exc.message
-    else:
-        tb = traceback.extract_tb(exc.__traceback__)
-        at = f" (at {tb[-1].name}, {tb[-1].filename.rsplit('/', 1)[-1]}:{tb[-1].lineno})" \
-            if tb else ""
-        cause = (f"internal error {type(exc).__name__}: {exc}{at} -- this is a bug in retain; "
-                 "please report it")
+    cause = exc.message if isinstance(exc, RetainError) else internal_error_text(exc)
     return Page(name, name.replace("_", " ").capitalize(), "This page could not be assembled.",
                 (Section("Error", failure=cause),))
 
