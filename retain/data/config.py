@@ -40,6 +40,8 @@ else:  # pragma: no cover - Python 3.10 only
 EVENTS = ("start", "update", "pause", "resume", "payment_failed", "payment_recovered", "end")
 CURVES = ("weibull", "exponential", "cox", "km_weibull_tail", "renewal")
 FORMATS = ("csv", "parquet")
+#: rules for missing covariate values (retain.models.missing applies them)
+MISSING_RULES = ("stop", "complete_cases", "missing_level")
 #: text encodings DuckDB's CSV reader knows without an extension
 ENCODINGS = ("utf-8", "utf-16", "latin-1")
 #: keys of [source] that only a CSV log takes
@@ -868,7 +870,7 @@ def _model(s: _Section, names: set[str], categorical: set[str]) -> ModelConfig:
 
     return ModelConfig(covariates=covs, strata=strata, reference=ref,
                        missing=s.text("missing", default=ModelConfig.missing,
-                                      allowed=("stop", "complete_cases", "missing_level")),
+                                      allowed=MISSING_RULES),
                        piecewise_cuts=days("piecewise_cuts"),
                        decrement_edges=days("decrement_edges"))
 

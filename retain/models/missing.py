@@ -36,11 +36,11 @@ import numpy as np
 import pandas as pd
 
 from retain.data.completeness import missing_mask
+from retain.data.config import MISSING_RULES
 from retain.data.table import Categorical, StartStop
 from retain.errors import DataError, ModelError
 from retain.results import Result
 
-MISSING_RULES = ("stop", "complete_cases", "missing_level")
 MISSING_LEVEL = "(missing)"
 
 
