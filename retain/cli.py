@@ -50,9 +50,15 @@ def stderr_progress(args: argparse.Namespace) -> Callable[[str, int, float], Non
         return None
 
     def show(step: str, rows: int, seconds: float) -> None:
-        print(f"  {step:<16} {rows:>12,} rows {seconds:8.2f} s", file=sys.stderr, flush=True)
+        progress_line(step, f"{rows:,} rows", seconds)
 
     return show
+
+
+def progress_line(step: str, count: str, seconds: float) -> None:
+    """One progress line on stderr, in the columns prepare and build share: the step, a
+    count (or blank) and the seconds it took."""
+    print(f"  {step:<16} {count:>17} {seconds:8.2f} s", file=sys.stderr, flush=True)
 
 
 def print_reconciliation(prepared, *, demo: bool = False) -> None:  # noqa: ANN001
@@ -220,12 +226,8 @@ def _build_site(args: argparse.Namespace, prepared, out: Path) -> Path:  # noqa:
 
     quiet = getattr(args, "quiet", False)
 
-    def show(step: str, count: str, seconds: float) -> None:
-        # the columns of prepare's lines (stderr_progress): step, count, seconds
-        if not quiet:
-            print(f"  {step:<16} {count:>17} {seconds:8.2f} s", file=sys.stderr, flush=True)
-
-    index, run = build_from_config(prepared.config, out, prepared=prepared, progress=show)
+    index, run = build_from_config(prepared.config, out, prepared=prepared,
+                                   progress=None if quiet else progress_line)
     skipped = [name for name, outcome in run.outcomes.items() if outcome.skipped]
     for name, outcome in run.outcomes.items():
         if not outcome.ok and not outcome.skipped:
