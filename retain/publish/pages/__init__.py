@@ -81,5 +81,6 @@ def site_content(run: Any, *, strict: bool | None = None) -> SiteContent:
     strict = strict_pages() if strict is None else strict
     built = (_build_page(builder, run, strict) for builder in PAGE_BUILDERS)
     pages = tuple(page for page in built if page is not None)
-    return SiteContent(title=run.options.title, as_of=run.options.to_dict()["as_of"],
+    as_of = run.options.as_of
+    return SiteContent(title=run.options.title, as_of=as_of.isoformat() if as_of else "",
                        pages=pages, results=run.to_dict(), source=run.options.source)

@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from retain import step_names as step
+from retain.data.config import ValueConfig
 from retain.kernels.discount import monthly_rate
 from retain.publish import charts
 from retain.publish.content import Fact, Figure, Page, Section
@@ -29,14 +30,13 @@ def value_page(run: Any) -> Page | None:
     out and the overview says which key turns it on)."""
     if "lifetime-value" in left_out(run):
         return None
-    spec = run.options.to_dict()["value"]  # the [value] keys as results.json has them
+    spec = run.options.value  # ValueConfig, or None without [value]
     sections: list[Section] = []
     assumptions: list[str] = []
-    if spec:
-        margin = _margin_text(spec)
-        assumptions += [*margin, discount_text(float(spec.get("annual_discount_rate", 0))),
-                        f"horizon {spec.get('horizon_months')} months",
-                        f"retention curve: {spec.get('curve')} model fitted per segment"]
+    if spec is not None:
+        assumptions += [*_margin_text(spec), discount_text(spec.annual_discount_rate),
+                        f"horizon {spec.horizon_months} months",
+                        f"retention curve: {spec.curve} model fitted per segment"]
     allv = run.get(step.VALUE_ALL)
     if allv.ok and allv.value.values:
         v = allv.value.values[0]
@@ -51,8 +51,8 @@ def value_page(run: Any) -> Page | None:
         sections.append(failure_section("A new customer", allv))
     seg = run.get(step.VALUE_SEGMENTS)
     assumptions.append(prose.VALUE_MONEY.format(
-        unit=f"in {spec['currency']}" if spec.get("currency") else money_unit(spec),
-        decimals=spec.get("decimals", 2)))
+        unit=f"in {spec.currency}" if spec is not None and spec.currency else money_unit(spec),
+        decimals=spec.decimals if spec is not None else ValueConfig.decimals))
     sections.append(_segments_section(seg.value, spec) if seg.ok else
                     failure_section("By segment", seg))
     base = run.get(step.VALUE_BASE)
@@ -67,13 +67,13 @@ def value_page(run: Any) -> Page | None:
                 assumptions=tuple(assumptions), nav_label="Value")
 
 
-def _margin_text(spec: dict[str, Any]) -> list[str]:
+def _margin_text(spec: ValueConfig) -> list[str]:
     """How the margin is set, as an assumption line (none when no margin is set)."""
-    if spec.get("margin_per_month") is not None:
-        return [f"margin per month {money(spec['margin_per_month'], spec)}"]
-    if spec.get("margin_rate") is not None:
-        return [f"margin per month = {spec['margin_rate']:g} × the segment's mean monthly "
-                f"{spec.get('price') or 'price'}"]
+    if spec.margin_per_month is not None:
+        return [f"margin per month {money(spec.margin_per_month, spec)}"]
+    if spec.margin_rate is not None:
+        return [f"margin per month = {spec.margin_rate:g} × the segment's mean monthly "
+                f"{spec.price or 'price'}"]
     return []
 
 
@@ -85,7 +85,7 @@ def discount_text(annual: float) -> str:
                                        monthly=f"{100 * monthly_rate(annual):.3f} %")
 
 
-def money_table(frame: Any, spec: dict[str, Any]) -> Any:
+def money_table(frame: Any, spec: ValueConfig | None) -> Any:
     """``frame`` as the page's table shows it: money columns as text with the set decimals
     (totals without), so every figure in a column has the same number of decimals."""
     out = frame.copy()
@@ -96,7 +96,7 @@ def money_table(frame: Any, spec: dict[str, Any]) -> Any:
     return out
 
 
-def _segments_section(sv: Any, spec: dict[str, Any]) -> Section:
+def _segments_section(sv: Any, spec: ValueConfig | None) -> Section:
     frame = sv.to_frame()
     unit = money_unit(spec)
     shown = frame[["segment", "customers", "margin_per_month", "value", "lower", "upper",
@@ -113,7 +113,7 @@ def _segments_section(sv: Any, spec: dict[str, Any]) -> Section:
             table=money_table(shown, spec), csv=frame),))
 
 
-def _base_section(bv: Any, spec: dict[str, Any]) -> Section:
+def _base_section(bv: Any, spec: ValueConfig | None) -> Section:
     frame = bv.to_frame()
     shown = frame[["segment", "customers", "value_per_customer", "lower", "upper", "total",
                    "total_lower", "total_upper", "extrapolated_months"]]
@@ -133,8 +133,8 @@ def _base_section(bv: Any, spec: dict[str, Any]) -> Section:
                        csv=frame),))
 
 
-def _finance_section(fin: Any, spec: dict[str, Any]) -> Section:
-    fin = with_currency(fin, spec.get("currency"))
+def _finance_section(fin: Any, spec: ValueConfig | None) -> Section:
+    fin = with_currency(fin, spec.currency if spec is not None else None)
     return Section("Finance file", intro=prose.FINANCE_INTRO, figures=(Figure(
         key="value-finance", title="Finance CSV", guide=prose.FINANCE_GUIDE,
         table=fin[["figure", "segment", "customers", "value_per_customer", "lower", "upper",
